@@ -1,0 +1,238 @@
+"""Value types shared by every layer: frozen, SI units inside, no I/O in constructors.
+
+Every layer may import this module (it imports only numpy and :mod:`lineproof.errors`).
+Frequencies are in Hz, power in dBm only where an instrument setting is one, reflection as
+linear |Γ|; VSWR is a ratio.  Decibels appear here only where the trade states a figure
+that way (return loss in a result summary) and are always named ``..._db``.
+S-parameters of a corrected device travel as ``skrf.Network`` outside this module.
+"""
+
+from __future__ import annotations
+
+import enum
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from types import MappingProxyType
+
+import numpy as np
+
+
+def _frozen_array(values: np.ndarray, dtype: type) -> np.ndarray:
+    array = np.array(values, dtype=dtype, copy=True)
+    array.setflags(write=False)
+    return array
+
+
+@dataclass(frozen=True)
+class SweepPlan:
+    """A linear frequency sweep as asked of an analyzer."""
+
+    start_hz: float
+    stop_hz: float
+    points: int
+    if_bandwidth_hz: float = 1000.0
+    power_dbm: float | None = None
+
+    def __post_init__(self) -> None:
+        if not (math.isfinite(self.start_hz) and math.isfinite(self.stop_hz)):
+            raise ValueError("sweep start and stop must be finite")
+        if self.start_hz <= 0 or self.stop_hz < self.start_hz:
+            raise ValueError(
+                f"sweep needs 0 < start <= stop, got {self.start_hz} Hz .. {self.stop_hz} Hz"
+            )
+        if self.points < 1 or (self.points == 1 and self.stop_hz != self.start_hz):
+            raise ValueError(f"sweep needs at least 2 points over a span, got {self.points}")
+        if self.if_bandwidth_hz <= 0:
+            raise ValueError(f"IF bandwidth must be positive, got {self.if_bandwidth_hz} Hz")
+
+    def frequencies(self) -> np.ndarray:
+        """The frequency grid in Hz, exactly as an instrument with this plan steps it."""
+        return np.linspace(self.start_hz, self.stop_hz, self.points)
+
+    def describe(self) -> str:
+        text = (
+            f"{self.start_hz / 1e6:g}-{self.stop_hz / 1e6:g} MHz, {self.points} points, "
+            f"IF bandwidth {self.if_bandwidth_hz:g} Hz"
+        )
+        if self.power_dbm is not None:
+            text += f", {self.power_dbm:g} dBm"
+        return text
+
+
+@dataclass(frozen=True)
+class InstrumentIdentity:
+    """Who answered: the four fields of an IEEE 488.2 *IDN? reply plus where it lives."""
+
+    manufacturer: str
+    model: str
+    serial: str
+    firmware: str
+    resource: str = ""
+
+    def describe(self) -> str:
+        return f"{self.manufacturer} {self.model} s/n {self.serial} fw {self.firmware}"
+
+
+@dataclass(frozen=True, eq=False)
+class MeasuredSweep:
+    """Complex traces on one frequency grid, keyed by parameter name ("S11", "S21", ...)."""
+
+    frequencies_hz: np.ndarray
+    traces: Mapping[str, np.ndarray]
+    corrected: bool = False
+
+    def __post_init__(self) -> None:
+        frequencies = _frozen_array(self.frequencies_hz, float)
+        traces = {}
+        for name, trace in self.traces.items():
+            data = _frozen_array(trace, complex)
+            if data.shape != frequencies.shape:
+                raise ValueError(
+                    f"trace {name} has {data.size} points, the grid has {frequencies.size}"
+                )
+            traces[name] = data
+        object.__setattr__(self, "frequencies_hz", frequencies)
+        object.__setattr__(self, "traces", MappingProxyType(traces))
+
+    def __getitem__(self, parameter: str) -> np.ndarray:
+        return self.traces[parameter]
+
+
+@dataclass(frozen=True)
+class BandLimit:
+    """A named band with its acceptance limit on input VSWR."""
+
+    name: str
+    start_hz: float
+    stop_hz: float
+    max_vswr: float
+
+    def __post_init__(self) -> None:
+        if self.stop_hz < self.start_hz:
+            raise ValueError(f"band {self.name}: stop below start")
+        if not self.max_vswr > 1.0:
+            raise ValueError(f"band {self.name}: a VSWR limit must exceed 1.0")
+
+    @property
+    def max_reflection(self) -> float:
+        """The limit as |Γ| (VSWR = (1+|Γ|)/(1-|Γ|))."""
+        return (self.max_vswr - 1.0) / (self.max_vswr + 1.0)
+
+
+class Verdict(str, enum.Enum):
+    """Outcome of judging a measurement against a limit (ILAC-G8:09/2019 wording)."""
+
+    PASS = "pass"
+    FAIL = "fail"
+    INDETERMINATE = "indeterminate"
+
+    @staticmethod
+    def combine(verdicts: list[Verdict] | tuple[Verdict, ...]) -> Verdict:
+        """A device passes only if every band passes; any fail makes it fail."""
+        if any(v is Verdict.FAIL for v in verdicts):
+            return Verdict.FAIL
+        if any(v is Verdict.INDETERMINATE for v in verdicts):
+            return Verdict.INDETERMINATE
+        return Verdict.PASS
+
+
+@dataclass(frozen=True)
+class BandResult:
+    """One band of one device: worst and mean figures and the verdict."""
+
+    limit: BandLimit
+    worst_reflection: float
+    worst_frequency_hz: float
+    mean_reflection: float
+    expanded_uncertainty: float | None
+    verdict: Verdict
+    decision_rule: str
+
+    @property
+    def worst_vswr(self) -> float:
+        return _vswr(self.worst_reflection)
+
+    @property
+    def mean_vswr(self) -> float:
+        return _vswr(self.mean_reflection)
+
+    @property
+    def worst_return_loss_db(self) -> float:
+        return math.inf if self.worst_reflection == 0 else -20.0 * math.log10(self.worst_reflection)
+
+
+def _vswr(reflection: float) -> float:
+    return math.inf if reflection >= 1.0 else (1.0 + reflection) / (1.0 - reflection)
+
+
+@dataclass(frozen=True, eq=False)
+class CalibrationRecord:
+    """A solved calibration: its error terms on its own grid and where they came from.
+
+    ``terms`` maps an error-term name (see :mod:`lineproof.calibration`) to a complex array
+    on ``frequencies_hz``.
+    """
+
+    calibration_id: str
+    method: str
+    kit_name: str
+    kit_hash: str
+    created_utc: str
+    instrument: InstrumentIdentity
+    plan: SweepPlan
+    reference_impedance_ohm: float
+    frequencies_hz: np.ndarray
+    terms: Mapping[str, np.ndarray]
+
+    def __post_init__(self) -> None:
+        frequencies = _frozen_array(self.frequencies_hz, float)
+        terms = {name: _frozen_array(value, complex) for name, value in self.terms.items()}
+        for name, value in terms.items():
+            if value.shape != frequencies.shape:
+                raise ValueError(f"error term {name} does not match the calibration grid")
+        object.__setattr__(self, "frequencies_hz", frequencies)
+        object.__setattr__(self, "terms", MappingProxyType(terms))
+
+
+@dataclass(frozen=True)
+class TerminationQualification:
+    """The termination measured alone, against its VSWR limit."""
+
+    name: str
+    worst_vswr: float
+    worst_frequency_hz: float
+    limit_vswr: float
+
+    @property
+    def passed(self) -> bool:
+        return self.worst_vswr <= self.limit_vswr
+
+    def describe(self) -> str:
+        outcome = "qualified" if self.passed else "REJECTED"
+        return (
+            f"{self.name}: worst VSWR {self.worst_vswr:.4f} at "
+            f"{self.worst_frequency_hz / 1e6:.3f} MHz, limit {self.limit_vswr:.3f} -> {outcome}"
+        )
+
+
+@dataclass(frozen=True)
+class DeviceIdentity:
+    """The device under test as the operator or the batch list names it."""
+
+    serial: str
+    model: str
+
+
+@dataclass(frozen=True)
+class DeviceResult:
+    """A device judged in every band."""
+
+    device: DeviceIdentity
+    bands: tuple[BandResult, ...]
+    measured_utc: str
+    extra: Mapping[str, str] = field(default_factory=dict)
+
+    @property
+    def verdict(self) -> Verdict:
+        return Verdict.combine(tuple(b.verdict for b in self.bands))
