@@ -1,0 +1,108 @@
+"""Circuit physics of the simulated bench, written independently of the harness.
+
+The harness computes standards and corrections its own way; the simulator builds the truth
+from two-port ABCD cascades so that a shared mistake cannot hide in both.  All arrays are
+per frequency; two-port S-matrices have shape (N, 2, 2).
+
+Sources: ABCD matrices of series, shunt and line elements and the ABCD-to-S conversion are
+those of D. M. Pozar, *Microwave Engineering*, 4th ed., Table 4.1 and Table 4.2.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+Z_REF = 50.0
+
+
+def series_impedance(z: np.ndarray) -> np.ndarray:
+    """ABCD of a series impedance Z: [[1, Z], [0, 1]] (Pozar Table 4.1)."""
+    z = np.asarray(z, dtype=complex)
+    abcd = np.zeros(z.shape + (2, 2), dtype=complex)
+    abcd[..., 0, 0] = 1.0
+    abcd[..., 0, 1] = z
+    abcd[..., 1, 1] = 1.0
+    return abcd
+
+
+def shunt_admittance(y: np.ndarray) -> np.ndarray:
+    """ABCD of a shunt admittance Y: [[1, 0], [Y, 1]] (Pozar Table 4.1)."""
+    y = np.asarray(y, dtype=complex)
+    abcd = np.zeros(y.shape + (2, 2), dtype=complex)
+    abcd[..., 0, 0] = 1.0
+    abcd[..., 1, 0] = y
+    abcd[..., 1, 1] = 1.0
+    return abcd
+
+
+def line(frequencies_hz: np.ndarray, z_line: float, delay_s: float,
+         loss_ohm_per_s: float = 0.0) -> np.ndarray:
+    """ABCD of a TEM line from the telegrapher's equations (Pozar §2.1 and Table 4.1:
+    [[cosh γl, Zc sinh γl], [sinh γl / Zc, cosh γl]]).
+
+    The whole line has L = Z·τ, C = τ/Z and the skin-effect surface impedance of its
+    conductors in series, R(1 + j) with R = loss·τ·sqrt(f / 1 GHz) (a good conductor's
+    internal reactance equals its resistance; Pozar §1.7), ``loss_ohm_per_s`` being the usual
+    offset-loss figure of a coaxial standard (ohm per second of delay at 1 GHz); G = 0.
+    """
+    f = np.asarray(frequencies_hz, dtype=float)
+    abcd = np.zeros(f.shape + (2, 2), dtype=complex)
+    if delay_s == 0:
+        abcd[..., 0, 0] = abcd[..., 1, 1] = 1.0
+        return abcd
+    w = 2 * np.pi * f
+    series = (1 + 1j) * loss_ohm_per_s * delay_s * np.sqrt(f / 1e9) + 1j * w * z_line * delay_s
+    shunt = 1j * w * delay_s / z_line
+    gamma_l = np.sqrt(series * shunt)
+    z_c = np.sqrt(series / shunt)
+    abcd[..., 0, 0] = np.cosh(gamma_l)
+    abcd[..., 0, 1] = z_c * np.sinh(gamma_l)
+    abcd[..., 1, 0] = np.sinh(gamma_l) / z_c
+    abcd[..., 1, 1] = np.cosh(gamma_l)
+    return abcd
+
+
+def cascade(*abcds: np.ndarray) -> np.ndarray:
+    result = abcds[0]
+    for item in abcds[1:]:
+        result = result @ item
+    return result
+
+
+def abcd_to_s(abcd: np.ndarray, z0: float = Z_REF) -> np.ndarray:
+    """Pozar Table 4.2, ABCD to S for equal real reference impedances Z0."""
+    a, b, c, d = abcd[..., 0, 0], abcd[..., 0, 1], abcd[..., 1, 0], abcd[..., 1, 1]
+    denominator = a + b / z0 + c * z0 + d
+    s = np.empty(abcd.shape, dtype=complex)
+    s[..., 0, 0] = (a + b / z0 - c * z0 - d) / denominator
+    s[..., 0, 1] = 2 * (a * d - b * c) / denominator
+    s[..., 1, 0] = 2 / denominator
+    s[..., 1, 1] = (-a + b / z0 - c * z0 + d) / denominator
+    return s
+
+
+def load_reflection(z_load: np.ndarray, z0: float = Z_REF) -> np.ndarray:
+    z_load = np.asarray(z_load, dtype=complex)
+    return (z_load - z0) / (z_load + z0)
+
+
+def terminated_input(s: np.ndarray, gamma_load: np.ndarray) -> np.ndarray:
+    """Input reflection of a two-port whose output sees ``gamma_load``:
+    Γin = S11 + S12 S21 ΓL / (1 - S22 ΓL)  (Pozar eq. 12.3a)."""
+    s11, s12, s21, s22 = s[..., 0, 0], s[..., 0, 1], s[..., 1, 0], s[..., 1, 1]
+    return s11 + s12 * s21 * gamma_load / (1 - s22 * gamma_load)
+
+
+def terminate_abcd_open(abcd: np.ndarray, z_end: np.ndarray | None, z0: float = Z_REF) -> np.ndarray:
+    """Reflection at the input of ``abcd`` ended in ``z_end`` (None = open circuit):
+    Zin = (A Z + B) / (C Z + D); open: Zin = A / C."""
+    a, b, c, d = abcd[..., 0, 0], abcd[..., 0, 1], abcd[..., 1, 0], abcd[..., 1, 1]
+    if z_end is None:
+        z_in = a / c
+    else:
+        z_in = (a * z_end + b) / (c * z_end + d)
+    return load_reflection(z_in, z0)
+
+
+def vswr_to_reflection(vswr: float | np.ndarray) -> float | np.ndarray:
+    return (np.asarray(vswr) - 1.0) / (np.asarray(vswr) + 1.0)

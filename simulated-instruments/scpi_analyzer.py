@@ -1,0 +1,222 @@
+"""The SCPI face of a simulated analyzer, served on a TCP socket on 127.0.0.1.
+
+It answers the IEEE 488.2 common commands, the SCPI error queue and the commands of the
+project's generic SCPI analyzer profile (drivers/profiles/generic-scpi-analyzer.toml).
+"""
+
+from __future__ import annotations
+
+import re
+import socket
+import socketserver
+import threading
+
+import numpy as np
+
+from lineproof.simulators.analyzer_sim import SimulatedAnalyzer
+from lineproof.simulators.local_server import LocalServer
+from lineproof.simulators.scpi import ScpiCommandError, ScpiDispatcher, parse_number, unquote
+
+
+def _block(payload: bytes) -> bytes:
+    """IEEE 488.2 §8.7.9 definite-length arbitrary block."""
+    length = str(len(payload)).encode()
+    return b"#" + str(len(length)).encode() + length + payload
+
+
+class AnalyzerScpiFront:
+    """Command handlers binding SCPI headers to a :class:`SimulatedAnalyzer`."""
+
+    def __init__(self, analyzer: SimulatedAnalyzer) -> None:
+        self.analyzer = analyzer
+        self.dispatcher = ScpiDispatcher()
+        self.data_format = "ASCII"
+        self.byte_order = "big"
+        self.event_status = 0
+        #: One program message at a time, whichever client sent it (an instrument has one
+        #: parser); the model's own lock stays free for the bench control channel.
+        self.message_lock = threading.Lock()
+        self._register()
+
+    def _register(self) -> None:
+        add = self.dispatcher.add
+        a = self.analyzer
+        add("*IDN?", lambda args, sfx: a.settings.identity)
+        add("*RST", lambda args, sfx: self._reset())
+        add("*CLS", lambda args, sfx: self._clear())
+        add("*OPC?", lambda args, sfx: self._opc())
+        add("*OPC", lambda args, sfx: None)
+        add("*WAI", lambda args, sfx: a.wait_idle())
+        add("*ESR?", lambda args, sfx: self._esr())
+        add("*STB?", lambda args, sfx: str(4 if self.dispatcher.errors else 0))
+        add("SYSTem:ERRor[:NEXT]?", lambda args, sfx: self.dispatcher.pop_error())
+        add("[SENSe]:FREQuency:STARt", lambda args, sfx: self._set_frequency("start_hz", args))
+        add("[SENSe]:FREQuency:STARt?", lambda args, sfx: f"{a.start_hz:.12g}")
+        add("[SENSe]:FREQuency:STOP", lambda args, sfx: self._set_frequency("stop_hz", args))
+        add("[SENSe]:FREQuency:STOP?", lambda args, sfx: f"{a.stop_hz:.12g}")
+        add("[SENSe]:SWEep:POINts", lambda args, sfx: self._set_points(args))
+        add("[SENSe]:SWEep:POINts?", lambda args, sfx: str(a.points))
+        add("[SENSe]:BANDwidth[:RESolution]", lambda args, sfx: self._set_if_bandwidth(args))
+        add("[SENSe]:BANDwidth[:RESolution]?", lambda args, sfx: f"{a.if_bandwidth_hz:.12g}")
+        add("[SENSe]:FUNCtion", lambda args, sfx: self._set_function(args))
+        add("[SENSe]:FUNCtion?", lambda args, sfx: f'"XFRequency:{a.parameter}"')
+        add("[SENSe]:FREQuency:DATA?", lambda args, sfx: self._encode(a.frequencies(), complex_data=False))
+        add("SOURce:POWer[:LEVel][:IMMediate][:AMPLitude]", lambda args, sfx: self._set_power(args))
+        add("SOURce:POWer[:LEVel][:IMMediate][:AMPLitude]?", lambda args, sfx: f"{a.power_dbm:.2f}")
+        add("INITiate:CONTinuous", lambda args, sfx: None)
+        add("INITiate[:IMMediate]", lambda args, sfx: self._trigger())
+        add("FORMat[:DATA]", lambda args, sfx: self._set_format(args))
+        add("FORMat[:DATA]?", lambda args, sfx: self.data_format)
+        add("FORMat:BORDer", lambda args, sfx: self._set_byte_order(args))
+        add("TRACe[:DATA]?", lambda args, sfx: self._trace(args))
+
+    # -- handlers ---------------------------------------------------------------------------
+
+    def _reset(self) -> None:
+        self.analyzer.reset()
+        self.data_format = "ASCII"
+        self.byte_order = "big"
+
+    def _clear(self) -> None:
+        self.dispatcher.errors.clear()
+        self.event_status = 0
+
+    def _trigger(self) -> None:
+        self.analyzer.sweep()
+
+    def _opc(self) -> str:
+        self.analyzer.wait_idle()
+        return "1"
+
+    def _esr(self) -> str:
+        # IEEE 488.2 §11.5.1: bit 2 query error, 3 device-dependent, 4 execution, 5 command.
+        value = self.event_status
+        for code, _ in self.dispatcher.errors:
+            if -199 <= code <= -100:
+                value |= 32
+            elif -299 <= code <= -200:
+                value |= 16
+        self.event_status = 0
+        return str(value)
+
+    def _set_frequency(self, attribute: str, args: str) -> None:
+        value = parse_number(args)
+        s = self.analyzer.settings
+        if not s.frequency_min_hz <= value <= s.frequency_max_hz:
+            raise ScpiCommandError(-222, "Data out of range")
+        with self.analyzer.lock:
+            setattr(self.analyzer, attribute, value)
+
+    def _set_points(self, args: str) -> None:
+        value = parse_number(args)
+        if value != int(value) or not 1 <= value <= self.analyzer.settings.max_points:
+            raise ScpiCommandError(-222, "Data out of range")
+        with self.analyzer.lock:
+            self.analyzer.points = int(value)
+
+    def _set_if_bandwidth(self, args: str) -> None:
+        value = parse_number(args)
+        if not 1.0 <= value <= 1e6:
+            raise ScpiCommandError(-222, "Data out of range")
+        with self.analyzer.lock:
+            self.analyzer.if_bandwidth_hz = value
+
+    def _set_power(self, args: str) -> None:
+        value = parse_number(args)
+        if not -60 <= value <= 20:
+            raise ScpiCommandError(-222, "Data out of range")
+        with self.analyzer.lock:
+            self.analyzer.power_dbm = value
+
+    def _set_function(self, args: str) -> None:
+        match = re.fullmatch(r"XFR(?:EQUENCY)?:(S\d\d)", unquote(args), re.IGNORECASE)
+        if not match:
+            raise ScpiCommandError(-224, "Illegal parameter value")
+        parameter = match.group(1).upper()
+        ports = self.analyzer.settings.ports
+        if int(parameter[1]) > ports or int(parameter[2]) > ports:
+            raise ScpiCommandError(-224, "Illegal parameter value")
+        self.analyzer.parameter = parameter
+
+    def _set_format(self, args: str) -> None:
+        text = args.replace(" ", "").upper()
+        if text in ("REAL,64", "REAL,32"):
+            self.data_format = text
+        elif text in ("ASC", "ASCII", "ASCII,0", "ASC,0"):
+            self.data_format = "ASCII"
+        else:
+            raise ScpiCommandError(-224, "Illegal parameter value")
+
+    def _set_byte_order(self, args: str) -> None:
+        text = args.strip().upper()
+        if text in ("NORM", "NORMAL"):
+            self.byte_order = "big"
+        elif text in ("SWAP", "SWAPPED"):
+            self.byte_order = "little"
+        else:
+            raise ScpiCommandError(-224, "Illegal parameter value")
+
+    def _trace(self, args: str) -> bytes | str:
+        name = args.strip().upper()
+        if name not in ("RAW",):
+            raise ScpiCommandError(-224, "Illegal parameter value")
+        a = self.analyzer
+        a.wait_idle()
+        with a.lock:
+            trace = a.traces.get(a.parameter)
+        if trace is None:
+            raise ScpiCommandError(-230, "Data corrupt or stale")
+        return self._encode(trace, complex_data=True)
+
+    def _encode(self, values: np.ndarray, complex_data: bool) -> bytes | str:
+        if complex_data:
+            flat = np.empty(values.size * 2)
+            flat[0::2] = values.real
+            flat[1::2] = values.imag
+        else:
+            flat = np.asarray(values, dtype=float)
+        if self.data_format == "ASCII":
+            return ",".join(f"{v:.12g}" for v in flat)
+        dtype = ">" if self.byte_order == "big" else "<"
+        dtype += "f8" if self.data_format == "REAL,64" else "f4"
+        return _block(flat.astype(dtype).tobytes())
+
+
+class _ScpiConnectionHandler(socketserver.StreamRequestHandler):
+    """One client connection: read a line, execute it, write the joined replies."""
+
+    def handle(self) -> None:
+        front: AnalyzerScpiFront = self.server.context  # type: ignore[attr-defined]
+        self.connection.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+        while True:
+            try:
+                line = self.rfile.readline(1 << 20)
+            except OSError:
+                return
+            if not line:
+                return
+            message = line.rstrip(b"\r\n").decode("ascii", errors="replace")
+            with front.message_lock:
+                replies = front.dispatcher.execute(message)
+            if not replies:
+                continue
+            # IEEE 488.2 §8.4.1: the replies of one program message form one response
+            # message, separated by ';' and ended by the terminator.
+            parts = [r.encode("ascii") if isinstance(r, str) else r for r in replies]
+            try:
+                self.wfile.write(b";".join(parts) + b"\n")
+                self.wfile.flush()
+            except OSError:
+                return
+
+
+class ScpiTcpServer(LocalServer):
+    """Serve a SCPI front on 127.0.0.1 (port 0 = any free port) in a background thread."""
+
+    def __init__(self, front: AnalyzerScpiFront, port: int = 0) -> None:
+        super().__init__(_ScpiConnectionHandler, front, port, name="scpi-server")
+        self.front = front
+
+    @property
+    def visa_resource(self) -> str:
+        return f"TCPIP::127.0.0.1::{self.port}::SOCKET"
