@@ -1,0 +1,42 @@
+"""The contracts the harness's steps call: an analyzer and an operator.
+
+Steps see these interfaces and value types only -- never a transport or a command string.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from typing import Protocol
+
+from lineproof.values import InstrumentIdentity, MeasuredSweep, SweepPlan
+
+
+class AnalyzerCapabilitiesView(Protocol):
+    ports: int
+    paths: str
+    frequency_min_hz: float
+    frequency_max_hz: float
+    max_points: int
+    parameters: tuple[str, ...]
+
+
+class Analyzer(Protocol):
+    """A vector network analyzer as the harness sees it."""
+
+    capabilities: AnalyzerCapabilitiesView
+
+    def identify(self) -> InstrumentIdentity: ...
+
+    def configure(self, plan: SweepPlan) -> None: ...
+
+    def measure(self, parameters: Sequence[str], corrected: bool = False) -> MeasuredSweep: ...
+
+    def close(self) -> None: ...
+
+
+class Operator(Protocol):
+    """Whoever (or whatever) connects things to the analyzer's ports."""
+
+    def connect(self, port: int, thing: str, output: str | None, instruction: str) -> None:
+        """Connect ``thing`` to ``port`` (a two-port's output to ``output``) and return
+        when it is done."""
