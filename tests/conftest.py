@@ -1,0 +1,52 @@
+"""Shared fixtures: simulated benches on 127.0.0.1, reached through the real drivers."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from pathlib import Path
+
+import pytest
+
+from lineproof.drivers import open_analyzer
+from lineproof.drivers.analyzer import ProfiledAnalyzer
+from lineproof.operators import SimulatedOperator
+from lineproof.simulators.bench import SimulatedBench
+from lineproof.simulators.control import BenchControlClient
+
+SCENARIOS = Path(__file__).parent / "scenarios"
+
+
+@pytest.fixture
+def ideal_bench() -> Iterator[SimulatedBench]:
+    """A bench whose standards are exactly as the kit says and whose connectors repeat
+    perfectly; trace noise is switched off through the control channel."""
+    with SimulatedBench(SCENARIOS / "ideal-bench.toml") as bench:
+        with BenchControlClient(bench.control_address) as control:
+            control.request("set", noise=False)
+        yield bench
+
+
+@pytest.fixture
+def demo_bench() -> Iterator[SimulatedBench]:
+    with SimulatedBench("demo-bench") as bench:
+        yield bench
+
+
+@pytest.fixture
+def control(ideal_bench: SimulatedBench) -> Iterator[BenchControlClient]:
+    with BenchControlClient(ideal_bench.control_address) as client:
+        yield client
+
+
+@pytest.fixture
+def operator(ideal_bench: SimulatedBench) -> Iterator[SimulatedOperator]:
+    simulated = SimulatedOperator(ideal_bench.control_address)
+    yield simulated
+    simulated.close()
+
+
+@pytest.fixture
+def reflectometer(ideal_bench: SimulatedBench) -> Iterator[ProfiledAnalyzer]:
+    analyzer = open_analyzer(ideal_bench.visa_resource, "generic-scpi-reflectometer")
+    yield analyzer
+    analyzer.close()
