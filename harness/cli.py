@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 import argparse
+import importlib
 import sys
 from collections.abc import Sequence
-from pathlib import Path
 
 from lineproof import __version__
 from lineproof.errors import InputError, LineproofError, RunHalted
@@ -15,12 +15,13 @@ from lineproof.errors import InputError, LineproofError, RunHalted
 EXIT_OK, EXIT_DEVICE_FAILED, EXIT_INCOMPLETE, EXIT_INPUT = 0, 1, 2, 3
 
 
-def _demo(arguments: argparse.Namespace) -> int:
-    from lineproof.demo import run_demo
-
-    termination = "poor-termination" if arguments.worn_termination else "good-termination"
-    run_demo(Path(arguments.out), termination=termination)
-    return EXIT_OK
+#: The modules that define the subcommands, in the order --help lists them.  Each has a
+#: ``register(commands)`` that adds its subparser and sets ``handler`` (a function taking the
+#: parsed arguments and returning an exit code).  Listed explicitly: nothing registers itself
+#: by being imported.
+COMMAND_MODULES = (
+    "lineproof.demo",
+)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -31,17 +32,8 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"lineproof {__version__}")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND")
-
-    demo = commands.add_parser(
-        "demo", help="run the whole job once on a simulated bench (no hardware needed)",
-        description="Start a simulated analyzer on 127.0.0.1, calibrate it, qualify the termination, "
-        "measure a batch of invented meter heads and write Touchstone files and a results database.",
-    )
-    demo.add_argument("--out", default="lineproof-demo", metavar="DIR",
-                      help="folder for the results database and Touchstone files (default: ./lineproof-demo)")
-    demo.add_argument("--worn-termination", action="store_true",
-                      help="use the bench's worn termination, to see the run refuse it")
-    demo.set_defaults(handler=_demo)
+    for module_name in COMMAND_MODULES:
+        importlib.import_module(module_name).register(commands)
     return parser
 
 

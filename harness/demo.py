@@ -7,6 +7,7 @@ the termination and each device through the bench's control channel.
 
 from __future__ import annotations
 
+import argparse
 import hashlib
 import sys
 import uuid
@@ -179,3 +180,23 @@ def run_demo(out_dir: Path, termination: str = "good-termination", out: TextIO =
     print(f"\nTouchstone files: {folder}", file=out)
     print(f"Results database: {out_dir / 'results.sqlite'} (run {run_id})", file=out)
     return DemoOutcome(run_id, results, files, out_dir / "results.sqlite", folder)
+
+
+def _command(arguments: argparse.Namespace) -> int:
+    termination = "poor-termination" if arguments.worn_termination else "good-termination"
+    run_demo(Path(arguments.out), termination=termination)
+    return 0
+
+
+def register(commands: argparse._SubParsersAction) -> None:
+    """Add ``lineproof demo`` to the command line."""
+    demo = commands.add_parser(
+        "demo", help="run the whole job once on a simulated bench (no hardware needed)",
+        description="Start a simulated analyzer on 127.0.0.1, calibrate it, qualify the termination, "
+        "measure a batch of invented meter heads and write Touchstone files and a results database.",
+    )
+    demo.add_argument("--out", default="lineproof-demo", metavar="DIR",
+                      help="folder for the results database and Touchstone files (default: ./lineproof-demo)")
+    demo.add_argument("--worn-termination", action="store_true",
+                      help="use the bench's worn termination, to see the run refuse it")
+    demo.set_defaults(handler=_command)
