@@ -34,9 +34,26 @@ class Analyzer(Protocol):
     def close(self) -> None: ...
 
 
+class Switch(Protocol):
+    """A switch matrix as the harness sees it (driven by a switch profile)."""
+
+    def identify(self) -> InstrumentIdentity: ...
+
+    def route(self, channels: Sequence[str]) -> None:
+        """Open every channel, close exactly ``channels`` (SCPI channel-list entries such as
+        ``"1!3"``) and confirm the closed set by querying it."""
+
+    def close(self) -> None: ...
+
+
 class Operator(Protocol):
-    """Whoever (or whatever) connects things to the analyzer's ports."""
+    """Whoever (or whatever) connects things to the analyzer's ports: a person at a prompt,
+    a switch matrix, or a simulated operator."""
 
     def connect(self, port: int, thing: str, output: str | None, instruction: str) -> None:
-        """Connect ``thing`` to ``port`` (a two-port's output to ``output``) and return
-        when it is done."""
+        """Connect ``thing`` to ``port`` and return when it is done.
+
+        ``output`` says what a two-port's output goes to: the name of a one-port termination,
+        ``"port:2"`` for analyzer port 2, or None for a one-port ``thing``.  ``instruction`` is
+        the sentence a person would be shown.
+        """
