@@ -82,7 +82,10 @@ class AnalyzerScpiFront:
         self.event_status = 0
 
     def _trigger(self) -> None:
-        self.analyzer.sweep()
+        try:
+            self.analyzer.sweep()
+        except ValueError as exc:  # e.g. a Touchstone object asked outside its file's range
+            raise ScpiCommandError(-221, "Settings conflict") from exc
 
     def _opc(self) -> str:
         self.analyzer.wait_idle()
@@ -133,10 +136,10 @@ class AnalyzerScpiFront:
         if not match:
             raise ScpiCommandError(-224, "Illegal parameter value")
         parameter = match.group(1).upper()
-        ports = self.analyzer.settings.ports
-        if int(parameter[1]) > ports or int(parameter[2]) > ports:
+        if parameter not in self.analyzer.settings.parameters:
             raise ScpiCommandError(-224, "Illegal parameter value")
-        self.analyzer.parameter = parameter
+        with self.analyzer.lock:
+            self.analyzer.parameter = parameter
 
     def _set_format(self, args: str) -> None:
         text = args.replace(" ", "").upper()
