@@ -21,6 +21,11 @@ JSON object back.  Every request has ``"op"``; requests about an analyzer may na
   (``"forward"``: port 1 drives, ``"reverse"``: port 2 drives) gives all six of the
   twelve-term model (three on a reflection analyzer).
 - ``set {noise: bool}``
+- ``fault {instrument, kind, count, after, match, ...}`` -> ``{"armed": {...}}``: arm a fault
+  (kinds and fields in :mod:`.faults`; ``instrument`` is ``analyzer``, ``switch``, ...)
+- ``faults {instrument}`` -> ``{"faults": {name: {"armed", "spent", "fired"}}}``: what is armed
+  and every firing so far, with the command that triggered it
+- ``clear_faults {instrument}``: disarm (and forget) the faults of one or every instrument
 - ``status`` -> sweeps done and summed busy time per analyzer
 
 Errors come back as ``{"ok": false, "error": "<what was wrong and how to fix it>"}``; the
@@ -38,6 +43,7 @@ from typing import Any
 import numpy as np
 
 from lineproof.simulators.analyzer_sim import SimulatedAnalyzer
+from lineproof.simulators.faults import FaultPlan, FaultSpecError
 from lineproof.simulators.local_server import LocalServer
 from lineproof.simulators.objects import BenchObject
 from lineproof.simulators.scenario import Scenario
@@ -72,15 +78,21 @@ _OP_FIELDS: dict[str, frozenset[str]] = {
     "truth_s": frozenset({"port", "object"}) | _GRID_FIELDS,
     "error_terms": frozenset({"port", "direction"}) | _GRID_FIELDS,
     "set": frozenset({"noise"}),
+    # fault: the fields of the fault kind (see faults.py), checked there
+    "fault": frozenset({"kind", "count", "after", "match", "seconds", "bytes", "code", "text"}),
+    "faults": frozenset(),
+    "clear_faults": frozenset(),
 }
 
 
 class BenchController:
     """Executes control requests against a bench's analyzers and objects."""
 
-    def __init__(self, scenario: Scenario, analyzers: dict[str, SimulatedAnalyzer] | SimulatedAnalyzer) -> None:
+    def __init__(self, scenario: Scenario, analyzers: dict[str, SimulatedAnalyzer] | SimulatedAnalyzer,
+                 faults: dict[str, FaultPlan] | None = None) -> None:
         self.scenario = scenario
         self.analyzers = analyzers if isinstance(analyzers, dict) else {"analyzer": analyzers}
+        self.faults = faults or {}
         self._ops: dict[str, Callable[[dict[str, Any]], dict[str, Any]]] = {
             name: getattr(self, f"_op_{name}") for name in _OP_FIELDS
         }
@@ -225,6 +237,32 @@ class BenchController:
             if not isinstance(request["noise"], bool):
                 raise ControlRequestError("noise must be true or false")
             self._instrument(request).noise_enabled = request["noise"]
+        return {}
+
+    def _fault_plan(self, request: dict[str, Any]) -> FaultPlan:
+        name = request.get("instrument", "analyzer")
+        if name not in self.faults:
+            raise ControlRequestError(f"instrument: no instrument named {name!r} on this bench; "
+                                      f"use one of {', '.join(self.faults) or 'none'}")
+        return self.faults[name]
+
+    def _op_fault(self, request: dict[str, Any]) -> dict[str, Any]:
+        plan = self._fault_plan(request)
+        try:
+            fault = plan.arm(request)
+        except FaultSpecError as exc:
+            raise ControlRequestError(str(exc)) from exc
+        return {"armed": fault.describe()}
+
+    def _op_faults(self, request: dict[str, Any]) -> dict[str, Any]:
+        if "instrument" in request:
+            return {"faults": {request["instrument"]: self._fault_plan(request).describe()}}
+        return {"faults": {name: plan.describe() for name, plan in self.faults.items()}}
+
+    def _op_clear_faults(self, request: dict[str, Any]) -> dict[str, Any]:
+        plans = [self._fault_plan(request)] if "instrument" in request else list(self.faults.values())
+        for plan in plans:
+            plan.clear()
         return {}
 
     def _op_status(self, request: dict[str, Any]) -> dict[str, Any]:

@@ -31,6 +31,8 @@ class Scenario:
     analyzer: AnalyzerSimulationSettings
     objects: dict[str, obj.BenchObject] = field(default_factory=dict)
     devices: list[tuple[str, str]] = field(default_factory=list)  # (serial, model) in order
+    #: Faults armed when the bench starts ([[faults]] tables; see faults.py).
+    faults: list[dict[str, Any]] = field(default_factory=list)
 
 
 def _require(table: dict[str, Any], key: str, kinds: type | tuple[type, ...], source: str, where: str) -> Any:
@@ -188,6 +190,13 @@ def _population(table: dict[str, Any], rng: np.random.Generator, source: str, in
     return made
 
 
+def _faults(tables: Any, source: str) -> list[dict[str, Any]]:
+    if not isinstance(tables, list) or not all(isinstance(t, dict) for t in tables):
+        raise InputError("faults must be an array of tables", path=source, key="faults",
+                         fix='write [[faults]] tables, e.g. kind = "drop"')
+    return [dict(t) for t in tables]
+
+
 def load_scenario(path_or_name: str | Path) -> Scenario:
     """Load a scenario file by path, or a shipped one by name (``demo-bench``)."""
     path = Path(path_or_name)
@@ -216,6 +225,7 @@ def load_scenario(path_or_name: str | Path) -> Scenario:
                                                  int(standards.get("seed", seed + 7))))
     for name, table in data.get("objects", {}).items():
         scenario.objects[name] = _object(name, table, path, source)
+    scenario.faults = _faults(data.get("faults", []), source)
     rng = np.random.default_rng(seed + 13)
     for index, table in enumerate(data.get("populations", [])):
         for serial, model, device in _population(table, rng, source, index):
