@@ -198,13 +198,18 @@ def add_specified_residuals(residuals: Mapping[str, np.ndarray], prefix: str, di
 
 
 def residuals_from_check_standard(known: np.ndarray, measured: np.ndarray, expected_u: np.ndarray,
-                                  coverage_factor: float = 2.0) -> np.ndarray:
-    """The part of a check standard's observed deviation |Γm - Γknown| that the model does
-    not explain (beyond k·u of its own prediction), spread over D, T, M as a bound
-    D = T = M = excess / (1 + |Γ| + |Γ|²); returns that common bound per point."""
-    g = np.abs(known)
-    excess = np.maximum(0.0, np.abs(measured - known) - coverage_factor * expected_u)
-    return excess / (1 + g + g * g)
+                                  coverage: float = 2.0) -> np.ndarray:
+    """The residual bound a check standard calls for: where its observed deviation
+    |Γm - Γknown| exceeds k times the model's standard uncertainty u there, the missing
+    standard uncertainty u_x = sqrt((|ΔΓ|/k)² - u²) is put on D, T and M alike (bounds of
+    unknown phase, |ΔΓ| <= D + T|Γ| + M|Γ|² style): D = T = M = √2 u_x / sqrt(1 + |Γ|² + |Γ|⁴),
+    so that the widened interval reaches the observed deviation at the check standard (|Γ|
+    taken as the smaller of its known and read values, where the widening is least).
+    Returns that common bound per point (zero where the model already explains the check)."""
+    g = np.minimum(np.abs(known), np.abs(measured))
+    needed = (np.abs(measured - known) / coverage) ** 2
+    missing = np.sqrt(np.maximum(needed - np.asarray(expected_u) ** 2, 0.0))
+    return math.sqrt(2) * missing / np.sqrt(1 + g**2 + g**4)
 
 
 _PAIRS = ((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))

@@ -166,3 +166,22 @@ def test_guard_banded_verdicts_agree_with_the_truth_on_the_demo_bench(demo_bench
                     assert worst > band.max_reflection
                 assert judged.worst_upper_reflection >= worst
     assert Verdict.FAIL in seen and Verdict.PASS in seen
+
+
+def test_an_adapter_between_plane_and_device_is_removed(start_bench: Callable[..., SimulatedBench]) -> None:
+    # The bench's "line-thru" (85 ps, 1.5 GΩ/s offset loss: 8.686 · loss · τ / (2 Z0) =
+    # 0.0111 dB at 1 GHz) sits between the reference plane and the poor termination.
+    from lineproof import deembed
+
+    band = BandLimit("all", 50e6, 900e6, 2.0)
+    with station(start_bench("two-port-bench"), "generic-scpi-analyzer") as (bench_station, control):
+        cal = steps.calibrate(bench_station, KIT, "one-port")
+        adapter = deembed.adapter_from_line(PLAN.frequencies(), 85e-12, 50.0,
+                                            loss_db_at_1ghz=8.686 * 1.5e9 * 85e-12 / 100, name="line-thru")
+        result, _, gamma = steps.measure_device(bench_station, cal, DeviceIdentity("line-thru", "barrel"),
+                                                "poor-termination", [band], "simple", adapter=adapter)
+        truth = control.truth_s(object="poor-termination")["s11"]
+        seen = control.truth(1)
+    assert np.max(np.abs(seen - truth)) > 1e-2  # the adapter matters ...
+    np.testing.assert_allclose(gamma, truth, atol=1e-4)  # ... and is gone
+    assert result.extra["reference_plane.adapter_removed"] == "line-thru"
