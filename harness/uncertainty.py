@@ -27,7 +27,9 @@ Supplement 2, JCGM 102:2011, for the two-dimensional output, projected).  Inputs
 phase and known magnitude a are U-shaped in projection, u = a/√2 (I. A. Harris and F. L.
 Warner, "Re-examination of mismatch uncertainty when measuring microwave power and
 attenuation", IEE Proc. H 128(1), 1981); worst-case limits of a real quantity are
-rectangular, u = a/√3 (GUM 4.3.7).  The expanded uncertainty is U = k u with k = 2.
+rectangular, u = a/√3 (GUM 4.3.7).  The expanded uncertainty is U = k u with k = 2, except
+where one contribution of unknown phase and bounded magnitude dominates: its short-tailed
+distribution sets k (GUM G.6.5-G.6.6; EA-4/02 M:2013 §5), see :func:`coverage_factor`.
 """
 
 from __future__ import annotations
@@ -39,6 +41,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from lineproof.calkit import CalKit, StandardDefinition, ideal_reflection, varied
+from lineproof.metrics import vswr_from_reflection
 
 LOAD_INPUT = "load reflection"
 #: Step for the numerical sensitivity of a standard's model to one of its values.
@@ -130,7 +133,8 @@ def standard_inputs(kit: CalKit, kind: str, frequencies_hz: np.ndarray, settings
             inputs.append(InputQuantity("short inductance", step, statement.short_inductance_uncertainty_h**2, True))
     if settings.connection_repeatability:
         # A connector interface as a small impedance step: S11 = c, S22 = -c, S21 S12 = 1 - c²
-        # (Pozar, Microwave Engineering, §4.3), which moves a reflection Γ by c (1 - Γ²).
+        # (the scattering matrix of a step between two lines; D. M. Pozar, Microwave
+        # Engineering, from memory), which moves a reflection Γ by c (1 - Γ²) to first order.
         inputs.append(InputQuantity(f"{kind} connection", 1 - model**2, settings.repeatability(f) ** 2, False))
     if settings.trace_noise:
         inputs.append(InputQuantity(f"{kind} noise", np.ones(f.shape, complex), 2 * settings.trace_noise**2, False))
@@ -167,7 +171,7 @@ def residual_model(kit: CalKit, kinds: tuple[str, ...], frequencies_hz: np.ndarr
                 load += term
             if quantity.real:
                 pseudo += outer * c[:, :, None] * c[:, None, :]
-    # Column-major: each (j, k) entry contiguous over frequency, for _hermitian_form's speed.
+    # Column-major: each (j, k) entry contiguous over frequency, for the speed of _form.
     return {f"{prefix}.variance": np.asfortranarray(variance), f"{prefix}.pseudo_variance": np.asfortranarray(pseudo),
             f"{prefix}.load_variance": np.asfortranarray(load),
             f"{prefix}.load_spread": np.full(f.shape, load_spread(kit), complex)}
@@ -307,8 +311,6 @@ class ReflectionUncertainty:
         return np.minimum(self.magnitude + self.expanded, 1.0)
 
     def vswr_interval(self) -> tuple[np.ndarray, np.ndarray]:
-        from lineproof.metrics import vswr_from_reflection
-
         return vswr_from_reflection(self.lower), vswr_from_reflection(self.upper)
 
 
