@@ -1,5 +1,5 @@
 """A simulated bench: a scenario's analyzers, each served over SCPI/TCP or over a serial
-line on a pseudo-terminal, plus the bench control channel."""
+line on a pseudo-terminal, its switch matrix over SCPI/TCP, and the bench control channel."""
 
 from __future__ import annotations
 
@@ -13,6 +13,7 @@ from lineproof.simulators.pty_server import PtySerialServer
 from lineproof.simulators.scenario import Scenario, load_scenario
 from lineproof.simulators.scpi_analyzer import AnalyzerScpiFront, ScpiTcpServer
 from lineproof.simulators.serial_analyzer import SerialAnalyzerFront
+from lineproof.simulators.switch_sim import SimulatedSwitch, SwitchScpiFront
 
 
 class SimulatedBench:
@@ -24,7 +25,9 @@ class SimulatedBench:
         self.scenario = scenario if isinstance(scenario, Scenario) else load_scenario(scenario)
         self.analyzers = {spec.name: SimulatedAnalyzer(spec.settings) for spec in self.scenario.analyzers}
         self.faults = {name: FaultPlan(name) for name in self.analyzers}
-        self._arm_scenario_faults()
+        if self.scenario.switch is not None:
+            self.faults["switch"] = FaultPlan("switch")
+        self._arm_scenario_faults()  # before any server exists: a bad fault leaves nothing open
         self.scpi_servers: dict[str, ScpiTcpServer] = {}
         self.serial_servers: dict[str, PtySerialServer] = {}
         for spec in self.scenario.analyzers:
@@ -36,7 +39,14 @@ class SimulatedBench:
                 port = scpi_port if not self.scpi_servers else 0
                 self.scpi_servers[spec.name] = ScpiTcpServer(AnalyzerScpiFront(model, faults), port,
                                                              name=f"{spec.name}-scpi")
-        self.control_server = ControlServer(BenchController(self.scenario, self.analyzers, self.faults), control_port)
+        self.switch: SimulatedSwitch | None = None
+        self.switch_server: ScpiTcpServer | None = None
+        if self.scenario.switch is not None:
+            self.switch = SimulatedSwitch(self.scenario.switch, self.scenario.switch_wiring, self.analyzers,
+                                          self.scenario.objects)
+            self.switch_server = ScpiTcpServer(SwitchScpiFront(self.switch, self.faults["switch"]), name="switch-scpi")
+        self.control_server = ControlServer(
+            BenchController(self.scenario, self.analyzers, self.faults, self.switch), control_port)
         self._started = False
 
     def _arm_scenario_faults(self) -> None:
@@ -81,11 +91,22 @@ class SimulatedBench:
         return next(iter(self.serial_servers.values())).device_path
 
     @property
+    def switch_resource(self) -> str:
+        """The VISA resource of the switch matrix."""
+        if self.switch_server is None:
+            raise LookupError(f"{self.scenario.name} has no switch matrix")
+        return self.switch_server.visa_resource
+
+    @property
     def control_address(self) -> str:
         return self.control_server.address
 
+    def _servers(self) -> list[ScpiTcpServer | PtySerialServer]:
+        switch = [self.switch_server] if self.switch_server is not None else []
+        return [*self.scpi_servers.values(), *self.serial_servers.values(), *switch]
+
     def start(self) -> SimulatedBench:
-        for server in [*self.scpi_servers.values(), *self.serial_servers.values()]:
+        for server in self._servers():
             server.start()
         self.control_server.start()
         self._started = True
@@ -93,7 +114,7 @@ class SimulatedBench:
 
     def stop(self) -> None:
         if self._started:
-            for server in [*self.scpi_servers.values(), *self.serial_servers.values()]:
+            for server in self._servers():
                 server.stop()
             self.control_server.stop()
             self._started = False

@@ -26,6 +26,8 @@ JSON object back.  Every request has ``"op"``; requests about an analyzer may na
 - ``faults {instrument}`` -> ``{"faults": {name: {"armed", "spent", "fired"}}}``: what is armed
   and every firing so far, with the command that triggered it
 - ``clear_faults {instrument}``: disarm (and forget) the faults of one or every instrument
+- ``switch`` -> ``{"closed": ["1!3", ...], "channels": [{"channel", "analyzer", "port",
+  "object", "output", "reversed"}, ...]}``: the switch matrix's state and wiring
 - ``status`` -> sweeps done and summed busy time per analyzer
 
 Errors come back as ``{"ok": false, "error": "<what was wrong and how to fix it>"}``; the
@@ -47,6 +49,7 @@ from lineproof.simulators.faults import FaultPlan, FaultSpecError
 from lineproof.simulators.local_server import LocalServer
 from lineproof.simulators.objects import BenchObject
 from lineproof.simulators.scenario import Scenario
+from lineproof.simulators.switch_sim import SimulatedSwitch
 
 _LINE_LIMIT = 1 << 20
 _GRID_FIELDS = frozenset({"start_hz", "stop_hz", "points"})
@@ -82,6 +85,7 @@ _OP_FIELDS: dict[str, frozenset[str]] = {
     "fault": frozenset({"kind", "count", "after", "match", "seconds", "bytes", "code", "text"}),
     "faults": frozenset(),
     "clear_faults": frozenset(),
+    "switch": frozenset(),
 }
 
 
@@ -89,8 +93,9 @@ class BenchController:
     """Executes control requests against a bench's analyzers and objects."""
 
     def __init__(self, scenario: Scenario, analyzers: dict[str, SimulatedAnalyzer] | SimulatedAnalyzer,
-                 faults: dict[str, FaultPlan] | None = None) -> None:
+                 faults: dict[str, FaultPlan] | None = None, switch: SimulatedSwitch | None = None) -> None:
         self.scenario = scenario
+        self.switch = switch
         self.analyzers = analyzers if isinstance(analyzers, dict) else {"analyzer": analyzers}
         self.faults = faults or {}
         self._ops: dict[str, Callable[[dict[str, Any]], dict[str, Any]]] = {
@@ -264,6 +269,11 @@ class BenchController:
         for plan in plans:
             plan.clear()
         return {}
+
+    def _op_switch(self, request: dict[str, Any]) -> dict[str, Any]:
+        if self.switch is None:
+            raise ControlRequestError("this bench has no switch matrix")
+        return self.switch.describe()
 
     def _op_status(self, request: dict[str, Any]) -> dict[str, Any]:
         analyzer = self._instrument(request)

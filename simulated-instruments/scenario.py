@@ -12,7 +12,9 @@ The layout (every key optional unless said; see the shipped scenarios for worked
   :class:`PortErrorSettings`;
 - ``[standards]`` ``kit`` (required), ``deviation``, ``seed``;
 - ``[objects.<name>]`` and ``[[populations]]`` (see :mod:`.scenario_objects`);
-- ``[[faults]]`` (see :mod:`.faults`).
+- ``[switch]`` with the fields of :class:`SwitchSettings` and ``[[switch.channel]]`` tables
+  (``channel = "1!3"``, ``analyzer``, ``port``, ``object``, ``output``, ``reversed``);
+- ``[[faults]]`` (see :mod:`.faults`; ``instrument = "switch"`` for the switch).
 
 The simulator reads the kit file itself, with its own code, and perturbs the standards so
 that they differ from the kit's nominal definitions the way real standards do.
@@ -39,6 +41,13 @@ from lineproof.simulators.scenario_objects import (
     population,
     require,
     resolve,
+)
+from lineproof.simulators.scpi import ScpiCommandError
+from lineproof.simulators.switch_sim import (
+    SwitchChannelWiring,
+    SwitchSettings,
+    format_channel,
+    parse_channel_list,
 )
 
 TRANSPORTS = ("scpi", "serial")
@@ -68,6 +77,9 @@ class Scenario:
     devices: list[tuple[str, str]] = field(default_factory=list)  # (serial, model) in order
     #: Faults armed when the bench starts ([[faults]] tables; see faults.py).
     faults: list[dict[str, Any]] = field(default_factory=list)
+    #: The switch matrix and what its channels are wired to, if the bench has one.
+    switch: SwitchSettings | None = None
+    switch_wiring: list[SwitchChannelWiring] = field(default_factory=list)
 
     @property
     def analyzer(self) -> AnalyzerSimulationSettings:
@@ -143,6 +155,89 @@ def _faults(tables: Any, source: str) -> list[dict[str, Any]]:
     return [dict(t) for t in tables]
 
 
+def _switch(table: Any, scenario: Scenario, bench: dict[str, Any]) -> None:
+    source = scenario.source
+    if not isinstance(table, dict):
+        raise InputError("the switch is a table", path=source, key="switch", fix="write [switch] with its keys")
+    allowed = set(SwitchSettings.__dataclass_fields__)
+    unknown = set(table) - allowed - {"channel"}
+    if unknown:
+        raise InputError("unknown key", path=source, key=f"switch.{sorted(unknown)[0]}",
+                         fix=f"use only: {', '.join(sorted(allowed | {'channel'}))}")
+    values = {k: v for k, v in table.items() if k in allowed}
+    values.setdefault("time_scale", float(bench.get("time_scale", 0.0)))
+    values.setdefault("seed", scenario.seed + 31)
+    try:
+        scenario.switch = SwitchSettings(**values)
+    except TypeError as exc:
+        raise InputError(f"bad switch settings ({exc})", path=source, key="switch") from exc
+    seen: set[tuple[int, int]] = set()
+    for index, wiring in enumerate(optional(table, "channel", [], list, source, "switch")):
+        made = _channel_wiring(wiring, scenario, f"switch.channel[{index}]")
+        if made.channel in seen:
+            raise InputError(f"channel {format_channel(made.channel)} is wired twice", path=source,
+                             key=f"switch.channel[{index}].channel", fix="wire each channel once")
+        seen.add(made.channel)
+        scenario.switch_wiring.append(made)
+
+
+_CHANNEL_KEYS = {"channel", "analyzer", "port", "object", "output", "reversed"}
+
+
+def _channel_wiring(table: Any, scenario: Scenario, where: str) -> SwitchChannelWiring:
+    source = scenario.source
+    if not isinstance(table, dict) or set(table) - _CHANNEL_KEYS:
+        raise InputError("a channel is a table of: " + ", ".join(sorted(_CHANNEL_KEYS)), path=source, key=where,
+                         fix='e.g. { channel = "1!3", port = 1, object = "open" }')
+    text = require(table, "channel", str, source, where)
+    try:
+        channels = parse_channel_list(f"(@{text})")
+    except ScpiCommandError:
+        channels = []
+    settings = scenario.switch
+    if len(channels) != 1 or not (1 <= channels[0][0] <= settings.modules
+                                  and 1 <= channels[0][1] <= settings.channels_per_module):
+        raise InputError(f"not a channel of this switch: {text!r}", path=source, key=f"{where}.channel",
+                         fix=f'write "<module>!<channel>" within {settings.modules} modules of '
+                             f"{settings.channels_per_module} channels, e.g. \"1!3\"")
+    analyzers = {spec.name: spec.settings for spec in scenario.analyzers}
+    analyzer = optional(table, "analyzer", "analyzer", str, source, where)
+    if analyzer not in analyzers:
+        raise InputError(f"no analyzer named {analyzer!r}", path=source, key=f"{where}.analyzer",
+                         fix=f"use one of {', '.join(analyzers)}")
+    ports = analyzers[analyzer].ports
+    port = optional(table, "port", 1, int, source, where)
+    thing = require(table, "object", str, source, where)
+    output = optional(table, "output", None, str, source, where)
+    output_port = None
+    if output is not None and output.lower().startswith("port:"):
+        output_port, output = int(output[5:]) if output[5:].isdigit() else -1, None
+    for name, key in ((thing, "object"), (output, "output")):
+        if name is not None and name not in scenario.objects:
+            raise InputError(f"no object named {name!r}", path=source, key=f"{where}.{key}",
+                             fix="name an object of [objects], a standard of the kit or a device serial")
+    problem = _wiring_problem(scenario.objects[thing], output and scenario.objects[output], port, output_port, ports)
+    if problem:
+        raise InputError(problem, path=source, key=where, fix="see PROTOCOLS.md §4")
+    return SwitchChannelWiring(channels[0], analyzer, port, thing, output, output_port,
+                               optional(table, "reversed", False, bool, source, where))
+
+
+def _wiring_problem(thing: obj.BenchObject, output: obj.BenchObject | None, port: int, output_port: int | None,
+                    ports: int) -> str | None:
+    if not 1 <= port <= ports:
+        return f"port {port} does not exist on a {ports}-port analyzer"
+    if thing.ports == 1 and (output is not None or output_port is not None):
+        return f"{thing.name} is a one-port: it has no output"
+    if thing.ports == 2 and (output is None) == (output_port is None):
+        return f"{thing.name} is a two-port: wire its output to a one-port or to port:<n>"
+    if output is not None and output.ports != 1:
+        return f"{output.name} cannot terminate an output: it is not a one-port"
+    if output_port is not None and (not 1 <= output_port <= ports or output_port == port):
+        return f"output port:{output_port} is not another port of this analyzer"
+    return None
+
+
 def find_scenario(path_or_name: str | Path) -> Path:
     """A scenario file by path, or a shipped one by name (``demo-bench``)."""
     path = Path(path_or_name)
@@ -187,4 +282,6 @@ def load_scenario(path_or_name: str | Path) -> Scenario:
         for serial, model, device in population(table, rng, source, index):
             scenario.objects[serial] = device
             scenario.devices.append((serial, model))
+    if "switch" in data:
+        _switch(data["switch"], scenario, bench)
     return scenario
