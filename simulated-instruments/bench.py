@@ -23,7 +23,9 @@ class SimulatedBench:
 
     def __init__(self, scenario: Scenario | str | Path, scpi_port: int = 0, control_port: int = 0) -> None:
         self.scenario = scenario if isinstance(scenario, Scenario) else load_scenario(scenario)
-        self.analyzers = {spec.name: SimulatedAnalyzer(spec.settings) for spec in self.scenario.analyzers}
+        self.environment = self.scenario.environment.build()
+        self.analyzers = {spec.name: SimulatedAnalyzer(spec.settings, self.environment)
+                          for spec in self.scenario.analyzers}
         self.faults = {name: FaultPlan(name) for name in self.analyzers}
         if self.scenario.switch is not None:
             self.faults["switch"] = FaultPlan("switch")
@@ -46,7 +48,7 @@ class SimulatedBench:
                                           self.scenario.objects)
             self.switch_server = ScpiTcpServer(SwitchScpiFront(self.switch, self.faults["switch"]), name="switch-scpi")
         self.control_server = ControlServer(
-            BenchController(self.scenario, self.analyzers, self.faults, self.switch), control_port)
+            BenchController(self.scenario, self.analyzers, self.faults, self.switch, self.environment), control_port)
         self._started = False
 
     def _arm_scenario_faults(self) -> None:

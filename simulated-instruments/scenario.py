@@ -4,12 +4,14 @@ devices, and faults armed at start.
 
 The layout (every key optional unless said; see the shipped scenarios for worked examples):
 
-- ``[bench]`` ``name``, ``seed``, ``time_scale`` (0: sweeps finish at once, 1: real time);
+- ``[bench]`` ``name``, ``seed``, ``time_scale`` (0: sweeps finish at once, 1: real time),
+  ``temperature_c``, ``temperature_profile`` (``[[seconds, °C], ...]``) and ``clock_rate``
+  (bench seconds per real second; see :mod:`.drift`);
 - ``[analyzer]`` -- or ``[[analyzer]]`` tables for several, named ``analyzer``,
   ``analyzer2``, ... -- with the fields of :class:`AnalyzerSimulationSettings` (``model``:
   ``reflection`` | ``forward`` | ``full``), ``transport`` (``scpi`` over TCP, or ``serial``
-  on a pseudo-terminal) and ``baud_rate`` (serial), and ``[[analyzer.port]]`` tables of
-  :class:`PortErrorSettings`;
+  on a pseudo-terminal) and ``baud_rate`` (serial), ``[[analyzer.port]]`` tables of
+  :class:`PortErrorSettings` and an ``[analyzer.drift]`` table of :class:`DriftSettings`;
 - ``[standards]`` ``kit`` (required), ``deviation``, ``seed``;
 - ``[objects.<name>]`` and ``[[populations]]`` (see :mod:`.scenario_objects`);
 - ``[switch]`` with the fields of :class:`SwitchSettings` and ``[[switch.channel]]`` tables
@@ -33,12 +35,14 @@ import numpy as np
 from lineproof.errors import InputError
 from lineproof.simulators import objects as obj
 from lineproof.simulators.analyzer_sim import AnalyzerSimulationSettings
+from lineproof.simulators.drift import BenchEnvironment, DriftSettings, TemperatureProfile
 from lineproof.simulators.error_model import MODEL_DIRECTIONS, PortErrorSettings
 from lineproof.simulators.scenario_objects import (
     actual_standards,
     object_from_table,
     optional,
     population,
+    refuse_unknown,
     require,
     resolve,
 )
@@ -65,6 +69,19 @@ class AnalyzerSpec:
     baud_rate: int = 115200
 
 
+@dataclass(frozen=True)
+class EnvironmentSettings:
+    """The bench clock and temperature a scenario asks for (see drift.py)."""
+
+    temperature_c: float = 23.0
+    temperature_profile: tuple[tuple[float, float], ...] | None = None
+    clock_rate: float = 1.0
+
+    def build(self) -> BenchEnvironment:
+        profile = TemperatureProfile(self.temperature_profile) if self.temperature_profile else None
+        return BenchEnvironment(self.temperature_c, profile, self.clock_rate)
+
+
 @dataclass
 class Scenario:
     """A bench ready to build: settings and every object that may be connected."""
@@ -80,6 +97,7 @@ class Scenario:
     #: The switch matrix and what its channels are wired to, if the bench has one.
     switch: SwitchSettings | None = None
     switch_wiring: list[SwitchChannelWiring] = field(default_factory=list)
+    environment: EnvironmentSettings = EnvironmentSettings()
 
     @property
     def analyzer(self) -> AnalyzerSimulationSettings:
@@ -91,14 +109,11 @@ def _port_settings(table: Any, source: str, where: str) -> PortErrorSettings:
     if not isinstance(table, dict):
         raise InputError("a port is a table", path=source, key=where, fix="write [[analyzer.port]] tables")
     allowed = set(PortErrorSettings.__dataclass_fields__)
-    unknown = set(table) - allowed
-    if unknown:
-        raise InputError("unknown key", path=source, key=f"{where}.{sorted(unknown)[0]}",
-                         fix=f"use only: {', '.join(sorted(allowed))}")
+    refuse_unknown(table, allowed, source, where)
     return PortErrorSettings(**{k: optional(table, k, 0.0, float, source, where) for k in table})
 
 
-_SERVING_KEYS = {"port", "transport", "baud_rate"}
+_SERVING_KEYS = {"port", "transport", "baud_rate", "drift"}
 
 
 def _analyzer_spec(table: Any, name: str, bench: dict[str, Any], source: str) -> AnalyzerSpec:
@@ -106,13 +121,11 @@ def _analyzer_spec(table: Any, name: str, bench: dict[str, Any], source: str) ->
     if not isinstance(table, dict):
         raise InputError("an analyzer is a table", path=source, key=where, fix="write [analyzer] with its keys")
     allowed = set(AnalyzerSimulationSettings.__dataclass_fields__) - {"port_settings"}
-    unknown = set(table) - allowed - _SERVING_KEYS
-    if unknown:
-        raise InputError("unknown key", path=source, key=f"{where}.{sorted(unknown)[0]}",
-                         fix=f"use only: {', '.join(sorted(allowed | _SERVING_KEYS))}")
+    refuse_unknown(table, allowed | _SERVING_KEYS, source, where)
     ports = [_port_settings(p, source, f"{where}.port[{i}]")
              for i, p in enumerate(optional(table, "port", [{}], list, source, where))]
     values = {k: v for k, v in table.items() if k in allowed}
+    values["drift"] = _drift(optional(table, "drift", {}, dict, source, where), source, f"{where}.drift")
     model = optional(values, "model", "reflection" if int(values.get("ports", 1)) == 1 else "full", str, source, where)
     if model not in MODEL_DIRECTIONS:
         raise InputError(f"unknown analyzer model {model!r}", path=source, key=f"{where}.model",
@@ -132,11 +145,38 @@ def _analyzer_spec(table: Any, name: str, bench: dict[str, Any], source: str) ->
     if baud_rate not in BAUD_RATES:
         raise InputError(f"unusual baud rate {baud_rate}", path=source, key=f"{where}.baud_rate",
                          fix=f"use one of {', '.join(map(str, BAUD_RATES))}")
+    if values.get("internal_correction") and model == "forward":
+        raise InputError("a one-path analyzer cannot correct its own data", path=source,
+                         key=f"{where}.internal_correction", fix='use model = "full" or leave it out')
     try:
         settings = AnalyzerSimulationSettings(port_settings=tuple(ports), **values)
     except TypeError as exc:
         raise InputError(f"bad analyzer settings ({exc})", path=source, key=where) from exc
     return AnalyzerSpec(name, settings, transport, baud_rate)
+
+
+def _drift(table: dict[str, Any], source: str, where: str) -> DriftSettings:
+    allowed = set(DriftSettings.__dataclass_fields__)
+    refuse_unknown(table, allowed, source, where)
+    return DriftSettings(**{k: optional(table, k, 0.0, float, source, where) for k in table})
+
+
+def _environment(bench: dict[str, Any], source: str) -> EnvironmentSettings:
+    profile = optional(bench, "temperature_profile", None, list, source, "bench")
+    points = None
+    if profile is not None:
+        try:
+            points = tuple((float(t), float(c)) for t, c in profile)
+            TemperatureProfile(points)
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"bad temperature profile ({exc})", path=source, key="bench.temperature_profile",
+                             fix="write [[seconds, celsius], ...] with increasing seconds, e.g. [[0, 23], [3600, 26]]"
+                             ) from exc
+    clock_rate = optional(bench, "clock_rate", 1.0, float, source, "bench")
+    if clock_rate < 0:
+        raise InputError("the bench clock cannot run backwards", path=source, key="bench.clock_rate",
+                         fix="use 0 (moves only when advanced), 1 (real time) or more")
+    return EnvironmentSettings(optional(bench, "temperature_c", 23.0, float, source, "bench"), points, clock_rate)
 
 
 def _analyzers(data: dict[str, Any], bench: dict[str, Any], source: str) -> list[AnalyzerSpec]:
@@ -160,10 +200,7 @@ def _switch(table: Any, scenario: Scenario, bench: dict[str, Any]) -> None:
     if not isinstance(table, dict):
         raise InputError("the switch is a table", path=source, key="switch", fix="write [switch] with its keys")
     allowed = set(SwitchSettings.__dataclass_fields__)
-    unknown = set(table) - allowed - {"channel"}
-    if unknown:
-        raise InputError("unknown key", path=source, key=f"switch.{sorted(unknown)[0]}",
-                         fix=f"use only: {', '.join(sorted(allowed | {'channel'}))}")
+    refuse_unknown(table, allowed | {"channel"}, source, "switch")
     values = {k: v for k, v in table.items() if k in allowed}
     values.setdefault("time_scale", float(bench.get("time_scale", 0.0)))
     values.setdefault("seed", scenario.seed + 31)
@@ -268,7 +305,7 @@ def load_scenario(path_or_name: str | Path) -> Scenario:
     bench = optional(data, "bench", {}, dict, source, "")
     seed = optional(bench, "seed", 1, int, source, "bench")
     scenario = Scenario(name=str(bench.get("name", path.stem)), source=source, seed=seed,
-                        analyzers=_analyzers(data, bench, source))
+                        analyzers=_analyzers(data, bench, source), environment=_environment(bench, source))
     standards = optional(data, "standards", None, dict, source, "")
     if standards:
         kit_path = resolve(require(standards, "kit", str, source, "standards"), path)

@@ -38,6 +38,15 @@ def optional(table: dict[str, Any], key: str, default: Any, kinds: type | tuple[
     return _typed(table[key], kinds, source, _key(where, key)) if key in table else default
 
 
+def refuse_unknown(table: dict[str, Any], allowed: set[str], source: str, where: str,
+                   message: str = "unknown key") -> None:
+    """An InputError naming the first key of ``table`` not in ``allowed`` (a typo is never ignored)."""
+    unknown = set(table) - allowed
+    if unknown:
+        raise InputError(message, path=source, key=_key(where, sorted(unknown)[0]),
+                         fix=f"use only: {', '.join(sorted(allowed))}")
+
+
 def _key(where: str, key: str) -> str:
     return f"{where}.{key}" if where else key
 
@@ -54,16 +63,21 @@ def _typed(value: Any, kinds: type | tuple[type, ...], source: str, key: str) ->
 
 
 def resolve(path_text: str, scenario_path: Path | None) -> Path:
-    """A path relative to the scenario's folder, else to the shipped sequences folder."""
+    """A path relative to the scenario's folder, else to the working folder, else a shipped
+    file: in the simulators' scenarios folder (Touchstone objects) or in the sequences
+    folder (cal kits)."""
     candidate = Path(path_text)
     if scenario_path is not None and not candidate.is_absolute():
         local = scenario_path.parent / candidate
         if local.exists():
             return local
-    if candidate.exists():
+    if candidate.exists() or candidate.is_absolute():
         return candidate
-    shipped = resources.files("lineproof.sequences") / path_text
-    return Path(str(shipped))
+    for package, folder in (("lineproof.simulators", "scenarios"), ("lineproof.sequences", "")):
+        shipped = resources.files(package).joinpath(*(p for p in (folder, path_text) if p))
+        if shipped.is_file():
+            return Path(str(shipped))
+    return candidate
 
 
 # -- the calibration standards as they actually are ---------------------------------------------
@@ -122,10 +136,7 @@ def object_from_table(name: str, table: Any, scenario_path: Path, source: str) -
     description = optional(table, "description", "", str, source, where)
     form = ("touchstone" if "touchstone" in table else "thru" if kind == "thru"
             else "circuit" if "circuit" in table else "termination")
-    unknown = set(table) - _COMMON_KEYS - _OBJECT_KEYS[form]
-    if unknown:
-        raise InputError(f"unknown key for a {form} object", path=source, key=f"{where}.{sorted(unknown)[0]}",
-                         fix=f"use only: {', '.join(sorted(_COMMON_KEYS | _OBJECT_KEYS[form]))}")
+    refuse_unknown(table, _COMMON_KEYS | _OBJECT_KEYS[form], source, where, f"unknown key for a {form} object")
     if form == "touchstone":
         path = resolve(require(table, "touchstone", str, source, where), scenario_path)
         try:
