@@ -19,8 +19,10 @@ from typing import TextIO
 from lineproof import __version__, steps
 from lineproof.calkit import load_kit
 from lineproof.errors import LineproofError
+from lineproof.metrics import vswr_from_reflection
 from lineproof.store import ResultStore
 from lineproof.touchstone import check_serial, format_one_port, write_new_file
+from lineproof.uncertainty import UncertaintySettings
 from lineproof.values import (
     BandLimit,
     CalibrationRecord,
@@ -40,6 +42,13 @@ DEMO_BANDS = (
     BandLimit("70cm", 420e6, 450e6, max_vswr=1.20),
 )
 REFERENCE_PLANE = "analyzer port 1 connector (end of the test-port cable)"
+DEMO_RULE = "guard-banded"
+# What the invented workshop knows of its own bench: connector repeatability from a
+# repeatability study (RMS |Γ| a reconnection adds at 1 GHz); trace noise is estimated from
+# the data.  Invented for the demo.
+DEMO_UNCERTAINTY = UncertaintySettings(connection_repeatability=0.0003)
+UNCERTAINTY_METHOD = ("GUM (JCGM 100:2008) propagation of the kit's stated standard deviations, connector "
+                      "repeatability, trace noise and the termination's mismatch; EURAMET cg-12 v3.0 residual-error model")
 
 
 @dataclass
@@ -85,7 +94,10 @@ def _metadata(run_id: str, bench_name: str, station: steps.Station, profile: str
         ("termination.name", qualification.name),
         ("termination.worst_vswr", f"{qualification.worst_vswr:.4f}"),
         ("termination.limit_vswr", f"{qualification.limit_vswr:.3f}"),
+        ("termination.expanded_uncertainty", f"{qualification.expanded_uncertainty:.5f}"),
         ("termination.result", "qualified" if qualification.passed else "rejected"),
+        ("uncertainty.method", UNCERTAINTY_METHOD),
+        ("uncertainty.coverage", "expanded, k = 2 (95.45 %), k from the distribution where a bounded term dominates"),
     ]
     for band in result.bands:
         prefix = f"band.{band.limit.name}"
@@ -94,14 +106,21 @@ def _metadata(run_id: str, bench_name: str, station: steps.Station, profile: str
             (f"{prefix}.limit_vswr", f"{band.limit.max_vswr:.3f}"),
             (f"{prefix}.worst_vswr", f"{band.worst_vswr:.4f}"),
             (f"{prefix}.worst_frequency_hz", f"{band.worst_frequency_hz:.10g}"),
+            (f"{prefix}.expanded_uncertainty", f"{band.expanded_uncertainty:.5f}"),
+            (f"{prefix}.worst_upper_vswr", f"{_vswr(band.worst_upper_reflection):.4f}"),
             (f"{prefix}.verdict", band.verdict.value),
         ]
     items += [("decision_rule", result.bands[0].decision_rule), ("verdict", result.verdict.value)]
     return items
 
 
+def _vswr(reflection: float | None) -> float:
+    return float("nan") if reflection is None else float(vswr_from_reflection(reflection))
+
+
 def _print_table(results: list[DeviceResult], out: TextIO) -> None:
-    header = f"{'serial':<12} {'model':<26} {'band':<6} {'worst VSWR':>10} {'at MHz':>8} {'limit':>6}  verdict"
+    header = (f"{'serial':<12} {'model':<26} {'band':<6} {'worst VSWR':>10} {'at MHz':>8} {'with U':>7} "
+              f"{'limit':>6}  verdict")
     print(header, file=out)
     print("-" * len(header), file=out)
     for result in results:
@@ -110,12 +129,15 @@ def _print_table(results: list[DeviceResult], out: TextIO) -> None:
             model = result.device.model if index == 0 else ""
             print(
                 f"{serial:<12} {model:<26} {band.limit.name:<6} {band.worst_vswr:>10.3f} "
-                f"{band.worst_frequency_hz / 1e6:>8.1f} {band.limit.max_vswr:>6.2f}  {band.verdict.value}",
+                f"{band.worst_frequency_hz / 1e6:>8.1f} {_vswr(band.worst_upper_reflection):>7.3f} "
+                f"{band.limit.max_vswr:>6.2f}  {band.verdict.value}",
                 file=out,
             )
     counts = {v: sum(1 for r in results if r.verdict.value == v) for v in ("pass", "fail", "indeterminate")}
     print(f"\n{len(results)} devices: {counts['pass']} passed, {counts['fail']} failed, "
           f"{counts['indeterminate']} indeterminate", file=out)
+    print("'with U': worst VSWR plus the expanded uncertainty (k = 2); decision: "
+          f"{results[0].bands[0].decision_rule if results else ''}", file=out)
 
 
 def run_demo(out_dir: Path, termination: str = "good-termination", out: TextIO = sys.stdout) -> DemoOutcome:
@@ -139,7 +161,7 @@ def run_demo(out_dir: Path, termination: str = "good-termination", out: TextIO =
             print(f"identified: {identity.describe()}", file=out)
             analyzer.configure(DEMO_PLAN)
             print(f"sweep: {DEMO_PLAN.describe()}", file=out)
-            station = steps.Station(analyzer, operator, identity, DEMO_PLAN)
+            station = steps.Station(analyzer, operator, identity, DEMO_PLAN, uncertainty=DEMO_UNCERTAINTY)
             store.start_run({
                 "run_id": run_id, "started_utc": datetime.now(UTC).isoformat(timespec="seconds"),
                 "status": "running", "sequence_name": "built-in demo", "station": bench.scenario.name,
@@ -150,11 +172,12 @@ def run_demo(out_dir: Path, termination: str = "good-termination", out: TextIO =
             store.record_calibration(run_id, cal.calibration_id, cal.method, kit.name)
             print(f"calibrated: {cal.method}, kit {kit.name} -> {cal.calibration_id}", file=out)
             try:
-                qualification = steps.qualify_termination(station, cal, termination)
+                qualified = steps.measure_termination(station, cal, termination)
             except LineproofError:
                 store.finish_run(run_id, "halted: termination failed qualification",
                                  datetime.now(UTC).isoformat(timespec="seconds"))
                 raise
+            qualification = qualified.qualification
             store.record_termination(run_id, qualification)
             print(f"termination {qualification.describe()}", file=out)
             devices = [DeviceIdentity(check_serial(serial), model) for serial, model in bench.scenario.devices]
@@ -163,7 +186,7 @@ def run_demo(out_dir: Path, termination: str = "good-termination", out: TextIO =
             results, files = [], []
             for device in devices:
                 result, frequencies, corrected = steps.measure_device(
-                    station, cal, device, termination, DEMO_BANDS, "simple")
+                    station, cal, device, qualified, DEMO_BANDS, DEMO_RULE)
                 text = format_one_port(frequencies, corrected, kit.reference_impedance_ohm,
                                        _metadata(run_id, bench.scenario.name, station, DEMO_PROFILE, cal,
                                                  qualification, result, sequence_hash))

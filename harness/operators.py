@@ -18,10 +18,11 @@ class SimulatedOperator:
             raise LinkError(f"cannot reach the bench control channel ({exc})", resource=control_address) from exc
         self.log: list[str] = []
 
-    def connect(self, port: int, thing: str, output: str | None, instruction: str) -> None:
+    def connect(self, port: int, thing: str, output: str | None, instruction: str,
+                reversed: bool = False) -> None:
         self.log.append(instruction)
         try:
-            self._client.connect(port, thing, output)
+            self._client.connect(port, thing, output, reversed=reversed)
         except self._request_error as exc:
             raise LinkError(f"the simulated operator could not connect {thing} ({exc})") from exc
 
