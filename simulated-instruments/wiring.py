@@ -68,6 +68,8 @@ class PortWiring:
     def __init__(self, ports: int) -> None:
         self.ports = ports
         self._by_port: dict[int, Attachment] = {}
+        #: Counts changes, so that what is computed from the wiring can be cached.
+        self.generation = 0
 
     def attachment(self, port: int) -> Attachment | None:
         return self._by_port.get(port)
@@ -83,6 +85,7 @@ class PortWiring:
             self.detach(old.input_port)
         for port in attachment.ports():
             self._by_port[port] = attachment
+        self.generation += 1
         return removed
 
     def detach(self, port: int) -> Attachment | None:
@@ -90,6 +93,7 @@ class PortWiring:
         if old is not None:
             for p in old.ports():
                 self._by_port.pop(p, None)
+            self.generation += 1
         return old
 
     def oriented_object(self, attachment: Attachment, f: np.ndarray) -> np.ndarray:
