@@ -3,6 +3,7 @@ lineproof -- the demo, the unattended demo flow -- are built on them)."""
 
 from __future__ import annotations
 
+import os
 from contextlib import closing
 
 import numpy as np
@@ -25,6 +26,8 @@ def test_the_shipped_scenarios_are_there() -> None:
 
 @pytest.mark.parametrize("name", shipped_scenarios())
 def test_every_shipped_scenario_serves(name: str) -> None:
+    if os.name != "posix" and any(s.transport == "serial" for s in load_scenario(name).analyzers):
+        pytest.skip("pseudo-terminals are POSIX only")
     with SimulatedBench(name) as bench:
         manager = pyvisa.ResourceManager("@py")
         try:
