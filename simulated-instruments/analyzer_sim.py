@@ -282,6 +282,7 @@ class SimulatedAnalyzer:
         network = self._network_cache.get(key)
         if network is None:
             network = self.wiring.reflection(1, f) if self.settings.ports == 1 else self.wiring.between_planes(f)
+            network.setflags(write=False)
             if len(self._network_cache) >= _CACHE_LIMIT:
                 self._network_cache.clear()
             self._network_cache[key] = network

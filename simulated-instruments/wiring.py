@@ -2,9 +2,10 @@
 analyzer's reference planes.
 
 A one-port sits on one port.  A two-port sits on one port with its output on a one-port
-termination, or joins two ports (its output on the other port).  Each mating of a connector
-adds a small random reflection (connector repeatability); an object reached through a switch
-channel sits behind that channel's own fixed path.
+termination, or joins two ports (its output on the other port).  Each mating at an analyzer
+port adds a small random reflection (connector repeatability; the joint between a device's
+output and its termination is taken as perfect); an object reached through a switch channel
+sits behind that channel's own fixed path.
 """
 
 from __future__ import annotations
