@@ -17,7 +17,7 @@ from lineproof.drivers import ieee488
 from lineproof.drivers.instrument import ProfiledInstrument
 from lineproof.drivers.profiles import AnalyzerCapabilities, AnalyzerProfile, Operation
 from lineproof.drivers.session import MessageSession
-from lineproof.errors import InputError, ReplyError
+from lineproof.errors import InputError, LinkError, ReplyError
 from lineproof.values import MeasuredSweep, SweepPlan
 
 #: Relative tolerance of the frequency check: ASCII rows carry 9 significant digits
@@ -105,6 +105,9 @@ class ProfiledAnalyzer(ProfiledInstrument):
                 f"the analyzer cannot measure {', '.join(unknown)}", path=self.profile.source,
                 key="capabilities.parameters", fix=f"ask only for {', '.join(self.capabilities.parameters)}",
             )
+        if corrected and not (self.capabilities.corrected_data and self.profile.operation("read_corrected")):
+            raise InputError("this analyzer gives no corrected data", path=self.profile.source,
+                             key="capabilities.corrected_data", fix="measure raw data and correct it in lineproof")
         read = "read_corrected" if corrected else "read_raw"
         pieces: dict[str, list[np.ndarray]] = {p: [] for p in parameters}
         for index, segment in enumerate(self._segments):
@@ -157,12 +160,19 @@ class ProfiledAnalyzer(ProfiledInstrument):
     def _sweep(self, plan: SweepPlan) -> None:
         trigger = self._op("trigger")
         timeout = self._sweep_timeout(plan)
-        if trigger.reply == "none":
-            self._call("trigger")
-            self._sync(timeout)
-        else:
-            # A line instrument answers its trigger when the sweep is done.
-            self._call("trigger", timeout_s=timeout)
+        try:
+            if trigger.reply == "none":
+                self._call("trigger")
+                self._sync(timeout)
+            else:
+                # A line instrument answers its trigger when the sweep is done.
+                self._call("trigger", timeout_s=timeout)
+        except LinkError as exc:
+            exc.add_context(
+                f"waiting for a sweep estimated at {self.sweep_time_estimate_s(plan):.3g} s (timeout {timeout:.3g} s; "
+                f"if the instrument is slower, raise [timing] in {self.profile.source})"
+            )
+            raise
 
     def _read_trace(self, operation: str, parameter: str, plan: SweepPlan) -> np.ndarray:
         name = self.capabilities.instrument_name(parameter)

@@ -202,11 +202,14 @@ class MessageSession:
                 raise
             self._raise_if_refused(command, failure)
             if attempt < attempts:
-                note = f"{failure.message}; repeated {command!r} on a fresh link (attempt {attempt + 1} of {attempts})"
+                note = f"{failure.problem}; repeated {command!r} on a fresh link (attempt {attempt + 1} of {attempts})"
                 self.recoveries.append(note)
                 log.warning("%s: %s", self.resource, note)
-        why = "not repeated: it is not idempotent" if attempts == 1 else f"gave up after {attempts} attempts"
-        raise LinkError(f"{failure.message} ({why})", resource=self.resource, command=command,
+        if not idempotent:
+            why = "not repeated: it is not idempotent"
+        else:
+            why = f"gave up after {attempts} attempt{'s' if attempts > 1 else ''}"
+        raise LinkError(f"{failure.problem} ({why})", resource=self.resource, command=command,
                         expected=expected) from failure
 
     def _resynchronise(self) -> None:
@@ -273,7 +276,7 @@ class MessageSession:
             return line
         except LinkError as exc:
             self._stale = True
-            raise LinkError(exc.message, resource=self.resource, command=self.last_command,
+            raise LinkError(exc.problem, resource=self.resource, command=self.last_command,
                             expected="a reply line") from exc
 
     def query(self, command: str, timeout_s: float | None = None, idempotent: bool = True) -> str:
