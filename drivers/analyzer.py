@@ -17,7 +17,7 @@ from lineproof.drivers import ieee488
 from lineproof.drivers.instrument import ProfiledInstrument
 from lineproof.drivers.profiles import AnalyzerCapabilities, AnalyzerProfile, Operation
 from lineproof.drivers.session import MessageSession
-from lineproof.errors import InputError, LinkError, ReplyError
+from lineproof.errors import InputError, InstrumentError, LinkError, ReplyError
 from lineproof.values import MeasuredSweep, SweepPlan
 
 #: Relative tolerance of the frequency check: ASCII rows carry 9 significant digits
@@ -79,6 +79,7 @@ class ProfiledAnalyzer(ProfiledInstrument):
                 fix="narrow the sweep or use an analyzer that covers it",
             )
         self._plan = None
+        self._powered_on()  # read (and clear) the Power On bit left by start-up or a reset
         self._segments = split_plan(plan, caps.max_points)
         self._configured_segment = None
         for name in ("single_sweep_mode", "set_data_format"):
@@ -109,6 +110,17 @@ class ProfiledAnalyzer(ProfiledInstrument):
             raise InputError("this analyzer gives no corrected data", path=self.profile.source,
                              key="capabilities.corrected_data", fix="measure raw data and correct it in lineproof")
         read = "read_corrected" if corrected else "read_raw"
+        try:
+            pieces = self._measure_segments(parameters, read)
+            self._check_errors()
+        except InstrumentError as exc:
+            self._raise_if_reset(exc)
+            raise
+        self._raise_if_reset(None)
+        traces = {p: np.concatenate(chunks) for p, chunks in pieces.items()}
+        return MeasuredSweep(self._plan.frequencies(), traces, corrected=corrected)
+
+    def _measure_segments(self, parameters: Sequence[str], read: str) -> dict[str, list[np.ndarray]]:
         pieces: dict[str, list[np.ndarray]] = {p: [] for p in parameters}
         for index, segment in enumerate(self._segments):
             if self._configured_segment != index:
@@ -118,9 +130,28 @@ class ProfiledAnalyzer(ProfiledInstrument):
                 pieces[parameter].append(self._read_trace(read, parameter, segment.plan))
             if "frequency" not in self._op(read).columns:
                 self._check_grid(segment.plan)
-        self._check_errors()
-        traces = {p: np.concatenate(chunks) for p, chunks in pieces.items()}
-        return MeasuredSweep(self._plan.frequencies(), traces, corrected=corrected)
+        return pieces
+
+    def _raise_if_reset(self, failure: InstrumentError | None) -> None:
+        """A reset or power glitch in the middle of a run loses every setting: the sweep it
+        spoilt is refused, and the next one needs configure() again (IEEE 488.2 §11.5.1.1.2
+        Power On bit of *ESR?, read at configure and after each measurement)."""
+        try:
+            reset = self._powered_on()
+        except InstrumentError:
+            if failure is None:
+                raise
+            return
+        if not reset:
+            return
+        self._plan = None
+        self._configured_segment = None
+        raise ReplyError(
+            "the instrument was reset or power-cycled during the measurement (Power On bit of its "
+            "event status) and has lost its settings; the sweep is discarded -- configure it again",
+            resource=self.resource, command=failure.command if failure else self._op("event_status").send,
+            expected="no reset between configure and measure",
+        ) from failure
 
     # -- timing -----------------------------------------------------------------------
 
@@ -192,7 +223,8 @@ class ProfiledAnalyzer(ProfiledInstrument):
         except ieee488.CodecError as exc:
             raise ReplyError(str(exc), resource=self.resource, command=command) from exc
         if trace.size != plan.points:
-            raise ReplyError(f"trace has {trace.size} points", resource=self.resource, command=command,
+            raise ReplyError(f"trace has {trace.size} points; was the instrument reset or reconfigured "
+                             "behind our back?", resource=self.resource, command=command,
                              expected=f"{plan.points} points")
         return trace
 

@@ -94,6 +94,8 @@ class MessageSession:
         #: Commands written since the error queue was last read (the suspects of an entry).
         self._since_check: list[str] = []
         self._stale = False
+        #: How long a resynchronisation waits for a late reply (the failed exchange's timeout).
+        self._resync_timeout_s = default_timeout_s
         #: A command was written and its response is not completely read yet.
         self._in_response = False
         self._terminators = (self.framing.read_termination,)
@@ -140,7 +142,7 @@ class MessageSession:
             text = raw.rstrip(b"\r").decode("ascii")
         except UnicodeDecodeError as exc:
             raise ReplyError(f"reply is not ASCII text: {raw[:40]!r}", resource=self.resource,
-                             command=self.last_command) from exc
+                             command=self.last_command, expected="a line of ASCII text") from exc
         _trace(self.resource, "->", text + (" <prompt>" if at_prompt else ""))
         return text, at_prompt
 
@@ -187,14 +189,15 @@ class MessageSession:
         """Run one write-and-read exchange; repeat it on a fresh link when it may be repeated."""
         attempts = 1 + (self.retries if idempotent else 0)
         for attempt in range(1, attempts + 1):
-            if self._stale:
-                self._resynchronise()
-            deadline = self._deadline(timeout_s)
             try:
+                if self._stale:
+                    self._resynchronise()
+                deadline = self._deadline(timeout_s)
                 self._write(command, deadline)
                 return exchange(deadline)
             except LinkError as exc:
                 self._stale = True
+                self._resync_timeout_s = self.default_timeout_s if timeout_s is None else timeout_s
                 failure = exc
             except ReplyError:
                 # Garbage in the middle of a response leaves the rest of it on the wire.
@@ -215,14 +218,16 @@ class MessageSession:
     def _resynchronise(self) -> None:
         """Start the next exchange on a clean stream.
 
-        Prompted framing first waits (bounded) for the prompt that ends whatever late reply is
-        still coming; message framing, and a prompted link that stays silent, reopen the
-        link, which drops every unread byte.
+        Prompted framing first waits for the prompt that ends whatever late reply is still
+        coming -- as long again as the failed exchange was allowed, because a line instrument
+        cannot be interrupted and would otherwise answer a stale command into the next
+        exchange.  Message framing, and a prompted link that stays silent, reopen the link,
+        which drops every unread byte.
         """
         self._stale = False
         if self.framing.prompted:
             try:
-                discarded = self._read_response_raw(self._deadline(None))
+                discarded = self._read_response_raw(self._deadline(self._resync_timeout_s))
                 _trace(self.resource, "-> discarded", repr(discarded))
                 return
             except LinkError:

@@ -120,10 +120,10 @@ class SocketShortcut:
             except BlockingIOError:
                 left = deadline - time.monotonic()
                 if left <= 0 or not select.select([sock], [], [], left)[0]:
-                    raise TimeoutError(f"got {got} of {count} bytes") from None
+                    raise TimeoutError(f"got {got}") from None
                 continue
             if received == 0:
-                raise ConnectionError(f"connection closed by the instrument after {got} of {count} bytes")
+                raise ConnectionError(f"connection closed by the instrument after {got} bytes")
             got += received
         view.release()
         return bytes(out)

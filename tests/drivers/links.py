@@ -72,6 +72,19 @@ class DriverBench:
         return analyzer
 
 
+    def arm(self, kind: str, **fields: Any) -> None:
+        """Arm a fault on the bench's analyzer (PROTOCOLS.md §3 ``fault``)."""
+        self.control.request("fault", instrument="analyzer", kind=kind, **fields)
+
+    def fired(self) -> list[str]:
+        """The commands the armed faults fired on."""
+        report = self.control.request("faults", instrument="analyzer")["faults"]["analyzer"]
+        return [command for fault in report["armed"] + report["spent"] for command in fault["fired"]]
+
+    def sweeps(self) -> int:
+        return self.control.request("status")["sweeps"]
+
+
 def start_bench(**analyzer_settings: Any) -> SimulatedBench:
     scenario = load_scenario(IDEAL)
     scenario.analyzer = dataclasses.replace(scenario.analyzer, **analyzer_settings)
