@@ -211,9 +211,11 @@ class ProfiledAnalyzer(ProfiledInstrument):
             self._call("select_parameter", parameter=name)
         op = self._op(operation)
         command = op.render(parameter=name)
-        values = self._read_values(operation, 2, plan.points, parameter=name)
+        values = self._read_values(operation, 2, plan.points, complex_pairs=True, parameter=name)
         try:
-            if op.reply == "rows":
+            if op.reply == "block":
+                trace = values
+            elif op.reply == "rows":
                 columns = list(op.columns)
                 if "frequency" in columns:
                     self._compare_grid(values[:, columns.index("frequency")], plan, command)
@@ -247,7 +249,10 @@ class ProfiledAnalyzer(ProfiledInstrument):
                 resource=self.resource, command=command, expected=plan.describe(),
             )
 
-    def _read_values(self, name: str, values_per_point: int, points: int, **values: object) -> np.ndarray:
+    def _read_values(self, name: str, values_per_point: int, points: int, complex_pairs: bool = False,
+                     **values: object) -> np.ndarray:
+        """Numbers as the operation's reply kind gives them: rows as a 2-D array, a number
+        list as a 1-D array, a block as reals (or, with ``complex_pairs``, as complex)."""
         operation = self._op(name)
         command = operation.render(**values)
         timeout = self._transfer_timeout(operation, values_per_point, points)
@@ -257,7 +262,10 @@ class ProfiledAnalyzer(ProfiledInstrument):
         if operation.reply == "numbers":
             return session.query_numbers(command, timeout, operation.idempotent)
         payload = session.query_block(command, timeout, operation.idempotent)
+        caps = self.capabilities
+        decode = ieee488.decode_complex_payload if complex_pairs else ieee488.decode_real_payload
         try:
-            return ieee488.decode_real_payload(payload, self.capabilities.data_format, self.capabilities.byte_order)
+            return decode(payload, caps.data_format, caps.byte_order)
         except ieee488.CodecError as exc:
-            raise ReplyError(str(exc), resource=self.resource, command=command) from exc
+            raise ReplyError(str(exc), resource=self.resource, command=command,
+                             expected=f"{caps.data_format} values") from exc

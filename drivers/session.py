@@ -289,8 +289,9 @@ class MessageSession:
         return self._transact(command, lambda deadline: self._one_line(deadline, "one reply line"),
                               timeout_s, idempotent, "one reply line")
 
-    def query_block(self, command: str, timeout_s: float | None = None, idempotent: bool = True) -> bytes:
-        """Write, then read an IEEE 488.2 arbitrary block; returns the payload.
+    def query_block(self, command: str, timeout_s: float | None = None,
+                    idempotent: bool = True) -> bytes | bytearray:
+        """Write, then read an IEEE 488.2 arbitrary block; returns the payload (bytes-like).
 
         The header is read in two short reads, then the payload and its terminator in one
         exact-length read with the termination character off.  A declared length above the
@@ -301,7 +302,7 @@ class MessageSession:
                              command=command)
         expected = "an IEEE 488.2 arbitrary block"
 
-        def exchange(deadline: float) -> bytes:
+        def exchange(deadline: float) -> bytes | bytearray:
             try:
                 return self._read_block(deadline)
             except ieee488.CodecError as exc:
@@ -312,7 +313,7 @@ class MessageSession:
             log.debug("%s -> block of %d bytes: %s...", self.resource, len(payload), payload[:_TRACE_BYTES].hex(" "))
         return payload
 
-    def _read_block(self, deadline: float) -> bytes:
+    def _read_block(self, deadline: float) -> bytes | bytearray:
         read = self.transport.read_exact_raw
         header_bytes = read(2, deadline)
         while (header := ieee488.parse_block_header(header_bytes, self.block_cap)) is None:

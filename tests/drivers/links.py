@@ -9,14 +9,21 @@ from typing import Any
 
 from lineproof.drivers import open_analyzer
 from lineproof.drivers.analyzer import ProfiledAnalyzer
+from lineproof.drivers.transports import VisaOptions
 from lineproof.simulators.bench import SimulatedBench
 from lineproof.simulators.control import BenchControlClient
 from lineproof.simulators.scenario import load_scenario
 
 IDEAL = Path(__file__).parent.parent / "scenarios" / "ideal-bench.toml"
 
-#: Transports the behaviour suite runs over, with the shipped profile each one speaks.
-LINKS = {"scpi-tcp": ("visa", "generic-scpi-reflectometer")}
+#: Transports the behaviour suite runs over: the transport, the shipped profile it speaks,
+#: and its options.  "scpi-tcp" moves the bytes of pyvisa-py's SOCKET session directly on
+#: its socket (the default); "scpi-tcp-pyvisa-io" keeps every byte going through
+#: pyvisa-py's own reads and writes, the path every other VISA resource takes.
+LINKS: dict[str, tuple[str, str, dict[str, Any]]] = {
+    "scpi-tcp": ("visa", "generic-scpi-reflectometer", {"visa": VisaOptions()}),
+    "scpi-tcp-pyvisa-io": ("visa", "generic-scpi-reflectometer", {"visa": VisaOptions(direct_socket_io=False)}),
+}
 
 
 def _toml_value(value: Any) -> str:
@@ -67,7 +74,7 @@ class DriverBench:
     def analyzer(self, **tables: dict[str, Any]) -> ProfiledAnalyzer:
         """Open the bench's analyzer with the link's profile, or a variant of it."""
         profile: str | Path = write_variant(self.folder, self.profile, tables) if tables else self.profile
-        analyzer = open_analyzer(self.resource, profile, self.transport)
+        analyzer = open_analyzer(self.resource, profile, self.transport, **LINKS[self.name][2])
         self.opened.append(analyzer)
         return analyzer
 
