@@ -225,6 +225,7 @@ class ProfiledAnalyzer(ProfiledInstrument):
         except ieee488.CodecError as exc:
             raise ReplyError(str(exc), resource=self.resource, command=command) from exc
         if trace.size != plan.points:
+            self._plan = None  # the instrument's settings are not ours: configure again
             raise ReplyError(f"trace has {trace.size} points; was the instrument reset or reconfigured "
                              "behind our back?", resource=self.resource, command=command,
                              expected=f"{plan.points} points")
@@ -242,10 +243,11 @@ class ProfiledAnalyzer(ProfiledInstrument):
     def _compare_grid(self, grid: np.ndarray, plan: SweepPlan, command: str) -> None:
         expected = plan.frequencies()
         if grid.shape != expected.shape or not np.allclose(grid, expected, rtol=_GRID_TOLERANCE, atol=1e-3):
+            self._plan = None  # the instrument's settings are not ours: configure again
             first = f"{grid[0]:.9g} Hz" if grid.size else "nothing"
             raise ReplyError(
                 f"instrument swept another grid ({grid.size} points from {first}); "
-                "was it reset or reconfigured behind our back?",
+                "was it reset or reconfigured behind our back? Configure it again",
                 resource=self.resource, command=command, expected=plan.describe(),
             )
 

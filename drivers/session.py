@@ -119,12 +119,23 @@ class MessageSession:
         _trace(self.resource, "<-", command)
         self.transport.write_raw(command.encode("ascii") + self.framing.write_termination, deadline)
         if self.framing.echo:
+            self._read_echo(command, deadline)
+
+    def _read_echo(self, command: str, deadline: float) -> None:
+        """Read back the echo of ``command``.  Prompts and empty lines in front of it are the
+        answers to earlier synchronising empty lines (or the prompt of a fresh open): skipped."""
+        while True:
             echo, _ = self._read_line(deadline, (self.framing.read_termination,))
-            try:
-                line_protocol.strip_echo(echo, command, self._prompt_text)
-            except ieee488.CodecError as exc:
-                raise ReplyError(str(exc), resource=self.resource, command=command,
-                                 expected="the echo of the command") from exc
+            prompt = self._prompt_text or ""
+            while prompt and echo.startswith(prompt):
+                echo = echo[len(prompt):]
+            if echo:
+                break
+        try:
+            line_protocol.strip_echo(echo, command, self._prompt_text)
+        except ieee488.CodecError as exc:
+            raise ReplyError(str(exc), resource=self.resource, command=command,
+                             expected="the echo of the command") from exc
 
     @property
     def _prompt_text(self) -> str | None:
@@ -218,21 +229,27 @@ class MessageSession:
     def _resynchronise(self) -> None:
         """Start the next exchange on a clean stream.
 
-        Prompted framing first waits for the prompt that ends whatever late reply is still
-        coming -- as long again as the failed exchange was allowed, because a line instrument
-        cannot be interrupted and would otherwise answer a stale command into the next
-        exchange.  Message framing, and a prompted link that stays silent, reopen the link,
-        which drops every unread byte.
+        Message framing reopens the link, which drops every unread byte.  Prompted framing
+        first waits for the prompt that ends whatever late reply is still coming -- as long
+        again as the failed exchange was allowed, because a line instrument cannot be
+        interrupted and would answer a stale command into the next exchange; if none comes,
+        it reopens the port and sends an empty line, which the instrument answers with a
+        line end and the prompt (PROTOCOLS.md §2).  A failure leaves the session stale.
         """
+        if not self.framing.prompted:
+            self.transport.reopen()
+            self._stale = False
+            return
+        try:
+            discarded = self._read_response_raw(self._deadline(self._resync_timeout_s))
+        except LinkError:
+            self.transport.reopen()
+            deadline = self._deadline(None)
+            self.transport.write_raw(self.framing.write_termination, deadline)
+            ready = self.framing.read_termination + (self.framing.prompt or b"")
+            discarded = [self.transport.read_line_raw((ready,), deadline, _LINE_LIMIT)]
+        _trace(self.resource, "-> discarded", repr(discarded))
         self._stale = False
-        if self.framing.prompted:
-            try:
-                discarded = self._read_response_raw(self._deadline(self._resync_timeout_s))
-                _trace(self.resource, "-> discarded", repr(discarded))
-                return
-            except LinkError:
-                pass
-        self.transport.reopen()
 
     def _read_response_raw(self, deadline: float) -> list[bytes]:
         chunks = []

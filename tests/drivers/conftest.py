@@ -16,12 +16,9 @@ def pytest_configure(config: pytest.Config) -> None:
     config.addinivalue_line("markers", "analyzer_settings(**settings): simulated analyzer settings for `link`")
 
 
-@pytest.fixture(params=sorted(LINKS))
-def link(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[DriverBench]:
-    """The ideal bench (noise off) reached over each transport in turn.  A test may ask for
-    other simulated analyzer settings with ``@pytest.mark.analyzer_settings(max_points=50)``."""
+def _link(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[DriverBench]:
     marker = request.node.get_closest_marker("analyzer_settings")
-    bench = start_bench(**(marker.kwargs if marker else {}))
+    bench = start_bench(LINKS[request.param].serving, **(marker.kwargs if marker else {}))
     control = BenchControlClient(bench.control_address)
     control.request("set", noise=False)
     driver_bench = DriverBench(request.param, bench, control, tmp_path)
@@ -32,3 +29,16 @@ def link(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[DriverBench
             analyzer.close()
         control.close()
         bench.stop()
+
+
+@pytest.fixture(params=sorted(LINKS))
+def link(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[DriverBench]:
+    """The ideal bench (noise off) reached over each transport in turn.  A test may ask for
+    other simulated analyzer settings with ``@pytest.mark.analyzer_settings(max_points=50)``."""
+    yield from _link(request, tmp_path)
+
+
+@pytest.fixture(params=sorted(name for name, kind in LINKS.items() if kind.transport == "visa"))
+def visa_link(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[DriverBench]:
+    """The same, over the VISA links only."""
+    yield from _link(request, tmp_path)

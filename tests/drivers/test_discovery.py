@@ -17,17 +17,17 @@ def _run(capsys: pytest.CaptureFixture[str], *arguments: str) -> dict:
     return json.loads(capsys.readouterr().out)
 
 
-def test_a_given_socket_resource_is_identified(link: DriverBench, capsys: pytest.CaptureFixture[str]) -> None:
+def test_a_given_resource_is_identified(link: DriverBench, capsys: pytest.CaptureFixture[str]) -> None:
     report = _run(capsys, "--identify", "--no-search", "--resource", link.resource, "--timeout", "2")
     (item,) = report["found"]
-    assert item["resource"] == link.resource and item["transport"] == "visa"
+    assert item["resource"] == link.resource and item["transport"] == link.kind.transport
     # IEEE 488.2 §10.14 fields of ideal-bench.toml's identity line
     assert item["identity"]["manufacturer"] == "Tarnmoor Instruments" and item["identity"]["serial"] == "SIM0099"
 
 
 def test_a_silent_or_absent_instrument_is_reported_not_waited_for(link: DriverBench,
                                                                    capsys: pytest.CaptureFixture[str]) -> None:
-    link.arm("stall", seconds=30, match="*IDN?")
+    link.arm("stall", seconds=3, match=link.analyzer().profile.operation("identify").send)
     with socket.socket() as probe:
         probe.bind(("127.0.0.1", 0))
         absent = f"TCPIP::127.0.0.1::{probe.getsockname()[1]}::SOCKET"

@@ -43,7 +43,8 @@ def test_a_missing_visa_library_says_what_to_do(tmp_path) -> None:
         VisaTransport("TCPIP::127.0.0.1::1::SOCKET", VisaOptions(library=str(tmp_path / "libvisa.so")))
 
 
-def test_pyvisa_py_socket_workarounds_are_applied(link: DriverBench) -> None:
+def test_pyvisa_py_socket_workarounds_are_applied(visa_link: DriverBench) -> None:
+    link = visa_link
     transport = link.analyzer().session.transport
     backend = visa_backend._socket_session(transport._handle)
     assert backend is not None, "the resource is a pyvisa-py SOCKET session"
@@ -65,10 +66,10 @@ def _wait_for_bytes(sock: socket.socket, count: int, timeout_s: float = 5.0) -> 
         select.select([sock], [], [], min(left, 0.01))
 
 
-def test_block_reads_take_bytes_pyvisa_py_already_holds_first(link: DriverBench) -> None:
+def test_block_reads_take_bytes_pyvisa_py_already_holds_first(visa_link: DriverBench) -> None:
     """Two responses back to back: the line read pulls the start of the block into
     pyvisa-py's pending buffer; the block read must take those bytes first."""
-    analyzer = link.analyzer()
+    analyzer = visa_link.analyzer()
     analyzer.configure(SweepPlan(1e8, 2e8, 101))
     expected = analyzer.measure(["S11"])["S11"]
     transport = analyzer.session.transport
