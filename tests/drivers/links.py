@@ -62,9 +62,9 @@ def _toml_value(value: Any) -> str:
     return repr(value)
 
 
-def write_variant(folder: Path, base: str, tables: dict[str, dict[str, Any]]) -> Path:
+def write_variant(folder: Path, base: str, tables: dict[str, dict[str, Any]], kind: str = "analyzer") -> Path:
     """A profile file based on the shipped ``base`` with ``tables`` overriding its keys."""
-    lines = ["[profile]", f'name = "{base}-variant"', 'kind = "analyzer"', f'based_on = "{base}"']
+    lines = ["[profile]", f'name = "{base}-variant"', f'kind = "{kind}"', f'based_on = "{base}"']
     for table, values in tables.items():
         lines.append(f"[{table}]")
         lines += [f"{key} = {_toml_value(value)}" for key, value in values.items()]
