@@ -16,20 +16,24 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import dataclasses
 import multiprocessing
 import socket
 import statistics
 import time
 from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pyvisa
+import serial
 
 from lineproof.drivers import ieee488, open_analyzer
 from lineproof.drivers.analyzer import ProfiledAnalyzer
 from lineproof.simulators.bench import SimulatedBench
 from lineproof.simulators.control import BenchControlClient
+from lineproof.simulators.scenario import load_scenario
 from lineproof.values import SweepPlan
 
 SCENARIO = Path(__file__).parent.parent / "scenarios" / "ideal-bench.toml"
@@ -62,20 +66,25 @@ def time_actions(actions: dict[str, Callable[[], object]], repeat: int, rounds: 
     return Timings(times)
 
 
-def _serve(scenario: Path, addresses: multiprocessing.connection.Connection, stop: multiprocessing.Event) -> None:
+def _serve(scenario_path: Path, serving: dict[str, Any], addresses: multiprocessing.connection.Connection,
+           stop: multiprocessing.Event) -> None:
+    scenario = load_scenario(scenario_path)
+    scenario.analyzers[0] = dataclasses.replace(scenario.analyzers[0], **serving)
     with SimulatedBench(scenario) as bench:
-        addresses.send((bench.visa_resource, bench.control_address))
+        resource = bench.serial_port if serving.get("transport") == "serial" else bench.visa_resource
+        addresses.send((resource, bench.control_address))
         stop.wait(600)
 
 
 @contextlib.contextmanager
-def bench_in_another_process(scenario: Path) -> Iterator[tuple[str, str]]:
+def bench_in_another_process(scenario: Path, **serving: Any) -> Iterator[tuple[str, str]]:
     """The simulated bench in a process of its own, as an instrument is: in this process its
-    server threads would share the interpreter lock with the client being measured."""
+    server threads would share the interpreter lock with the client being measured.
+    ``serving`` changes how its analyzer is served (``transport="serial", baud_rate=...``)."""
     context = multiprocessing.get_context("spawn")
     receiver, sender = context.Pipe(duplex=False)
     stop = context.Event()
-    process = context.Process(target=_serve, args=(scenario, sender, stop), daemon=True)
+    process = context.Process(target=_serve, args=(scenario, serving, sender, stop), daemon=True)
     process.start()
     try:
         if not receiver.poll(30):
@@ -193,11 +202,56 @@ def bench_tcp(repeat: int) -> None:
           f"harness-side overhead = {overhead:.2f} of the round trip (best: {best:.2f})")
 
 
+SERIAL_BAUD = 115200
+SERIAL_PLAN = SweepPlan(100e6, 500e6, 201)
+
+
+def _raw_serial_exchange(port: serial.Serial, command: bytes, prompt: bytes = b"S2> ") -> bytes:
+    """The floor on a serial line: write a command, read until the prompt, nothing else."""
+    port.write(command + b"\r")
+    received = bytearray()
+    while not received.endswith(prompt):
+        received += port.read(max(1, port.in_waiting))
+    return bytes(received)
+
+
+def bench_serial(repeat: int) -> None:
+    with bench_in_another_process(SCENARIO, transport="serial", baud_rate=SERIAL_BAUD) as (device, control_address), \
+            BenchControlClient(control_address) as control:
+        control.request("set", noise=False)
+        control.connect(1, "TM150-0001", "good-termination")
+        analyzer = open_analyzer(device, "tarnmoor-serial-analyzer", "serial")
+        try:
+            analyzer.configure(SERIAL_PLAN)
+            analyzer.measure(["S11"])
+            session = analyzer.session
+            command = analyzer.profile.operation("read_raw").render(parameter="s11")
+            rows = lambda: session.query_rows(command, 3)  # noqa: E731
+            timings = time_actions({"driver": rows}, repeat, rounds=1)
+            assert rows().shape == (SERIAL_PLAN.points, 3)
+        finally:
+            analyzer.close()
+        with serial.serial_for_url(device, baudrate=SERIAL_BAUD, timeout=5) as port:
+            _raw_serial_exchange(port, b"")  # in step: an empty line gets the prompt only
+            wire = _raw_serial_exchange(port, command.encode())
+            raw = time_actions({"raw": lambda: _raw_serial_exchange(port, command.encode())}, repeat, rounds=1)
+    # Every byte the host receives (echo, rows, end line, prompt) crosses the line at 10 bits;
+    # the command's own bytes cross the other way while their echo comes back.
+    wire_time = len(wire) * 10 / SERIAL_BAUD
+    print(f"4. serial line at {SERIAL_BAUD} baud (simulated instrument paced at 10 bits per byte, own process): "
+          f"'{command}' for {SERIAL_PLAN.points} points, {len(wire)} bytes back, wire time {wire_time * 1e3:.1f} ms")
+    print(f"   driver (echo, rows, count check, prompt) {timings['driver'] * 1e3:.1f} ms; "
+          f"transfer time / wire time = {timings['driver'] / wire_time:.3f}   (goal <= 1.05)")
+    print(f"   plain pyserial read to the prompt         {raw['raw'] * 1e3:.1f} ms; "
+          f"transfer time / wire time = {raw['raw'] / wire_time:.3f}")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--repeat", type=int, default=20, help="calls per action and round")
     arguments = parser.parse_args()
     bench_tcp(arguments.repeat)
+    bench_serial(max(3, arguments.repeat // 4))
 
 
 if __name__ == "__main__":
