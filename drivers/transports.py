@@ -12,6 +12,7 @@ command that installs it.
 
 from __future__ import annotations
 
+import math
 import time
 from dataclasses import dataclass
 from typing import Any, Protocol
@@ -298,8 +299,11 @@ class SerialTransport:
         if self._port is None:
             raise LinkError("link is closed", resource=self.resource)
         # Block for the first byte (at most 0.2 s, so the deadline is checked often), then
-        # take whatever else is waiting in one call.
-        self._port.timeout = min(0.2, _remaining(deadline, self.resource, what))
+        # take whatever else is waiting in one call.  pyserial reconfigures the port on every
+        # timeout assignment, so an unchanged value is not assigned again.
+        timeout = min(0.2, _remaining(deadline, self.resource, what))
+        if timeout != self._port.timeout:
+            self._port.timeout = timeout
         try:
             chunk = self._port.read(max(1, min(self._port.in_waiting, _CHUNK)))
         except (self._serial_error, OSError) as exc:
@@ -309,8 +313,11 @@ class SerialTransport:
     def write_raw(self, data: bytes, deadline: float) -> None:
         if self._port is None:
             raise LinkError("link is closed", resource=self.resource)
+        # Whole tenths of a second: pyserial reconfigures the port on every assignment.
+        write_timeout = math.ceil(_remaining(deadline, self.resource, "before writing") * 10) / 10
         try:
-            self._port.write_timeout = _remaining(deadline, self.resource, "before writing")
+            if write_timeout != self._port.write_timeout:
+                self._port.write_timeout = write_timeout
             self._port.write(data)
             self._port.flush()
         except (self._serial_error, OSError) as exc:

@@ -3,6 +3,7 @@ drivers, parametrised over transports (see links.py)."""
 
 from __future__ import annotations
 
+import sys
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -31,7 +32,13 @@ def _link(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[DriverBenc
         bench.stop()
 
 
-@pytest.fixture(params=sorted(LINKS))
+def _params(names: list[str]) -> list[object]:
+    # The simulated serial analyzer lives on a POSIX pseudo-terminal.
+    posix_only = pytest.mark.skipif(sys.platform == "win32", reason="no pseudo-terminals on Windows")
+    return [pytest.param(n, marks=posix_only) if LINKS[n].transport == "serial" else n for n in names]
+
+
+@pytest.fixture(params=_params(sorted(LINKS)))
 def link(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[DriverBench]:
     """The ideal bench (noise off) reached over each transport in turn.  A test may ask for
     other simulated analyzer settings with ``@pytest.mark.analyzer_settings(max_points=50)``."""
