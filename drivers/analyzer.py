@@ -21,9 +21,11 @@ from lineproof.errors import InputError, InstrumentError, LinkError, ReplyError
 from lineproof.values import MeasuredSweep, SweepPlan
 
 #: Relative tolerance of the frequency check: ASCII rows carry 9 significant digits
-#: (PROTOCOLS.md §2), i.e. up to 5e-9 relative rounding; any real grid mismatch (another
-#: start, stop or point count) moves points by far more.
-_GRID_TOLERANCE = 1e-8
+#: (PROTOCOLS.md §2), i.e. up to 5e-9 relative rounding, and REAL,32 (IEEE 754 single) a
+#: 24-bit significand, 6e-8; any real grid mismatch (another start, stop or point count)
+#: moves points by far more (a step of a 10,001-point sweep is 1e-4 of its span).
+_GRID_TOLERANCE = {"REAL,32": 1.2e-7}
+_GRID_TOLERANCE_DEFAULT = 1e-8
 #: Bytes per value on the wire, for transfer timeouts: REAL sizes, and a generous width for
 #: a decimal number with its separator.
 _TEXT_NUMBER_BYTES = 24
@@ -242,7 +244,8 @@ class ProfiledAnalyzer(ProfiledInstrument):
 
     def _compare_grid(self, grid: np.ndarray, plan: SweepPlan, command: str) -> None:
         expected = plan.frequencies()
-        if grid.shape != expected.shape or not np.allclose(grid, expected, rtol=_GRID_TOLERANCE, atol=1e-3):
+        tolerance = _GRID_TOLERANCE.get(self.capabilities.data_format, _GRID_TOLERANCE_DEFAULT)
+        if grid.shape != expected.shape or not np.allclose(grid, expected, rtol=tolerance, atol=1e-3):
             self._plan = None  # the instrument's settings are not ours: configure again
             first = f"{grid[0]:.9g} Hz" if grid.size else "nothing"
             raise ReplyError(

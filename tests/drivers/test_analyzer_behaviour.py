@@ -104,3 +104,30 @@ def test_the_sweep_timeout_scales_with_the_sweep_not_the_command_timeout(link: D
     analyzer.configure(SweepPlan(100e6, 200e6, 201, if_bandwidth_hz=1000.0))
     assert analyzer.measure(["S11"])["S11"].size == 201
     assert analyzer.recoveries == []
+
+
+@pytest.mark.parametrize(
+    ("data_format", "byte_order", "scpi", "reply", "rtol"),
+    [
+        # SCPI-1999 Vol 2 FORMat:DATA and FORMat:BORDer; REAL,32 keeps a 24-bit significand
+        # (IEEE 754 single: relative rounding 6e-8), ASCii the simulator's 12 digits.
+        ("REAL,64", "big", "FORMat:DATA REAL,64;:FORMat:BORDer NORMal", "block", 0),
+        ("REAL,32", "big", "FORMat:DATA REAL,32;:FORMat:BORDer NORMal", "block", 1.2e-7),
+        ("REAL,32", "little", "FORMat:DATA REAL,32;:FORMat:BORDer SWAPped", "block", 1.2e-7),
+        ("ASCII", "big", "FORMat:DATA ASCii", "numbers", 1e-11),
+    ],
+)
+def test_every_scpi_data_format_gives_the_same_trace(visa_link: DriverBench, data_format: str, byte_order: str,
+                                                     scpi: str, reply: str, rtol: float) -> None:
+    link = visa_link
+    link.control.connect(1, "TM150-0003", "good-termination")
+    plan = SweepPlan(1e6, 3e9, 1601)
+    variant = link.analyzer(
+        capabilities={"data_format": data_format, "byte_order": byte_order},
+        operations={"set_data_format": scpi, "read_raw": {"send": "TRACe:DATA? RAW", "reply": reply},
+                    "read_corrected": {"send": "TRACe:DATA? CORRected", "reply": reply},
+                    "read_frequencies": {"send": "SENSe:FREQuency:DATA?", "reply": reply}},
+    )
+    variant.configure(plan)
+    expected = _model_of_truth(link, plan)
+    np.testing.assert_allclose(variant.measure(["S11"])["S11"], expected, rtol=rtol, atol=1e-15)
