@@ -311,7 +311,7 @@ class MessageSession:
 
     def _raise_if_refused(self, command: str, failure: LinkError) -> None:
         """An instrument does not answer a query it refused (IEEE 488.2 §6.5.7 query error
-        handling): after an unanswered query, its error queue says why."""
+        handling, from memory): after an unanswered query, its error queue says why."""
         if self.error_query is None or command == self.error_query:
             return
         try:

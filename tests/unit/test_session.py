@@ -3,7 +3,8 @@ error-queue draining that names the command, retries only of idempotent queries,
 line framing (echo, prompt, error lines, number rows), size-limited tracing.
 
 Framing rules checked here are IEEE 488.2 §8.7.9/§8.7.10 (blocks), §8.5 (response message
-terminator after a block), SCPI-1999 Vol 2 §21.8 (error queue), and PROTOCOLS.md §2.
+terminator after a block), SCPI-1999 Vol 2 §21.8 (error queue), and PROTOCOLS.md §2.  The
+clause numbers of IEEE 488.2 and SCPI-1999 in this module are cited from memory.
 """
 
 from __future__ import annotations
