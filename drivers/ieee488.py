@@ -1,7 +1,8 @@
 """Pure codecs for IEEE 488.2 / SCPI replies: bytes in, values out, no I/O.
 
 Clauses cited are those of IEEE Std 488.2-1992 ("Codes, Formats, Protocols and Common
-Commands") and SCPI-1999 Volume 1 ("Syntax and Style") / Volume 2 ("Command Reference").
+Commands") and SCPI-1999 Volume 1 ("Syntax and Style") / Volume 2 ("Command Reference"),
+cited from memory.
 """
 
 from __future__ import annotations
@@ -102,11 +103,30 @@ def encode_real_payload(values: np.ndarray, data_format: RealFormat, byte_order:
     return np.asarray(values, dtype=real_dtype(data_format, byte_order)).tobytes()
 
 
+def decode_complex_payload(payload: bytes, data_format: RealFormat, byte_order: ByteOrder) -> np.ndarray:
+    """Decode a block payload of (re, im) pairs of IEEE 754 numbers straight to complex128.
+
+    A pair of REAL,64 numbers has the memory layout of one complex128 (and a REAL,32 pair
+    that of a complex64), so the payload is viewed as complex without splitting and joining
+    the pairs; in the native byte order no conversion copy is made at all.
+    """
+    real = real_dtype(data_format, byte_order)
+    if len(payload) % (2 * real.itemsize):
+        raise CodecError(
+            f"payload of {len(payload)} bytes is not a whole number of {data_format} (re, im) pairs"
+        )
+    complex_dtype = np.dtype(f"{'>' if byte_order == 'big' else '<'}c{2 * real.itemsize}")
+    return np.frombuffer(payload, dtype=complex_dtype).astype(np.complex128, copy=False)
+
+
 def interleaved_to_complex(values: np.ndarray) -> np.ndarray:
-    """Pairs (re, im, re, im, ...) to complex, the usual layout of complex trace data."""
+    """Pairs (re, im, re, im, ...) to complex, the usual layout of complex trace data.
+
+    float64 pairs have the memory layout of complex128, so the pairs are viewed, not copied.
+    """
     if values.size % 2:
         raise CodecError(f"{values.size} numbers cannot be (real, imaginary) pairs")
-    return values[0::2] + 1j * values[1::2]
+    return np.ascontiguousarray(values, dtype=np.float64).view(np.complex128)
 
 
 _NUMBER = re.compile(rb"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
@@ -123,11 +143,21 @@ def parse_number_list(text: bytes | str) -> np.ndarray:
     raw = raw.strip()
     if not raw:
         return np.empty(0)
-    fields = [item.strip() for item in raw.split(b",")] if b"," in raw else raw.split()
+    fields = raw.split(b",") if b"," in raw else raw.split()
+    # Fast path: numpy converts the whole list at C speed; it also takes what no NRf
+    # number is (nan, inf, 1_0), so those are looked for before the result is trusted.
+    if b"_" not in raw:
+        try:
+            values = np.array(fields, dtype=np.float64)
+        except ValueError:
+            pass
+        else:
+            if np.isfinite(values).all():
+                return values
     for index, item in enumerate(fields):
-        if not _NUMBER.match(item):
+        if not _NUMBER.match(item.strip()):
             raise CodecError(f"item {index} of a number list is not a number: {item[:32]!r}")
-    return np.array([float(item) for item in fields])
+    raise CodecError("a number list holds a value that is not a finite number")
 
 
 def parse_identity(reply: str, resource: str = "") -> InstrumentIdentity:
@@ -155,3 +185,27 @@ def parse_opc_reply(reply: str) -> None:
     """IEEE 488.2 §10.19 *OPC? places ASCII '1' in the output queue when operations end."""
     if reply.strip() != "1":
         raise CodecError(f"*OPC? must answer 1, got {reply!r}")
+
+
+_CHANNEL = re.compile(r"^(\d+)!(\d+)$")
+
+
+def parse_channel(entry: str) -> tuple[int, int]:
+    """One ``module!channel`` entry of a SCPI channel list (SCPI-1999 Vol 1 §8.3.2), e.g.
+    ``"1!3"`` -> (1, 3)."""
+    match = _CHANNEL.match(entry.strip())
+    if not match:
+        raise CodecError(f"a channel is written module!channel, such as 1!3, got {entry!r}")
+    return int(match.group(1)), int(match.group(2))
+
+
+def format_channel_list(entries: list[tuple[int, int]]) -> str:
+    """A SCPI channel list ``(@1!1,2!1)`` of the given (module, channel) entries."""
+    return "(@" + ",".join(f"{module}!{channel}" for module, channel in entries) + ")"
+
+
+def format_channel_ranges(modules: int, channels_per_module: int) -> str:
+    """Every channel of a switch as one range per module: ``(@1!1:1!8,2!1:2!8)``
+    (SCPI-1999 Vol 1 §8.3.2 ranges are inclusive and expand channel by channel)."""
+    ranges = [f"{m}!1:{m}!{channels_per_module}" for m in range(1, modules + 1)]
+    return "(@" + ",".join(ranges) + ")"

@@ -21,6 +21,7 @@ EXIT_OK, EXIT_DEVICE_FAILED, EXIT_INCOMPLETE, EXIT_INPUT = 0, 1, 2, 3
 #: by being imported.
 COMMAND_MODULES = (
     "lineproof.demo",
+    "lineproof.instruments_command",
     "lineproof.sim_command",
 )
 
