@@ -21,6 +21,8 @@ EXIT_OK, EXIT_DEVICE_FAILED, EXIT_INCOMPLETE, EXIT_INPUT = 0, 1, 2, 3
 #: by being imported.
 COMMAND_MODULES = (
     "lineproof.demo",
+    "lineproof.run_command",
+    "lineproof.check_command",
 )
 
 

@@ -50,3 +50,29 @@ def reflectometer(ideal_bench: SimulatedBench) -> Iterator[ProfiledAnalyzer]:
     analyzer = open_analyzer(ideal_bench.visa_resource, "generic-scpi-reflectometer")
     yield analyzer
     analyzer.close()
+
+
+SEQUENCES = Path(__file__).parent / "sequences"
+
+
+@pytest.fixture
+def sequence_variant(tmp_path: Path):
+    """Write a copy of a test sequence into tmp_path, its bench path made absolute, with text
+    replacements; a bench ``time_scale`` given makes a private copy of the scenario too."""
+
+    def make(name: str = "batch.toml", replace: dict[str, str] | None = None, time_scale: float | None = None) -> Path:
+        text = (SEQUENCES / name).read_text(encoding="utf-8")
+        scenario = SCENARIOS / "batch-bench.toml"
+        if time_scale is not None:
+            scenario_text = scenario.read_text(encoding="utf-8").replace("time_scale = 0.1", f"time_scale = {time_scale}")
+            scenario = tmp_path / f"bench-{time_scale}.toml"
+            scenario.write_text(scenario_text, encoding="utf-8")
+        text = text.replace('"../scenarios/batch-bench.toml"', f'"{scenario.as_posix()}"')
+        for old, new in (replace or {}).items():
+            assert old in text, old
+            text = text.replace(old, new)
+        path = tmp_path / name
+        path.write_text(text, encoding="utf-8")
+        return path
+
+    return make
