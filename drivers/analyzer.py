@@ -1,7 +1,9 @@
 """An analyzer driven by a profile: the harness's analyzer primitives (identify, configure,
 measure) turned into the profile's commands over a message session.
 
-Knows no RF math: it returns raw or corrected traces exactly as the instrument gave them.
+Knows no RF math: it returns raw or corrected traces exactly as the instrument gave them,
+after checking that they are what was asked -- the right number of points, on the asked
+frequency grid, with the instrument's error queue empty.
 """
 
 from __future__ import annotations
@@ -12,13 +14,19 @@ from dataclasses import dataclass
 import numpy as np
 
 from lineproof.drivers import ieee488
-from lineproof.drivers.profiles import AnalyzerProfile, Operation
+from lineproof.drivers.instrument import ProfiledInstrument
+from lineproof.drivers.profiles import AnalyzerCapabilities, AnalyzerProfile, Operation
 from lineproof.drivers.session import MessageSession
-from lineproof.errors import InputError, ReplyError
-from lineproof.values import InstrumentIdentity, MeasuredSweep, SweepPlan
+from lineproof.errors import InputError, LinkError, ReplyError
+from lineproof.values import MeasuredSweep, SweepPlan
 
-#: Relative tolerance when checking the instrument's frequency list against the plan.
-_GRID_TOLERANCE = 1e-9
+#: Relative tolerance of the frequency check: ASCII rows carry 9 significant digits
+#: (PROTOCOLS.md §2), i.e. up to 5e-9 relative rounding; any real grid mismatch (another
+#: start, stop or point count) moves points by far more.
+_GRID_TOLERANCE = 1e-8
+#: Bytes per value on the wire, for transfer timeouts: REAL sizes, and a generous width for
+#: a decimal number with its separator.
+_TEXT_NUMBER_BYTES = 24
 
 
 @dataclass(frozen=True)
@@ -39,45 +47,26 @@ def split_plan(plan: SweepPlan, max_points: int) -> list[Segment]:
     first = 0
     for index in range(count):
         size = base + (1 if index < extra else 0)
-        segment_plan = SweepPlan(
-            float(grid[first]), float(grid[first + size - 1]), size,
-            plan.if_bandwidth_hz, plan.power_dbm,
-        )
+        segment_plan = SweepPlan(float(grid[first]), float(grid[first + size - 1]), size,
+                                 plan.if_bandwidth_hz, plan.power_dbm)
         segments.append(Segment(first, segment_plan))
         first += size
     return segments
 
 
-class ProfiledAnalyzer:
+class ProfiledAnalyzer(ProfiledInstrument):
     """The analyzer interface of the harness, implemented from a profile."""
 
+    profile: AnalyzerProfile
+
     def __init__(self, session: MessageSession, profile: AnalyzerProfile) -> None:
-        self.session = session
-        self.profile = profile
-        self.capabilities = profile.capabilities
+        super().__init__(session, profile)
+        self.capabilities: AnalyzerCapabilities = profile.capabilities
         self._plan: SweepPlan | None = None
         self._segments: list[Segment] = []
         self._configured_segment: int | None = None
 
-    @property
-    def resource(self) -> str:
-        return self.session.resource
-
     # -- primitives -------------------------------------------------------------------
-
-    def identify(self) -> InstrumentIdentity:
-        reply = self._query("identify")
-        try:
-            return ieee488.parse_identity(reply, self.resource)
-        except ieee488.CodecError as exc:
-            raise ReplyError(str(exc), resource=self.resource, command=self._op("identify").send) from exc
-
-    def reset(self) -> None:
-        for name in ("reset", "clear"):
-            if self.profile.operation(name):
-                self._send(name)
-        self._configured_segment = None
-        self._sync()
 
     def configure(self, plan: SweepPlan) -> None:
         """Set up a sweep; points beyond the instrument's maximum are split into segments."""
@@ -89,17 +78,22 @@ class ProfiledAnalyzer:
                 path=self.profile.source, key="capabilities",
                 fix="narrow the sweep or use an analyzer that covers it",
             )
-        self._plan = plan
+        self._plan = None
         self._segments = split_plan(plan, caps.max_points)
-        if self.profile.operation("single_sweep_mode"):
-            self._send("single_sweep_mode")
-        if self.profile.operation("set_data_format"):
-            self._send("set_data_format")
-        if self.profile.operation("set_if_bandwidth"):
-            self._send("set_if_bandwidth", if_bandwidth_hz=plan.if_bandwidth_hz)
-        if plan.power_dbm is not None and self.profile.operation("set_power"):
-            self._send("set_power", power_dbm=plan.power_dbm)
+        self._configured_segment = None
+        for name in ("single_sweep_mode", "set_data_format"):
+            self._setting(name)
+        self._setting("set_if_bandwidth", if_bandwidth_hz=plan.if_bandwidth_hz)
+        if plan.power_dbm is not None:
+            self._setting("set_power", power_dbm=plan.power_dbm)
         self._configure_segment(0)
+        self._plan = plan
+
+    def reset(self) -> None:
+        """Back to the instrument's power-on settings; configure again before measuring."""
+        self._plan = None
+        self._configured_segment = None
+        super().reset()
 
     def measure(self, parameters: Sequence[str], corrected: bool = False) -> MeasuredSweep:
         """One sweep of the configured plan; one trace per parameter."""
@@ -111,6 +105,9 @@ class ProfiledAnalyzer:
                 f"the analyzer cannot measure {', '.join(unknown)}", path=self.profile.source,
                 key="capabilities.parameters", fix=f"ask only for {', '.join(self.capabilities.parameters)}",
             )
+        if corrected and not (self.capabilities.corrected_data and self.profile.operation("read_corrected")):
+            raise InputError("this analyzer gives no corrected data", path=self.profile.source,
+                             key="capabilities.corrected_data", fix="measure raw data and correct it in lineproof")
         read = "read_corrected" if corrected else "read_raw"
         pieces: dict[str, list[np.ndarray]] = {p: [] for p in parameters}
         for index, segment in enumerate(self._segments):
@@ -118,91 +115,117 @@ class ProfiledAnalyzer:
                 self._configure_segment(index)
             self._sweep(segment.plan)
             for parameter in parameters:
-                pieces[parameter].append(self._read_trace(read, parameter, segment.plan.points))
+                pieces[parameter].append(self._read_trace(read, parameter, segment.plan))
+            if "frequency" not in self._op(read).columns:
+                self._check_grid(segment.plan)
+        self._check_errors()
         traces = {p: np.concatenate(chunks) for p, chunks in pieces.items()}
         return MeasuredSweep(self._plan.frequencies(), traces, corrected=corrected)
 
-    def close(self) -> None:
-        self.session.close()
-
-    # -- helpers ----------------------------------------------------------------------
+    # -- timing -----------------------------------------------------------------------
 
     def sweep_time_estimate_s(self, plan: SweepPlan) -> float:
         timing = self.profile.timing
         return plan.points * (1.0 / plan.if_bandwidth_hz + timing.settle_per_point_s) + timing.sweep_overhead_s
 
+    def _sweep_timeout(self, plan: SweepPlan) -> float:
+        timing = self.profile.timing
+        return timing.sweep_timeout_margin * self.sweep_time_estimate_s(plan) + timing.command_timeout_s
+
+    def _transfer_timeout(self, operation: Operation, values_per_point: int, points: int) -> float:
+        """Command timeout plus the wire time of the expected reply, with a margin: a slow
+        serial line needs seconds for a trace that a socket moves in a millisecond."""
+        if operation.reply == "block":
+            width = 8 if self.capabilities.data_format == "REAL,64" else 4
+        else:
+            width = _TEXT_NUMBER_BYTES
+        expected_bytes = points * max(values_per_point, len(operation.columns)) * width + 64
+        timing = self.profile.timing
+        base = operation.timeout_s or timing.command_timeout_s
+        return base + timing.transfer_timeout_margin * expected_bytes * self.session.transport.seconds_per_byte
+
+    # -- helpers ----------------------------------------------------------------------
+
     def _configure_segment(self, index: int) -> None:
         plan = self._segments[index].plan
-        self._send("set_start", start_hz=plan.start_hz)
-        self._send("set_stop", stop_hz=plan.stop_hz)
-        self._send("set_points", points=plan.points)
-        self._check_errors()
+        self._configured_segment = None
+        if self.profile.operation("set_sweep"):
+            self._setting("set_sweep", start_hz=plan.start_hz, stop_hz=plan.stop_hz, points=plan.points)
+        else:
+            self._setting("set_start", start_hz=plan.start_hz)
+            self._setting("set_stop", stop_hz=plan.stop_hz)
+            self._setting("set_points", points=plan.points)
         self._configured_segment = index
-        if self.profile.operation("read_frequencies"):
-            self._check_grid(plan)
 
     def _sweep(self, plan: SweepPlan) -> None:
-        timing = self.profile.timing
-        timeout = timing.sweep_timeout_margin * self.sweep_time_estimate_s(plan) + timing.command_timeout_s
-        self._send("trigger")
-        self._sync(timeout)
-
-    def _read_trace(self, operation: str, parameter: str, points: int) -> np.ndarray:
-        if self.profile.operation("select_parameter"):
-            self._send("select_parameter", parameter=parameter)
-        values = self._read_numbers(operation, parameter=parameter)
+        trigger = self._op("trigger")
+        timeout = self._sweep_timeout(plan)
         try:
-            trace = ieee488.interleaved_to_complex(values)
-        except ieee488.CodecError as exc:
-            raise ReplyError(str(exc), resource=self.resource, command=self._op(operation).send) from exc
-        if trace.size != points:
-            raise ReplyError(
-                f"trace has {trace.size} points", resource=self.resource,
-                command=self._op(operation).render(parameter=parameter), expected=f"{points} points",
+            if trigger.reply == "none":
+                self._call("trigger")
+                self._sync(timeout)
+            else:
+                # A line instrument answers its trigger when the sweep is done.
+                self._call("trigger", timeout_s=timeout)
+        except LinkError as exc:
+            exc.add_context(
+                f"waiting for a sweep estimated at {self.sweep_time_estimate_s(plan):.3g} s (timeout {timeout:.3g} s; "
+                f"if the instrument is slower, raise [timing] in {self.profile.source})"
             )
+            raise
+
+    def _read_trace(self, operation: str, parameter: str, plan: SweepPlan) -> np.ndarray:
+        name = self.capabilities.instrument_name(parameter)
+        if self.profile.operation("select_parameter"):
+            self._call("select_parameter", parameter=name)
+        op = self._op(operation)
+        command = op.render(parameter=name)
+        values = self._read_values(operation, 2, plan.points, parameter=name)
+        try:
+            if op.reply == "rows":
+                columns = list(op.columns)
+                if "frequency" in columns:
+                    self._compare_grid(values[:, columns.index("frequency")], plan, command)
+                trace = values[:, columns.index("re")] + 1j * values[:, columns.index("im")]
+            else:
+                trace = ieee488.interleaved_to_complex(values)
+        except ieee488.CodecError as exc:
+            raise ReplyError(str(exc), resource=self.resource, command=command) from exc
+        if trace.size != plan.points:
+            raise ReplyError(f"trace has {trace.size} points", resource=self.resource, command=command,
+                             expected=f"{plan.points} points")
         return trace
 
     def _check_grid(self, plan: SweepPlan) -> None:
-        grid = self._read_numbers("read_frequencies")
+        if not self.profile.operation("read_frequencies"):
+            return
+        operation = self._op("read_frequencies")
+        values = self._read_values("read_frequencies", 1, plan.points)
+        if operation.reply == "rows":
+            values = values[:, list(operation.columns).index("frequency")]
+        self._compare_grid(values, plan, operation.send)
+
+    def _compare_grid(self, grid: np.ndarray, plan: SweepPlan, command: str) -> None:
         expected = plan.frequencies()
         if grid.shape != expected.shape or not np.allclose(grid, expected, rtol=_GRID_TOLERANCE, atol=1e-3):
+            first = f"{grid[0]:.9g} Hz" if grid.size else "nothing"
             raise ReplyError(
-                f"instrument sweeps a different grid ({grid.size} points from {grid[:1]} Hz)",
-                resource=self.resource, command=self._op("read_frequencies").send,
-                expected=f"{plan.describe()}",
+                f"instrument swept another grid ({grid.size} points from {first}); "
+                "was it reset or reconfigured behind our back?",
+                resource=self.resource, command=command, expected=plan.describe(),
             )
 
-    def _read_numbers(self, name: str, **values: object) -> np.ndarray:
+    def _read_values(self, name: str, values_per_point: int, points: int, **values: object) -> np.ndarray:
         operation = self._op(name)
         command = operation.render(**values)
-        timeout = self.profile.timing.command_timeout_s
-        if operation.reply == "numbers" or self.capabilities.data_format == "ASCII":
-            return self.session.query_numbers(command, timeout)
-        payload = self.session.query_block(command, timeout)
+        timeout = self._transfer_timeout(operation, values_per_point, points)
+        session = self.session
+        if operation.reply == "rows":
+            return session.query_rows(command, len(operation.columns), timeout, operation.idempotent)
+        if operation.reply == "numbers":
+            return session.query_numbers(command, timeout, operation.idempotent)
+        payload = session.query_block(command, timeout, operation.idempotent)
         try:
             return ieee488.decode_real_payload(payload, self.capabilities.data_format, self.capabilities.byte_order)
         except ieee488.CodecError as exc:
             raise ReplyError(str(exc), resource=self.resource, command=command) from exc
-
-    def _op(self, name: str) -> Operation:
-        operation = self.profile.operation(name)
-        if operation is None:
-            raise InputError(f"profile has no {name} operation", path=self.profile.source,
-                             key=f"operations.{name}", fix=f"add {name} to [operations]")
-        return operation
-
-    def _send(self, name: str, **values: object) -> None:
-        self.session.write(self._op(name).render(**values), self.profile.timing.command_timeout_s)
-
-    def _query(self, name: str, **values: object) -> str:
-        return self.session.query(self._op(name).render(**values), self.profile.timing.command_timeout_s)
-
-    def _sync(self, timeout_s: float | None = None) -> None:
-        wait = self.profile.operation("wait")
-        if wait is not None:
-            self.session.wait_complete(wait.send, timeout_s or self.profile.timing.command_timeout_s)
-
-    def _check_errors(self) -> None:
-        next_error = self.profile.operation("next_error")
-        if next_error is not None:
-            self.session.drain_errors(next_error.send, caused_by=self.session.last_command)

@@ -155,3 +155,27 @@ def parse_opc_reply(reply: str) -> None:
     """IEEE 488.2 §10.19 *OPC? places ASCII '1' in the output queue when operations end."""
     if reply.strip() != "1":
         raise CodecError(f"*OPC? must answer 1, got {reply!r}")
+
+
+_CHANNEL = re.compile(r"^(\d+)!(\d+)$")
+
+
+def parse_channel(entry: str) -> tuple[int, int]:
+    """One ``module!channel`` entry of a SCPI channel list (SCPI-1999 Vol 1 §8.3.2), e.g.
+    ``"1!3"`` -> (1, 3)."""
+    match = _CHANNEL.match(entry.strip())
+    if not match:
+        raise CodecError(f"a channel is written module!channel, such as 1!3, got {entry!r}")
+    return int(match.group(1)), int(match.group(2))
+
+
+def format_channel_list(entries: list[tuple[int, int]]) -> str:
+    """A SCPI channel list ``(@1!1,2!1)`` of the given (module, channel) entries."""
+    return "(@" + ",".join(f"{module}!{channel}" for module, channel in entries) + ")"
+
+
+def format_channel_ranges(modules: int, channels_per_module: int) -> str:
+    """Every channel of a switch as one range per module: ``(@1!1:1!8,2!1:2!8)``
+    (SCPI-1999 Vol 1 §8.3.2 ranges are inclusive and expand channel by channel)."""
+    ranges = [f"{m}!1:{m}!{channels_per_module}" for m in range(1, modules + 1)]
+    return "(@" + ",".join(ranges) + ")"

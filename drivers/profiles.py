@@ -1,47 +1,80 @@
 """Instrument profiles: declarative TOML files mapping abstract operations to command
-templates and reply formats, plus the instrument's capabilities.
+templates and reply formats, plus the instrument's link framing, capabilities and timing.
 
 A template is plain text with ``{field}`` or ``{field:spec}`` slots.  Only the fields an
 operation documents may appear, and the spec may hold only the characters of a numeric
-format spec: templates are filled in, never evaluated.
+format spec: templates are filled in, never evaluated.  DEVELOPERS.md ("Adding an
+instrument profile") documents every key with a worked example.
 """
 
 from __future__ import annotations
 
 import re
-import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from importlib import resources
 from pathlib import Path
 from typing import Any
 
+from lineproof.drivers import ieee488, line_protocol
+from lineproof.drivers.profile_files import TableReader, load_toml, profile_text, with_base
+from lineproof.drivers.profile_files import shipped_profile_names as shipped_profile_names
 from lineproof.errors import InputError
 
-#: Operations an analyzer profile may define, with the fields each template may use.
-ANALYZER_OPERATIONS: dict[str, frozenset[str]] = {
-    "identify": frozenset(),
-    "reset": frozenset(),
-    "clear": frozenset(),
-    "wait": frozenset(),
-    "next_error": frozenset(),
-    "set_start": frozenset({"start_hz"}),
-    "set_stop": frozenset({"stop_hz"}),
-    "set_points": frozenset({"points"}),
-    "set_if_bandwidth": frozenset({"if_bandwidth_hz"}),
-    "set_power": frozenset({"power_dbm"}),
-    "single_sweep_mode": frozenset(),
-    "select_parameter": frozenset({"parameter"}),
-    "trigger": frozenset(),
-    "set_data_format": frozenset(),
-    "read_raw": frozenset({"parameter"}),
-    "read_corrected": frozenset({"parameter"}),
-    "read_frequencies": frozenset(),
+_SWEEP = frozenset({"start_hz", "stop_hz", "points"})
+
+
+@dataclass(frozen=True)
+class OperationSpec:
+    """What the schema allows for one operation: its slots and whether repeating it is safe."""
+
+    fields: frozenset[str] = frozenset()
+    idempotent: bool = True
+
+
+#: Operations every profile may define.  Settings and queries are idempotent (sending the
+#: same value twice does no harm); actions (trigger, reset, clear) and reading the error
+#: queue (which removes the entry) are not, and are never repeated after a lost link.
+COMMON_OPERATIONS: dict[str, OperationSpec] = {
+    "identify": OperationSpec(),
+    "reset": OperationSpec(idempotent=False),
+    "clear": OperationSpec(idempotent=False),
+    "wait": OperationSpec(),
+    "next_error": OperationSpec(idempotent=False),
 }
-REQUIRED_ANALYZER_OPERATIONS = ("identify", "set_start", "set_stop", "set_points", "trigger", "read_raw")
+
+#: Operations an analyzer profile may define.
+ANALYZER_OPERATIONS: dict[str, OperationSpec] = {
+    **COMMON_OPERATIONS,
+    "set_sweep": OperationSpec(_SWEEP),
+    "set_start": OperationSpec(frozenset({"start_hz"})),
+    "set_stop": OperationSpec(frozenset({"stop_hz"})),
+    "set_points": OperationSpec(frozenset({"points"})),
+    "set_if_bandwidth": OperationSpec(frozenset({"if_bandwidth_hz"})),
+    "set_power": OperationSpec(frozenset({"power_dbm"})),
+    "single_sweep_mode": OperationSpec(),
+    "select_parameter": OperationSpec(frozenset({"parameter"})),
+    "trigger": OperationSpec(idempotent=False),
+    "set_data_format": OperationSpec(),
+    "read_raw": OperationSpec(frozenset({"parameter"})),
+    "read_corrected": OperationSpec(frozenset({"parameter"})),
+    "read_frequencies": OperationSpec(),
+}
+REQUIRED_ANALYZER_OPERATIONS = ("identify", "trigger", "read_raw")
+
+#: Operations a switch profile may define; ``channels`` is a SCPI channel list "(@1!1,1!2)".
+SWITCH_OPERATIONS: dict[str, OperationSpec] = {
+    **COMMON_OPERATIONS,
+    "open_all": OperationSpec(),
+    "open_channels": OperationSpec(frozenset({"channels"})),
+    "close_channels": OperationSpec(frozenset({"channels"})),
+    "query_closed": OperationSpec(frozenset({"channels"})),
+}
+REQUIRED_SWITCH_OPERATIONS = ("identify", "close_channels", "query_closed")
 
 #: Reply formats an operation may declare.
-REPLY_KINDS = frozenset({"none", "text", "identity", "complete", "error-entry", "numbers", "block"})
+REPLY_KINDS = ("none", "text", "identity", "complete", "error-entry", "numbers", "block", "rows")
+#: Column names of a "rows" reply.
+ROW_COLUMNS = ("frequency", "re", "im", "ignore")
 
 _SLOT = re.compile(r"\{([^{}]*)\}")
 _SLOT_BODY = re.compile(r"^([a-z_]+)(?::([0-9.,+\- #eEfFgGd]*))?$")
@@ -53,6 +86,9 @@ class Operation:
 
     send: str
     reply: str = "none"
+    idempotent: bool = True
+    timeout_s: float | None = None
+    columns: tuple[str, ...] = ()
 
     def render(self, **values: Any) -> str:
         """Fill the template's slots from ``values`` (already validated at load time)."""
@@ -62,6 +98,28 @@ class Operation:
             return format(values[name], spec or "")
 
         return _SLOT.sub(fill, self.send)
+
+
+@dataclass(frozen=True)
+class LinkSettings:
+    """Framing on the wire and, for serial links, the line settings the instrument uses."""
+
+    write_termination: str = "\n"
+    read_termination: str = "\n"
+    echo: bool = False
+    prompt: str | None = None
+    error_line: str | None = None
+    rows_end: str = "end"
+    baud_rate: int = 115200
+    byte_size: int = 8
+    parity: str = "N"
+    stop_bits: float = 1
+    flow_control: str = "none"
+
+    @property
+    def needs_serial(self) -> bool:
+        """A prompt ends replies on more than one byte: only the serial transport reads that."""
+        return self.prompt is not None
 
 
 @dataclass(frozen=True)
@@ -76,245 +134,268 @@ class AnalyzerCapabilities:
     corrected_data: bool
     data_format: str  # "REAL,64" | "REAL,32" | "ASCII"
     byte_order: str  # "big" | "little"
+    #: The instrument's own name for each parameter, where it differs ({"S11": "s11"}).
+    parameter_names: Mapping[str, str] = field(default_factory=dict)
+
+    def instrument_name(self, parameter: str) -> str:
+        return self.parameter_names.get(parameter, parameter)
+
+
+@dataclass(frozen=True)
+class SwitchCapabilities:
+    modules: int
+    channels_per_module: int
 
 
 @dataclass(frozen=True)
 class Timing:
-    """How long an operation may take, scaled from the expected sweep time."""
+    """How long an operation may take, scaled from the expected sweep and transfer time."""
 
     command_timeout_s: float = 5.0
     sweep_overhead_s: float = 0.002
     settle_per_point_s: float = 0.0
     sweep_timeout_margin: float = 3.0
+    transfer_timeout_margin: float = 2.0
+    retries: int = 2
 
 
 @dataclass(frozen=True)
-class AnalyzerProfile:
+class Profile:
+    """What every profile kind has."""
+
     name: str
+    kind: str
     summary: str
     source: str
-    link: Mapping[str, Any]
-    capabilities: AnalyzerCapabilities
+    link: LinkSettings
     timing: Timing
-    operations: Mapping[str, Operation] = field(default_factory=dict)
+    operations: Mapping[str, Operation]
 
     def operation(self, name: str) -> Operation | None:
         return self.operations.get(name)
 
 
-class _Reader:
-    """Typed access to a parsed TOML table that names file and key in every error."""
-
-    def __init__(self, data: Mapping[str, Any], path: str, prefix: str = "") -> None:
-        self.data = data
-        self.path = path
-        self.prefix = prefix
-
-    def key(self, name: str) -> str:
-        return f"{self.prefix}{name}"
-
-    def table(self, name: str, required: bool = True) -> _Reader:
-        value = self.data.get(name)
-        if value is None and not required:
-            return _Reader({}, self.path, f"{self.key(name)}.")
-        if not isinstance(value, dict):
-            raise InputError(
-                "missing table" if value is None else "must be a table",
-                path=self.path, key=self.key(name), fix=f"add a [{self.key(name)}] table",
-            )
-        return _Reader(value, self.path, f"{self.key(name)}.")
-
-    def get(self, name: str, kind: type | tuple[type, ...], default: Any = ..., fix: str = "") -> Any:
-        if name not in self.data:
-            if default is ...:
-                raise InputError("missing key", path=self.path, key=self.key(name), fix=fix or f"add {name} = ...")
-            return default
-        value = self.data[name]
-        kinds = kind if isinstance(kind, tuple) else (kind,)
-        if float in kinds and isinstance(value, int) and not isinstance(value, bool):
-            value = float(value)
-        if not isinstance(value, kinds) or (isinstance(value, bool) and bool not in kinds):
-            expected = " or ".join(k.__name__ for k in kinds)
-            raise InputError(
-                f"must be {expected}, got {type(value).__name__} {value!r}",
-                path=self.path, key=self.key(name), fix=fix or f"give {name} as {expected}",
-            )
-        return value
-
-    def reject_unknown(self, allowed: set[str] | frozenset[str]) -> None:
-        for name in self.data:
-            if name not in allowed:
-                raise InputError(
-                    "unknown key", path=self.path, key=self.key(name),
-                    fix=f"remove it or use one of: {', '.join(sorted(allowed))}",
-                )
+@dataclass(frozen=True)
+class AnalyzerProfile(Profile):
+    capabilities: AnalyzerCapabilities | None = None
 
 
-def _parse_operation(reader: _Reader, name: str, fields: frozenset[str]) -> Operation:
-    raw = reader.data[name]
-    key = reader.key(name)
-    if isinstance(raw, str):
-        raw = {"send": raw}
-    if not isinstance(raw, dict):
-        raise InputError("must be a string or a table {send = ..., reply = ...}", path=reader.path, key=key)
-    table = _Reader(raw, reader.path, f"{key}.")
-    table.reject_unknown({"send", "reply"})
-    send = table.get("send", str)
-    reply = table.get("reply", str, "none")
-    if reply not in REPLY_KINDS:
-        raise InputError(
-            f"unknown reply format {reply!r}", path=reader.path, key=f"{key}.reply",
-            fix=f"use one of: {', '.join(sorted(REPLY_KINDS))}",
-        )
+@dataclass(frozen=True)
+class SwitchProfile(Profile):
+    capabilities: SwitchCapabilities | None = None
+
+
+def _check_template(reader: TableReader, name: str, send: str, fields: frozenset[str]) -> None:
     for slot in _SLOT.findall(send):
         match = _SLOT_BODY.match(slot)
         if not match or match.group(1) not in fields:
-            allowed = ", ".join(sorted(fields)) or "none"
-            raise InputError(
-                f"template slot {{{slot}}} is not allowed here",
-                path=reader.path, key=f"{key}.send",
-                fix=f"use only these slots: {allowed} (with an optional numeric format such as :.0f)",
-            )
+            raise reader.error(f"{name}.send", f"template slot {{{slot}}} is not allowed here",
+                               fix=f"use only these slots: {', '.join(sorted(fields)) or 'none'} "
+                               "(with an optional numeric format such as :.0f)")
     if "{" in _SLOT.sub("", send) or "}" in _SLOT.sub("", send):
-        raise InputError("unbalanced brace in template", path=reader.path, key=f"{key}.send")
-    return Operation(send=send, reply=reply)
+        raise reader.error(f"{name}.send", "unbalanced brace in template")
 
 
-def _parse_capabilities(reader: _Reader) -> AnalyzerCapabilities:
-    reader.reject_unknown({
-        "ports", "paths", "frequency_min_hz", "frequency_max_hz", "max_points", "parameters",
-        "raw_data", "corrected_data", "data_format", "byte_order",
-    })
-    paths = reader.get("paths", str)
-    if paths not in ("reflection", "forward", "full"):
-        raise InputError(f"unknown path set {paths!r}", path=reader.path, key=reader.key("paths"),
-                         fix="use reflection (1-port), forward (one-path 2-port) or full")
-    data_format = reader.get("data_format", str, "REAL,64")
-    if data_format not in ("REAL,64", "REAL,32", "ASCII"):
-        raise InputError(f"unknown data format {data_format!r}", path=reader.path,
-                         key=reader.key("data_format"), fix="use REAL,64, REAL,32 or ASCII")
-    byte_order = reader.get("byte_order", str, "big")
-    if byte_order not in ("big", "little"):
-        raise InputError(f"unknown byte order {byte_order!r}", path=reader.path,
-                         key=reader.key("byte_order"), fix="use big or little")
+def _parse_operation(reader: TableReader, name: str, spec: OperationSpec) -> Operation:
+    raw = reader.data[name]
+    if isinstance(raw, str):
+        raw = {"send": raw}
+    if not isinstance(raw, dict):
+        raise reader.error(name, "must be a string or a table {send = ..., reply = ...}")
+    table = TableReader(raw, reader.path, f"{reader.key(name)}.")
+    table.reject_unknown({"send", "reply", "idempotent", "timeout_s", "columns"})
+    send = table.get("send", str)
+    _check_template(reader, name, send, spec.fields)
+    reply = table.choice("reply", REPLY_KINDS, "none")
+    columns = tuple(table.get("columns", list, []))
+    if reply == "rows":
+        if not columns or not all(c in ROW_COLUMNS for c in columns):
+            raise table.error("columns", f"a rows reply needs columns from {', '.join(ROW_COLUMNS)}",
+                              fix='e.g. columns = ["frequency", "re", "im"]')
+    elif columns:
+        raise table.error("columns", "only a rows reply has columns", fix='remove it or set reply = "rows"')
+    timeout = table.positive("timeout_s", None) if "timeout_s" in raw else None
+    return Operation(send=send, reply=reply, idempotent=table.get("idempotent", bool, spec.idempotent),
+                     timeout_s=timeout, columns=columns)
+
+
+def _parse_operations(root: TableReader, allowed: Mapping[str, OperationSpec],
+                      required: tuple[str, ...]) -> dict[str, Operation]:
+    reader = root.table("operations")
+    reader.reject_unknown(set(allowed))
+    operations = {name: _parse_operation(reader, name, allowed[name]) for name in reader.data}
+    for name in required:
+        if name not in operations:
+            raise reader.error(name, "missing operation", fix=f"add {name} = {{ send = \"...\" }}")
+    return operations
+
+
+def _parse_link(reader: TableReader) -> LinkSettings:
+    defaults = LinkSettings()
+    reader.reject_unknown(set(LinkSettings.__dataclass_fields__))
+    for name in ("write_termination", "read_termination", "rows_end"):
+        if not reader.get(name, str, "x"):
+            raise reader.error(name, "must not be empty", fix='give it as e.g. "\\n"')
+    error_line = reader.get("error_line", str, None)
+    if error_line is not None:
+        try:
+            line_protocol.compile_error_pattern(error_line)
+        except ieee488.CodecError as exc:
+            raise reader.error("error_line", str(exc), fix=r"e.g. '^\?(?P<code>\d+) (?P<text>.*)$'") from exc
+    prompt = reader.get("prompt", str, None)
+    if prompt == "":
+        raise reader.error("prompt", "must not be empty", fix="remove it when the instrument sends no prompt")
+    return LinkSettings(
+        write_termination=reader.get("write_termination", str, defaults.write_termination),
+        read_termination=reader.get("read_termination", str, defaults.read_termination),
+        echo=reader.get("echo", bool, False),
+        prompt=prompt,
+        error_line=error_line,
+        rows_end=reader.get("rows_end", str, defaults.rows_end),
+        baud_rate=int(reader.positive("baud_rate", defaults.baud_rate)),
+        byte_size=_byte_size(reader),
+        parity=reader.choice("parity", ("N", "E", "O", "M", "S"), defaults.parity),
+        stop_bits=reader.get("stop_bits", float, defaults.stop_bits),
+        flow_control=reader.choice("flow_control", ("none", "rtscts", "xonxoff"), defaults.flow_control),
+    )
+
+
+def _byte_size(reader: TableReader) -> int:
+    value = reader.get("byte_size", int, 8)
+    if value not in (5, 6, 7, 8):
+        raise reader.error("byte_size", f"must be 5, 6, 7 or 8, got {value}")
+    return value
+
+
+def _parse_timing(reader: TableReader) -> Timing:
+    reader.reject_unknown(set(Timing.__dataclass_fields__))
+    defaults = Timing()
+    retries = reader.get("retries", int, defaults.retries)
+    if not 0 <= retries <= 10:
+        raise reader.error("retries", f"must be 0..10, got {retries}")
+    return Timing(
+        command_timeout_s=reader.positive("command_timeout_s", defaults.command_timeout_s),
+        sweep_overhead_s=reader.get("sweep_overhead_s", float, defaults.sweep_overhead_s),
+        settle_per_point_s=reader.get("settle_per_point_s", float, defaults.settle_per_point_s),
+        sweep_timeout_margin=reader.positive("sweep_timeout_margin", defaults.sweep_timeout_margin),
+        transfer_timeout_margin=reader.positive("transfer_timeout_margin", defaults.transfer_timeout_margin),
+        retries=retries,
+    )
+
+
+def _parse_analyzer_capabilities(reader: TableReader) -> AnalyzerCapabilities:
+    reader.reject_unknown(set(AnalyzerCapabilities.__dataclass_fields__))
+    paths = reader.choice("paths", ("reflection", "forward", "full"),
+                          fix="use reflection (1-port), forward (one-path 2-port) or full")
     low = reader.get("frequency_min_hz", float)
     high = reader.get("frequency_max_hz", float)
     if not 0 < low < high:
-        raise InputError("frequency range must satisfy 0 < min < max", path=reader.path,
-                         key=reader.key("frequency_max_hz"))
+        raise reader.error("frequency_max_hz", "frequency range must satisfy 0 < min < max")
     max_points = reader.get("max_points", int)
     if max_points < 2:
-        raise InputError("max_points must be at least 2", path=reader.path, key=reader.key("max_points"))
+        raise reader.error("max_points", "max_points must be at least 2")
     parameters = reader.get("parameters", list)
     if not parameters or not all(isinstance(p, str) and re.fullmatch(r"S[1-4][1-4]", p) for p in parameters):
-        raise InputError("parameters must be a non-empty list such as [\"S11\", \"S21\"]",
-                         path=reader.path, key=reader.key("parameters"))
+        raise reader.error("parameters", "parameters must be a non-empty list such as [\"S11\", \"S21\"]")
+    names = reader.get("parameter_names", dict, {})
+    for key, value in names.items():
+        if key not in parameters or not isinstance(value, str) or not re.fullmatch(r"[\w:/.-]+", value):
+            raise reader.error(f"parameter_names.{key}", "must map a listed parameter to a plain name",
+                               fix='e.g. parameter_names = { S11 = "s11" }')
     return AnalyzerCapabilities(
-        ports=reader.get("ports", int),
-        paths=paths,
-        frequency_min_hz=low,
-        frequency_max_hz=high,
-        max_points=max_points,
-        parameters=tuple(parameters),
-        raw_data=reader.get("raw_data", bool, True),
-        corrected_data=reader.get("corrected_data", bool, False),
-        data_format=data_format,
-        byte_order=byte_order,
+        ports=reader.get("ports", int), paths=paths, frequency_min_hz=low, frequency_max_hz=high,
+        max_points=max_points, parameters=tuple(parameters),
+        raw_data=reader.get("raw_data", bool, True), corrected_data=reader.get("corrected_data", bool, False),
+        data_format=reader.choice("data_format", ("REAL,64", "REAL,32", "ASCII"), "REAL,64"),
+        byte_order=reader.choice("byte_order", ("big", "little"), "big"),
+        parameter_names=dict(names),
     )
 
 
-def _parse_timing(reader: _Reader) -> Timing:
-    reader.reject_unknown({"command_timeout_s", "sweep_overhead_s", "settle_per_point_s", "sweep_timeout_margin"})
-    defaults = Timing()
-    return Timing(
-        command_timeout_s=reader.get("command_timeout_s", float, defaults.command_timeout_s),
-        sweep_overhead_s=reader.get("sweep_overhead_s", float, defaults.sweep_overhead_s),
-        settle_per_point_s=reader.get("settle_per_point_s", float, defaults.settle_per_point_s),
-        sweep_timeout_margin=reader.get("sweep_timeout_margin", float, defaults.sweep_timeout_margin),
-    )
+def _parse_switch_capabilities(reader: TableReader) -> SwitchCapabilities:
+    reader.reject_unknown(set(SwitchCapabilities.__dataclass_fields__))
+    modules = reader.get("modules", int)
+    channels = reader.get("channels_per_module", int)
+    if modules < 1 or channels < 1:
+        raise reader.error("modules", "modules and channels_per_module must be at least 1")
+    return SwitchCapabilities(modules, channels)
 
 
-def _load_toml(text: str, source: str) -> dict[str, Any]:
-    try:
-        return tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc})", path=source, fix="correct the TOML syntax") from exc
-
-
-def _with_base(data: dict[str, Any], source: str, depth: int = 0) -> dict[str, Any]:
-    """Merge a profile over the shipped profile it names in ``profile.based_on``: each
-    table of the base is updated key by key, so a variant states only what differs."""
-    head = data.get("profile")
-    base_name = head.get("based_on") if isinstance(head, dict) else None
-    if base_name is None:
-        return data
-    if not isinstance(base_name, str) or depth > 4:
-        raise InputError("based_on must name one shipped profile (and not form a loop)",
-                         path=source, key="profile.based_on")
-    base_text, base_source = _shipped_text(base_name)
-    merged = _with_base(_load_toml(base_text, base_source), base_source, depth + 1)
-    for table, values in data.items():
-        if isinstance(values, dict) and isinstance(merged.get(table), dict):
-            merged[table] = {**merged[table], **values}
-        else:
-            merged[table] = values
-    merged["profile"].pop("based_on", None)
-    return merged
+def _parse_common(text: str, source: str, kind: str) -> tuple[TableReader, dict[str, Any]]:
+    root = TableReader(with_base(load_toml(text, source), source), source)
+    root.reject_unknown({"profile", "link", "capabilities", "timing", "operations"})
+    head = root.table("profile")
+    head.reject_unknown({"name", "kind", "summary", "based_on"})
+    found = head.get("kind", str)
+    if found != kind:
+        raise head.error("kind", f"expected kind = \"{kind}\", got {found!r}",
+                         fix=f"load it as a {found} profile" if found in ("analyzer", "switch") else None)
+    common = {
+        "name": head.get("name", str), "kind": kind, "summary": head.get("summary", str, ""), "source": source,
+        "link": _parse_link(root.table("link", required=False)),
+        "timing": _parse_timing(root.table("timing", required=False)),
+    }
+    return root, common
 
 
 def parse_analyzer_profile(text: str, source: str) -> AnalyzerProfile:
     """Validate and build an analyzer profile from TOML text; ``source`` names it in errors."""
-    data = _with_base(_load_toml(text, source), source)
-    root = _Reader(data, source)
-    root.reject_unknown({"profile", "link", "capabilities", "timing", "operations"})
-    head = root.table("profile")
-    head.reject_unknown({"name", "kind", "summary", "based_on"})
-    kind = head.get("kind", str)
-    if kind != "analyzer":
-        raise InputError(f"expected kind = \"analyzer\", got {kind!r}", path=source, key="profile.kind")
-    link = root.table("link", required=False)
-    link.reject_unknown({"write_termination", "read_termination"})
-    operations_reader = root.table("operations")
-    operations_reader.reject_unknown(set(ANALYZER_OPERATIONS))
-    operations = {
-        name: _parse_operation(operations_reader, name, ANALYZER_OPERATIONS[name])
-        for name in operations_reader.data
-    }
-    for name in REQUIRED_ANALYZER_OPERATIONS:
-        if name not in operations:
-            raise InputError("missing operation", path=source, key=f"operations.{name}",
-                             fix=f"add {name} = {{ send = \"...\" }}")
-    return AnalyzerProfile(
-        name=head.get("name", str),
-        summary=head.get("summary", str, ""),
-        source=source,
-        link=dict(link.data),
-        capabilities=_parse_capabilities(root.table("capabilities")),
-        timing=_parse_timing(root.table("timing", required=False)),
-        operations=operations,
-    )
+    root, common = _parse_common(text, source, "analyzer")
+    operations = _parse_operations(root, ANALYZER_OPERATIONS, REQUIRED_ANALYZER_OPERATIONS)
+    if "set_sweep" not in operations:
+        for name in ("set_start", "set_stop", "set_points"):
+            if name not in operations:
+                raise InputError("missing operation", path=source, key=f"operations.{name}",
+                                 fix=f"add {name}, or one set_sweep with {{start_hz}} {{stop_hz}} {{points}}")
+    capabilities = _parse_analyzer_capabilities(root.table("capabilities"))
+    _check_reads(operations, capabilities, common["link"], source)
+    return AnalyzerProfile(**common, operations=operations, capabilities=capabilities)
 
 
-def shipped_profile_names() -> list[str]:
-    folder = resources.files("lineproof.drivers") / "profiles"
-    return sorted(p.name[:-5] for p in folder.iterdir() if p.name.endswith(".toml"))
+def _check_reads(operations: Mapping[str, Operation], capabilities: AnalyzerCapabilities,
+                 link: LinkSettings, source: str) -> None:
+    for name, needed in (("read_raw", {"re", "im"}), ("read_corrected", {"re", "im"}),
+                         ("read_frequencies", {"frequency"})):
+        operation = operations.get(name)
+        if operation is None:
+            continue
+        if operation.reply not in ("block", "numbers", "rows"):
+            raise InputError(f"a trace read must reply block, numbers or rows, not {operation.reply!r}",
+                             path=source, key=f"operations.{name}.reply")
+        if operation.reply == "rows" and not needed <= set(operation.columns):
+            raise InputError(f"columns must include {', '.join(sorted(needed))}", path=source,
+                             key=f"operations.{name}.columns")
+        if operation.reply == "block" and (link.needs_serial or capabilities.data_format == "ASCII"):
+            raise InputError("a block reply needs message framing and a REAL data format", path=source,
+                             key=f"operations.{name}.reply", fix='use reply = "rows" or "numbers"')
 
 
-def _shipped_text(name: str) -> tuple[str, str]:
-    shipped = resources.files("lineproof.drivers") / "profiles" / f"{name}.toml"
-    if not re.fullmatch(r"[a-z0-9][a-z0-9-]*", name) or not shipped.is_file():
-        raise InputError(f"no shipped profile named {name!r}", key="profile",
-                         fix=f"use one of {', '.join(shipped_profile_names())} or a path to a .toml file")
-    return shipped.read_text(encoding="utf-8"), f"profiles/{name}.toml"
+def parse_switch_profile(text: str, source: str) -> SwitchProfile:
+    """Validate and build a switch-matrix profile from TOML text."""
+    root, common = _parse_common(text, source, "switch")
+    operations = _parse_operations(root, SWITCH_OPERATIONS, REQUIRED_SWITCH_OPERATIONS)
+    if "open_all" not in operations and "open_channels" not in operations:
+        raise InputError("missing operation", path=source, key="operations.open_all",
+                         fix="add open_all, or open_channels with a {channels} slot")
+    if operations["query_closed"].reply != "numbers":
+        raise InputError("must reply numbers (one 1 or 0 per channel)", path=source,
+                         key="operations.query_closed.reply")
+    capabilities = _parse_switch_capabilities(root.table("capabilities"))
+    return SwitchProfile(**common, operations=operations, capabilities=capabilities)
 
 
 def load_analyzer_profile(name_or_path: str | Path) -> AnalyzerProfile:
     """Load a shipped profile by name (``generic-scpi-analyzer``) or any profile file by path."""
-    path = Path(name_or_path)
-    if path.suffix == ".toml" or path.exists():
-        try:
-            text = path.read_text(encoding="utf-8")
-        except OSError as exc:
-            raise InputError(f"cannot read profile ({exc.strerror})", path=str(path)) from exc
-        return parse_analyzer_profile(text, str(path))
-    return parse_analyzer_profile(*_shipped_text(str(name_or_path)))
+    return parse_analyzer_profile(*profile_text(name_or_path))
+
+
+def load_switch_profile(name_or_path: str | Path) -> SwitchProfile:
+    """Load a shipped switch profile by name (``generic-scpi-switch``) or a file by path."""
+    return parse_switch_profile(*profile_text(name_or_path))
+
+
+def profile_kind(name_or_path: str | Path) -> str:
+    """The ``profile.kind`` a profile declares (after ``based_on``), without validating the rest."""
+    text, source = profile_text(name_or_path)
+    head = with_base(load_toml(text, source), source).get("profile", {})
+    return head.get("kind", "") if isinstance(head, dict) else ""

@@ -1,21 +1,25 @@
 """Transports: bytes in, bytes out, with deadlines.  Nothing above this module sees pyvisa
 or pyserial; every error of theirs is translated here into :class:`LinkError`.
 
-The contract is four calls (see :class:`Transport`).  A deadline is an absolute
-``time.monotonic()`` value: pyvisa-py's socket timeout is an inactivity timeout, not a
-deadline, so the transports cut each low-level read to the time left and check the clock
-between chunks.
+The contract is :class:`Transport`.  A deadline is an absolute ``time.monotonic()`` value:
+pyvisa-py's socket timeout is an inactivity timeout, not a deadline, so the transports
+cut each low-level read to the time left and check the clock between chunks.
+
+Each transport is chosen explicitly (``open_analyzer(..., transport="visa"|"serial")``);
+nothing registers itself on import, and a missing optional package is named with the
+command that installs it.
 """
 
 from __future__ import annotations
 
 import time
 from dataclasses import dataclass
-from typing import Protocol
+from typing import Any, Protocol
 
+from lineproof.drivers import visa_backend
 from lineproof.errors import LinkError
 
-#: Largest chunk asked of the layer below in one call.
+#: Largest chunk asked of pyserial in one call.
 _CHUNK = 1 << 20
 
 
@@ -24,17 +28,21 @@ class Transport(Protocol):
 
     resource: str
 
+    @property
+    def seconds_per_byte(self) -> float:
+        """Wire time of one byte (0 where negligible); timeouts of long transfers scale by it."""
+
     def write_raw(self, data: bytes, deadline: float) -> None:
         """Send all of ``data``."""
 
-    def read_line_raw(self, terminator: bytes, deadline: float, limit: int) -> bytes:
-        """Bytes up to and including ``terminator`` (at most ``limit`` bytes)."""
+    def read_line_raw(self, terminators: tuple[bytes, ...], deadline: float, limit: int) -> bytes:
+        """Bytes up to and including the first of ``terminators`` (at most ``limit`` bytes)."""
 
     def read_exact_raw(self, count: int, deadline: float) -> bytes:
         """Exactly ``count`` bytes, or LinkError."""
 
     def reopen(self) -> None:
-        """Drop and re-establish the link (after a dropped connection)."""
+        """Drop and re-establish the link, discarding anything unread."""
 
     def close(self) -> None:
         """Release the link; further calls are errors."""
@@ -47,36 +55,26 @@ def _remaining(deadline: float, resource: str, what: str) -> float:
     return left
 
 
-def _disable_nagle(handle: object) -> None:
-    """Send small command messages at once instead of waiting for the peer's delayed ACK.
-
-    Measured here: a command with no reply followed by a query cost 40 ms (Nagle's
-    algorithm meeting a 40 ms delayed ACK) instead of 0.2 ms.  VISA's VI_ATTR_TCPIP_NODELAY
-    is the standard switch; pyvisa-py 0.8 reads it but refuses to set it on SOCKET
-    sessions, so for that backend the option is set on its socket directly.  Any other
-    backend keeps its own behaviour.
-    """
-    import socket
-
-    from pyvisa import constants
-
-    try:
-        handle.set_visa_attribute(constants.ResourceAttribute.tcpip_nodelay, True)
-        return
-    except Exception:  # noqa: BLE001 - backends raise their own types for an unsupported attribute
-        pass
-    backend_session = getattr(getattr(handle, "visalib", None), "sessions", {}).get(getattr(handle, "session", None))
-    interface = getattr(backend_session, "interface", None)
-    if isinstance(interface, socket.socket):
-        interface.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
-
-
 @dataclass(frozen=True)
 class VisaOptions:
-    """How to open a VISA resource."""
+    """How to open a VISA resource.
+
+    ``library`` is what ``pyvisa.ResourceManager`` takes: ``"@py"`` (pyvisa-py, the
+    default), ``"@ivi"`` (the vendor VISA installed on the system) or a path to a VISA
+    shared library.
+    """
 
     library: str = "@py"
     open_timeout_s: float = 5.0
+
+
+def _import_pyvisa(resource: str) -> Any:
+    try:
+        import pyvisa
+    except ImportError as exc:  # pragma: no cover - pyvisa is a hard dependency
+        raise LinkError("pyvisa is not installed; install it with: pip install pyvisa pyvisa-py",
+                        resource=resource) from exc
+    return pyvisa
 
 
 class VisaTransport:
@@ -84,54 +82,66 @@ class VisaTransport:
 
     Lines are read with the termination character enabled; block payloads with it disabled,
     because pyvisa-py ends a read at every termination byte inside binary data (measured:
-    ~10x slower on a REAL,64 block).
+    ~10x slower on a REAL,64 block).  The pyvisa-py workarounds live in :mod:`.visa_backend`.
     """
+
+    seconds_per_byte = 0.0
 
     def __init__(self, resource: str, options: VisaOptions | None = None) -> None:
         self.resource = resource
         self._options = options or VisaOptions()
-        self._manager = None
-        self._handle = None
+        self._manager: Any = None
+        self._handle: Any = None
         self._termchar: bytes | None = None
+        self._shortcut: visa_backend.SocketShortcut | None = None
         self._open()
 
-    def _open(self) -> None:
+    def _open_manager(self, pyvisa: Any) -> Any:
+        library = self._options.library
         try:
-            import pyvisa
-            from pyvisa import constants
-        except ImportError as exc:  # pragma: no cover - pyvisa is a hard dependency
-            raise LinkError(
-                "pyvisa is not installed; install it with: pip install pyvisa pyvisa-py",
-                resource=self.resource,
-            ) from exc
+            return pyvisa.ResourceManager(library)
+        except (OSError, ValueError) as exc:
+            if library == "@py":
+                hint = "install the pure-Python backend with: pip install pyvisa-py"
+            else:
+                hint = "check the path of your VISA library, or use '@py' after: pip install pyvisa-py"
+            raise LinkError(f"cannot load the VISA library {library!r} ({exc}); {hint}",
+                            resource=self.resource) from exc
+
+    def _open(self) -> None:
+        pyvisa = _import_pyvisa(self.resource)
+        from pyvisa import constants
+
         self._constants = constants
         self._visa_error = pyvisa.errors.VisaIOError
+        self._manager = self._open_manager(pyvisa)
         try:
-            self._manager = pyvisa.ResourceManager(self._options.library)
-        except (OSError, ValueError) as exc:
-            raise LinkError(
-                f"cannot load the VISA library {self._options.library!r} ({exc}); "
-                "for the pure-Python backend install pyvisa-py and use '@py'",
-                resource=self.resource,
-            ) from exc
-        try:
-            handle = self._manager.open_resource(
-                self.resource, open_timeout=int(self._options.open_timeout_s * 1000)
-            )
+            handle = self._manager.open_resource(self.resource,
+                                                 open_timeout=int(self._options.open_timeout_s * 1000))
         except (self._visa_error, OSError, ValueError) as exc:
-            raise LinkError(f"cannot open ({exc})", resource=self.resource) from exc
+            self._close_manager()
+            hint = visa_backend.install_hint(exc)
+            problem = f"this VISA backend cannot reach the resource: {hint}" if hint else f"cannot open ({exc})"
+            raise LinkError(problem, resource=self.resource) from exc
+        refused = visa_backend.connect_error(handle)
+        if refused:
+            handle.close()
+            self._close_manager()
+            raise LinkError(f"cannot connect ({refused})", resource=self.resource)
         handle.read_termination = None
         handle.write_termination = None
-        # Reads of a block header ask for one byte at a time; a read that fills its count is
-        # normal here, not worth a warning.
+        # Reads of a block header ask for a few bytes at a time; a read that fills its count
+        # is normal here, not worth a warning.
         handle.visalib.issue_warning_on.discard(constants.StatusCode.success_max_count_read)
         if self.resource.upper().startswith("TCPIP"):
-            _disable_nagle(handle)
+            visa_backend.disable_nagle(handle)
+            visa_backend.widen_socket_reads(handle)
+        self._shortcut = visa_backend.SocketShortcut.attach(handle)
         self._handle = handle
         self._termchar = None
 
     @property
-    def _lib(self):
+    def _lib(self) -> Any:
         if self._handle is None:
             raise LinkError("link is closed", resource=self.resource)
         return self._handle.visalib
@@ -149,68 +159,79 @@ class VisaTransport:
         self._termchar = terminator
 
     def _set_timeout(self, seconds: float) -> None:
-        self._handle.timeout = max(1, int(seconds * 1000))
+        self._lib.set_attribute(self._handle.session, self._constants.ResourceAttribute.timeout_value,
+                                max(1, int(seconds * 1000)))
 
     def write_raw(self, data: bytes, deadline: float) -> None:
         self._set_timeout(_remaining(deadline, self.resource, "before writing"))
         try:
-            self._handle.write_raw(data)
+            self._lib.write(self._handle.session, data)
         except (self._visa_error, OSError) as exc:
             raise LinkError(f"write failed ({exc})", resource=self.resource) from exc
 
-    def _read_chunk(self, count: int, deadline: float, what: str) -> tuple[bytes, bool]:
+    def _read_chunk(self, count: int, deadline: float, what: str) -> bytes:
         self._set_timeout(_remaining(deadline, self.resource, what))
         try:
-            data, status = self._lib.read(self._handle.session, count)
+            data, _ = self._lib.read(self._handle.session, count)
         except (self._visa_error, OSError) as exc:
+            if visa_backend.peer_closed(self._handle):
+                raise LinkError(f"connection closed by the instrument while {what}",
+                                resource=self.resource) from exc
             if getattr(exc, "error_code", None) == self._constants.StatusCode.error_timeout:
                 raise LinkError(f"timed out {what}", resource=self.resource) from exc
             raise LinkError(f"read failed {what} ({exc})", resource=self.resource) from exc
-        ended_by_termchar = status == self._constants.StatusCode.success_termination_character_read
-        return bytes(data), ended_by_termchar
+        return bytes(data)
 
-    def read_line_raw(self, terminator: bytes, deadline: float, limit: int) -> bytes:
-        if len(terminator) != 1:
-            raise LinkError("VISA termination must be one byte", resource=self.resource)
+    def read_line_raw(self, terminators: tuple[bytes, ...], deadline: float, limit: int) -> bytes:
+        if len(terminators) != 1 or len(terminators[0]) != 1:
+            raise LinkError("a VISA read ends on one termination byte; use the serial transport "
+                            f"for replies ended by {terminators!r}", resource=self.resource)
+        terminator = terminators[0]
         self._set_termchar(terminator)
         received = bytearray()
         while not received.endswith(terminator):
             if len(received) >= limit:
-                raise LinkError(
-                    f"reply longer than {limit} bytes without a line end", resource=self.resource
-                )
-            chunk, _ = self._read_chunk(limit - len(received), deadline, "waiting for a reply line")
-            received += chunk
+                raise LinkError(f"reply longer than {limit} bytes without a line end", resource=self.resource)
+            received += self._read_chunk(limit - len(received), deadline, "waiting for a reply line")
         return bytes(received)
 
     def read_exact_raw(self, count: int, deadline: float) -> bytes:
+        if self._shortcut is not None:
+            what = f"reading {count} bytes"
+            try:
+                return self._shortcut.read_exact(count, deadline)
+            except TimeoutError as exc:
+                raise LinkError(f"timed out {what} ({exc})", resource=self.resource) from exc
+            except OSError as exc:
+                raise LinkError(f"link lost {what} ({exc})", resource=self.resource) from exc
         self._set_termchar(None)
-        received = bytearray()
+        received = self._read_chunk(count, deadline, f"reading {count} bytes")
         while len(received) < count:
-            want = min(count - len(received), _CHUNK)
-            chunk, _ = self._read_chunk(
-                want, deadline, f"reading {count} bytes (got {len(received)})"
-            )
-            received += chunk
-        return bytes(received)
+            received += self._read_chunk(count - len(received), deadline,
+                                         f"reading {count} bytes (got {len(received)})")
+        return received
 
     def reopen(self) -> None:
         self.close()
         self._open()
 
-    def close(self) -> None:
-        if self._handle is not None:
-            try:
-                self._handle.close()
-            except (self._visa_error, OSError):
-                pass
-            self._handle = None
+    def _close_manager(self) -> None:
         if self._manager is not None:
             try:
                 self._manager.close()
             except (self._visa_error, OSError):
                 pass
             self._manager = None
+
+    def close(self) -> None:
+        self._shortcut = None
+        if self._handle is not None:
+            try:
+                self._handle.close()
+            except (self._visa_error, OSError):
+                pass
+            self._handle = None
+        self._close_manager()
 
 
 @dataclass(frozen=True)
@@ -219,89 +240,110 @@ class SerialOptions:
 
     baud_rate: int = 115200
     byte_size: int = 8
-    parity: str = "N"
+    parity: str = "N"  # N, E, O, M, S
     stop_bits: float = 1
     flow_control: str = "none"  # "none", "rtscts", "xonxoff"
 
+    @property
+    def seconds_per_byte(self) -> float:
+        """One start bit, the data bits, a parity bit if any, the stop bits (UART framing)."""
+        bits = 1 + self.byte_size + (0 if self.parity == "N" else 1) + self.stop_bits
+        return bits / self.baud_rate
+
 
 class SerialTransport:
-    """A plain serial line through pyserial: a UART, a USB virtual port or a pseudo-terminal."""
+    """A plain serial line through pyserial: a UART, a USB virtual port, a pseudo-terminal,
+    or any pyserial URL (``socket://host:port``, ``rfc2217://...``)."""
 
     def __init__(self, port: str, options: SerialOptions | None = None) -> None:
         self.resource = port
         self._options = options or SerialOptions()
-        self._port = None
+        self._port: Any = None
         self._buffer = bytearray()
+        self._searched = 0
         self._open()
+
+    @property
+    def seconds_per_byte(self) -> float:
+        return self._options.seconds_per_byte
 
     def _open(self) -> None:
         try:
             import serial
         except ImportError as exc:  # pragma: no cover - pyserial is a hard dependency
-            raise LinkError(
-                "pyserial is not installed; install it with: pip install pyserial",
-                resource=self.resource,
-            ) from exc
+            raise LinkError("pyserial is not installed; install it with: pip install pyserial",
+                            resource=self.resource) from exc
         self._serial_error = serial.SerialException
         options = self._options
         try:
             self._port = serial.serial_for_url(
-                self.resource,
-                baudrate=options.baud_rate,
-                bytesize=options.byte_size,
-                parity=options.parity,
-                stopbits=options.stop_bits,
-                rtscts=options.flow_control == "rtscts",
-                xonxoff=options.flow_control == "xonxoff",
-                timeout=0.05,
-                write_timeout=5.0,
+                self.resource, baudrate=options.baud_rate, bytesize=options.byte_size,
+                parity=options.parity, stopbits=options.stop_bits,
+                rtscts=options.flow_control == "rtscts", xonxoff=options.flow_control == "xonxoff",
+                timeout=0.05, write_timeout=5.0,
             )
         except (serial.SerialException, OSError, ValueError) as exc:
             raise LinkError(f"cannot open serial port ({exc})", resource=self.resource) from exc
         self._buffer.clear()
+        self._searched = 0
 
     def _fill(self, deadline: float, what: str) -> None:
+        if self._port is None:
+            raise LinkError("link is closed", resource=self.resource)
+        # Block for the first byte (at most 0.2 s, so the deadline is checked often), then
+        # take whatever else is waiting in one call.
         self._port.timeout = min(0.2, _remaining(deadline, self.resource, what))
         try:
-            waiting = self._port.in_waiting
-            chunk = self._port.read(max(1, min(waiting, _CHUNK)))
+            chunk = self._port.read(max(1, min(self._port.in_waiting, _CHUNK)))
         except (self._serial_error, OSError) as exc:
             raise LinkError(f"read failed {what} ({exc})", resource=self.resource) from exc
         self._buffer += chunk
 
     def write_raw(self, data: bytes, deadline: float) -> None:
-        _remaining(deadline, self.resource, "before writing")
+        if self._port is None:
+            raise LinkError("link is closed", resource=self.resource)
         try:
+            self._port.write_timeout = _remaining(deadline, self.resource, "before writing")
             self._port.write(data)
             self._port.flush()
         except (self._serial_error, OSError) as exc:
             raise LinkError(f"write failed ({exc})", resource=self.resource) from exc
 
-    def read_line_raw(self, terminator: bytes, deadline: float, limit: int) -> bytes:
-        what = "waiting for a reply line"
+    def _find(self, terminators: tuple[bytes, ...]) -> int:
+        """End of the earliest terminator in the buffer, or -1; searches only new bytes."""
+        longest = max(len(t) for t in terminators)
+        start = max(0, self._searched - longest + 1)
+        ends = [index + len(t) for t in terminators if (index := self._buffer.find(t, start)) >= 0]
+        self._searched = len(self._buffer)
+        return min(ends) if ends else -1
+
+    def read_line_raw(self, terminators: tuple[bytes, ...], deadline: float, limit: int) -> bytes:
         while True:
-            index = self._buffer.find(terminator)
-            if index >= 0:
-                end = index + len(terminator)
+            end = self._find(terminators)
+            if end >= 0:
                 line = bytes(self._buffer[:end])
                 del self._buffer[:end]
+                self._searched = 0
                 return line
             if len(self._buffer) >= limit:
-                raise LinkError(
-                    f"reply longer than {limit} bytes without a line end", resource=self.resource
-                )
-            self._fill(deadline, what)
+                raise LinkError(f"reply longer than {limit} bytes without a line end", resource=self.resource)
+            self._fill(deadline, "waiting for a reply line")
 
     def read_exact_raw(self, count: int, deadline: float) -> bytes:
         while len(self._buffer) < count:
             self._fill(deadline, f"reading {count} bytes (got {len(self._buffer)})")
         data = bytes(self._buffer[:count])
         del self._buffer[:count]
+        self._searched = 0
         return data
 
     def reopen(self) -> None:
         self.close()
         self._open()
+        try:
+            self._port.reset_input_buffer()
+        except (self._serial_error, OSError) as exc:
+            raise LinkError(f"cannot reset the serial port ({exc})", resource=self.resource) from exc
 
     def close(self) -> None:
         if self._port is not None:

@@ -60,6 +60,7 @@ class InstrumentError(LineproofError):
         if expected:
             parts.append(f"expected {expected}")
         super().__init__("; ".join(parts))
+        self.problem = message
         self.resource = resource
         self.command = command
         self.expected = expected

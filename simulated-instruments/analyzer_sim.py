@@ -1,22 +1,42 @@
 """The instrument model of a simulated analyzer: hidden error terms, noise, what sits on
 each port, and the sweep that turns the truth into raw receiver data.
 
-No transport here: :mod:`.scpi_analyzer` serves this model over TCP.  Every public method
-takes the model's lock, because the SCPI server and the bench control channel run in
-different threads.
+Three models (``AnalyzerSimulationSettings.model``):
+
+- ``reflection`` -- one port, S11 only (three-term model);
+- ``forward`` -- two ports, one path: port 1 drives, port 2 only receives, so a sweep gives
+  S11 and S21; the reverse parameters are measured by turning the device around;
+- ``full`` -- two ports, both drive in turn: S11, S21 (forward) and S22, S12 (reverse), six
+  terms per direction (the twelve-term model).
+
+No transport here: :mod:`.scpi_analyzer` and :mod:`.serial_analyzer` serve this model.
+Every public method takes the model's lock, because the servers and the bench control
+channel run in different threads.
 """
 
 from __future__ import annotations
 
 import threading
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 
 from lineproof.simulators import physics
-from lineproof.simulators.error_model import OnePortTerms, PortErrorModel, PortErrorSettings
+from lineproof.simulators.error_model import (
+    MODEL_DIRECTIONS,
+    MODEL_PARAMETERS,
+    AnalyzerErrorModel,
+    DirectionTerms,
+    OnePortTerms,
+    PortErrorSettings,
+    freeze,
+)
 from lineproof.simulators.objects import BenchObject
+from lineproof.simulators.wiring import Attachment, PortWiring
+
+#: Grids whose terms are kept (a run uses a handful: its sweep, the truth requests).
+_CACHE_LIMIT = 16
 
 
 @dataclass(frozen=True)
@@ -24,6 +44,8 @@ class AnalyzerSimulationSettings:
     """What a scenario may set for one simulated analyzer."""
 
     identity: str = "Tarnmoor Instruments,SIM-R1 reflectometer (simulated),SIM0001,1.0"
+    #: "reflection" (one port), "forward" (two-port, one path) or "full" (two-port).
+    model: str = "reflection"
     ports: int = 1
     frequency_min_hz: float = 1e6
     frequency_max_hz: float = 3e9
@@ -34,39 +56,38 @@ class AnalyzerSimulationSettings:
     trace_noise: float = 2e-5
     #: Largest random reflection added at each (re)connection of a connector, at 1 GHz.
     connection_repeatability: float = 0.0
-    #: Sweep time = points * (1/IFBW + per_point) + overhead, times ``time_scale``.
+    #: Sweep time = points * (1/IFBW + per_point) + overhead per direction, times ``time_scale``.
     per_point_s: float = 20e-6
     sweep_overhead_s: float = 0.005
     time_scale: float = 0.0
     seed: int = 1
     port_settings: tuple[PortErrorSettings, ...] = (PortErrorSettings(),)
 
+    @property
+    def parameters(self) -> tuple[str, ...]:
+        return MODEL_PARAMETERS[self.model]
 
-@dataclass
-class Connection:
-    """What an operator (or a switch) connected to a port."""
-
-    thing: BenchObject
-    output: BenchObject | None
-    connection_reflection: complex
-    connected_at: float = field(default_factory=time.monotonic)
+    @property
+    def directions(self) -> tuple[str, ...]:
+        return MODEL_DIRECTIONS[self.model]
 
 
 class SimulatedAnalyzer:
-    """A reflection (one-port) analyzer model; two-port models extend it."""
+    """An analyzer model of any of the three kinds."""
 
     def __init__(self, settings: AnalyzerSimulationSettings) -> None:
+        if settings.ports != (1 if settings.model == "reflection" else 2):
+            raise ValueError(f"a {settings.model!r} analyzer cannot have {settings.ports} ports")
         self.settings = settings
         self.lock = threading.RLock()
         self._rng = np.random.default_rng(settings.seed)
         self._connection_rng = np.random.default_rng(settings.seed + 1)
-        self.port_models = [
-            PortErrorModel(port, settings.seed * 100 + index)
-            for index, port in enumerate(settings.port_settings)
-        ]
+        self.error_model = AnalyzerErrorModel(settings.model, settings.port_settings, settings.seed)
+        self.wiring = PortWiring(settings.ports)
         self.noise_enabled = True
-        self.connections: dict[int, Connection] = {}
-        self._terms_cache: dict[tuple[int, float, float, int], OnePortTerms] = {}
+        self.sweeps_done = 0
+        self.busy_seconds = 0.0
+        self._terms_cache: dict[tuple[float, float, int], dict[str, DirectionTerms]] = {}
         self.reset()
 
     # -- state ------------------------------------------------------------------------
@@ -76,72 +97,111 @@ class SimulatedAnalyzer:
         with self.lock:
             self.start_hz = max(self.settings.frequency_min_hz, 100e6)
             self.stop_hz = min(self.settings.frequency_max_hz, 1e9)
-            self.points = 201
+            self.points = min(201, self.settings.max_points)
             self.if_bandwidth_hz = 1000.0
             self.power_dbm = 0.0
             self.parameter = "S11"
             self.traces: dict[str, np.ndarray] = {}
             self.trace_frequencies = np.empty(0)
             self.busy_until = 0.0
-            self.sweeps_done = 0
-            self.busy_seconds = 0.0
+            self.last_sweep_s = 0.0
 
     def frequencies(self) -> np.ndarray:
         with self.lock:
             return np.linspace(self.start_hz, self.stop_hz, self.points)
 
     def sweep_duration_s(self) -> float:
+        """Simulated duration of one sweep of every direction the model measures."""
         s = self.settings
-        return self.points * (1.0 / self.if_bandwidth_hz + s.per_point_s) + s.sweep_overhead_s
+        one_direction = self.points * (1.0 / self.if_bandwidth_hz + s.per_point_s) + s.sweep_overhead_s
+        return one_direction * len(s.directions)
 
     # -- ports --------------------------------------------------------------------------
 
-    def connect(self, port: int, thing: BenchObject, output: BenchObject | None = None) -> None:
-        """Put ``thing`` on ``port``; a two-port's output sees ``output`` (None = open end
-        is refused: a two-port needs something on its output)."""
-        if port < 1 or port > self.settings.ports:
-            raise ValueError(f"port {port} does not exist (the analyzer has {self.settings.ports})")
-        if thing.ports == 2 and output is None:
-            raise ValueError(f"{thing.name} is a two-port: say what terminates its output")
-        if thing.ports == 1 and output is not None:
-            raise ValueError(f"{thing.name} is a one-port: it has no output to terminate")
-        if output is not None and output.ports != 1:
-            raise ValueError(f"{output.name} cannot terminate an output: it is not a one-port")
-        with self.lock:
-            rho = self._connection_rng.uniform(0, self.settings.connection_repeatability)
-            phase = self._connection_rng.uniform(0, 2 * np.pi)
-            self.connections[port] = Connection(thing, output, complex(rho * np.exp(1j * phase)))
+    def _check_port(self, port: int, what: str = "port") -> None:
+        if not isinstance(port, int) or not 1 <= port <= self.settings.ports:
+            raise ValueError(f"{what} {port!r} does not exist (the analyzer has {self.settings.ports} "
+                             f"port{'s' if self.settings.ports > 1 else ''})")
 
-    def disconnect(self, port: int) -> None:
+    def connect(self, port: int, thing: BenchObject, output: BenchObject | None = None,
+                output_port: int | None = None, reversed: bool = False,
+                paths: dict[int, BenchObject] | None = None, repeatability: float | None = None,
+                source: str = "operator") -> Attachment:
+        """Put ``thing`` on ``port``.  A two-port's output sees ``output`` (a one-port) or
+        analyzer port ``output_port``; ``reversed`` turns it around.  Every connector mated
+        here gets a fresh random reflection of at most ``repeatability`` (the scenario's
+        connection repeatability unless given)."""
+        self._check_port(port)
+        if thing.ports == 1 and (output is not None or output_port is not None or reversed):
+            raise ValueError(f"{thing.name} is a one-port: it has no output to terminate or turn around")
+        if thing.ports == 2:
+            if (output is None) == (output_port is None):
+                raise ValueError(f"{thing.name} is a two-port: say what its output goes to "
+                                 f"(a termination or port:2), once")
+            if output is not None and output.ports != 1:
+                raise ValueError(f"{output.name} cannot terminate an output: it is not a one-port")
+            if output_port is not None:
+                self._check_port(output_port, "output port")
+                if output_port == port:
+                    raise ValueError("a two-port's output cannot go back to the port it is on")
+        attachment = Attachment(thing, port, output, output_port, bool(reversed), paths=dict(paths or {}),
+                                source=source)
+        limit = self.settings.connection_repeatability if repeatability is None else repeatability
         with self.lock:
-            self.connections.pop(port, None)
+            for p in attachment.ports():
+                rho = self._connection_rng.uniform(0, limit)
+                phase = self._connection_rng.uniform(0, 2 * np.pi)
+                attachment.links[p] = complex(rho * np.exp(1j * phase))
+            self.wiring.attach(attachment)
+        return attachment
+
+    def disconnect(self, port: int) -> Attachment | None:
+        self._check_port(port)
+        with self.lock:
+            return self.wiring.detach(port)
 
     def true_reflection(self, port: int, frequencies_hz: np.ndarray) -> np.ndarray:
         """The reflection a perfect analyzer would see at ``port``'s reference plane."""
+        self._check_port(port)
         with self.lock:
-            connection = self.connections.get(port)
-        f = np.asarray(frequencies_hz, dtype=float)
-        if connection is None:
-            return np.ones(f.shape, dtype=complex)  # an open test port
-        gamma = connection.thing.response(f)
-        if connection.thing.ports == 2:
-            gamma = physics.terminated_input(gamma, connection.output.response(f))
-        c = connection.connection_reflection * (f / 1e9)
-        if np.any(c):
-            # A connector interface as a small symmetric step: S11 = c, S22 = -c, S21 S12 = 1 - c².
-            gamma = c + (1 - c * c) * gamma / (1 + c * gamma)
-        return gamma
+            return self.wiring.reflection(port, np.asarray(frequencies_hz, dtype=float))
 
-    def port_terms(self, port: int, frequencies_hz: np.ndarray) -> OnePortTerms:
+    def true_network(self, frequencies_hz: np.ndarray) -> np.ndarray:
+        """The true S-parameters between the reference planes: (N, 2, 2) for a two-port
+        analyzer, (N,) for a reflection analyzer."""
         f = np.asarray(frequencies_hz, dtype=float)
-        key = (port, float(f[0]), float(f[-1]), f.size)
+        with self.lock:
+            if self.settings.ports == 1:
+                return self.wiring.reflection(1, f)
+            return self.wiring.between_planes(f)
+
+    # -- error terms --------------------------------------------------------------------
+
+    def _base_terms(self, f: np.ndarray) -> dict[str, DirectionTerms]:
+        key = (float(f[0]), float(f[-1]), f.size)
         terms = self._terms_cache.get(key)
         if terms is None:
-            terms = self.port_models[port - 1].terms(f)
-            if len(self._terms_cache) > 16:
+            terms = {d: freeze(t) for d, t in self.error_model.terms(f).items()}
+            if len(self._terms_cache) >= _CACHE_LIMIT:
                 self._terms_cache.clear()
             self._terms_cache[key] = terms
         return terms
+
+    def direction_terms(self, frequencies_hz: np.ndarray) -> dict[str, DirectionTerms]:
+        """The current hidden terms of every direction the model sweeps."""
+        f = np.asarray(frequencies_hz, dtype=float)
+        with self.lock:
+            return self._base_terms(f)
+
+    def port_terms(self, port: int, frequencies_hz: np.ndarray) -> OnePortTerms:
+        """The three one-port terms of ``port`` (those of the direction it drives)."""
+        self._check_port(port)
+        direction = "forward" if port == 1 else "reverse"
+        terms = self.direction_terms(frequencies_hz)
+        if direction not in terms:
+            raise ValueError(f"port {port} of a {self.settings.model!r} analyzer never drives: it has no "
+                             f"one-port terms (turn the device around and measure at port 1)")
+        return terms[direction].one_port()
 
     # -- sweeping -------------------------------------------------------------------------
 
@@ -154,17 +214,28 @@ class SimulatedAnalyzer:
         noise = self._rng.standard_normal((2, raw.size))
         return raw + sigma * (noise[0] + 1j * noise[1])
 
+    def raw_traces(self, f: np.ndarray) -> dict[str, np.ndarray]:
+        """Noise-free raw traces of every parameter the model measures, on ``f``."""
+        terms = self.direction_terms(f)
+        if self.settings.model == "reflection":
+            network = physics.diagonal_s(self.wiring.reflection(1, f), np.zeros(f.shape, dtype=complex))
+        else:
+            network = self.wiring.between_planes(f)
+        s11, s21 = terms["forward"].measure(network)
+        traces = {"S11": s11, "S21": s21}
+        if "reverse" in terms:
+            s22, s12 = terms["reverse"].measure(physics.reverse_s(network))
+            traces.update(S22=s22, S12=s12)
+        return {name: traces[name] for name in self.settings.parameters}
+
     def sweep(self) -> float:
         """Take one sweep of every parameter; returns its simulated duration (s)."""
         with self.lock:
             f = self.frequencies()
-            traces = {}
-            for port in range(1, self.settings.ports + 1):
-                gamma = self.true_reflection(port, f)
-                traces[f"S{port}{port}"] = self._noise(self.port_terms(port, f).apply(gamma))
-            self.traces = traces
+            self.traces = {name: self._noise(raw) for name, raw in self.raw_traces(f).items()}
             self.trace_frequencies = f
             duration = self.sweep_duration_s()
+            self.last_sweep_s = duration
             self.busy_until = time.monotonic() + duration * self.settings.time_scale
             self.sweeps_done += 1
             self.busy_seconds += duration * self.settings.time_scale

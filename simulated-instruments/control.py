@@ -1,21 +1,35 @@
 """The bench control channel: JSON lines over a TCP socket on 127.0.0.1 only.
 
 A scenario, a simulated operator or a test sends one JSON object per line and gets one
-JSON object back.  Requests (``"op"`` and its fields):
+JSON object back.  Every request has ``"op"``; requests about an analyzer may name it with
+``"instrument"`` (default ``"analyzer"``).  A grid, where one is taken, is ``start_hz``,
+``stop_hz`` and ``points`` (default: the analyzer's current sweep).
 
-- ``{"op": "objects"}`` -> ``{"ok": true, "objects": [{"name", "kind", "ports", "description"}...]}``
-- ``{"op": "devices"}`` -> ``{"ok": true, "devices": [[serial, model], ...]}``
-- ``{"op": "connect", "port": 1, "object": "load", "output": null}`` -> ``{"ok": true}``
-- ``{"op": "disconnect", "port": 1}``
-- ``{"op": "truth", "port": 1, "start_hz": ..., "stop_hz": ..., "points": ...}`` -> the true
-  reflection at the port's reference plane: ``{"ok": true, "re": [...], "im": [...]}``
-  (grid defaults to the analyzer's current sweep)
-- ``{"op": "error_terms", "port": 1, ...grid...}`` -> ``{"ok": true, "terms": {name: {"re", "im"}}}``
-- ``{"op": "set", "noise": false}`` -> switch trace noise off or on
-- ``{"op": "status"}`` -> sweeps done and summed busy time
+- ``objects`` -> ``{"objects": [{"name", "kind", "ports", "description"}, ...]}``
+- ``devices`` -> ``{"devices": [[serial, model], ...]}``
+- ``connect {port, object, output, reversed}``: ``output`` is a one-port's name that
+  terminates a two-port's output, or ``"port:2"`` to put the output on analyzer port 2;
+  ``reversed: true`` turns the two-port around (its port 2 faces ``port``).
+- ``disconnect {port}``
+- ``truth {port, grid}`` -> ``{"re", "im"}``: the true reflection at the port's reference
+  plane (for a two-port joining two ports: with a perfect match at the other plane).
+- ``truth_s {object | port, grid}`` -> ``{"s": {"s11": {"re", "im"}, ...}}``: an object's own
+  S-parameters, or (``port``) the true network between the analyzer's reference planes
+  (``s11`` only on a reflection analyzer).
+- ``error_terms {port | direction, grid}`` -> ``{"model", "terms": {name: {"re", "im"}}}``:
+  ``port`` gives the three one-port terms of the direction that port drives; ``direction``
+  (``"forward"``: port 1 drives, ``"reverse"``: port 2 drives) gives all six of the
+  twelve-term model (three on a reflection analyzer).
+- ``set {noise: bool}``
+- ``fault {instrument, kind, count, after, match, ...}`` -> ``{"armed": {...}}``: arm a fault
+  (kinds and fields in :mod:`.faults`; ``instrument`` is ``analyzer``, ``switch``, ...)
+- ``faults {instrument}`` -> ``{"faults": {name: {"armed", "spent", "fired"}}}``: what is armed
+  and every firing so far, with the command that triggered it
+- ``clear_faults {instrument}``: disarm (and forget) the faults of one or every instrument
+- ``status`` -> sweeps done and summed busy time per analyzer
 
 Errors come back as ``{"ok": false, "error": "<what was wrong and how to fix it>"}``; the
-connection stays open.
+connection stays open.  Unknown fields are refused, so a misspelt field is never ignored.
 """
 
 from __future__ import annotations
@@ -23,15 +37,20 @@ from __future__ import annotations
 import json
 import socket
 import socketserver
+from collections.abc import Callable
 from typing import Any
 
 import numpy as np
 
 from lineproof.simulators.analyzer_sim import SimulatedAnalyzer
+from lineproof.simulators.faults import FaultPlan, FaultSpecError
 from lineproof.simulators.local_server import LocalServer
+from lineproof.simulators.objects import BenchObject
 from lineproof.simulators.scenario import Scenario
 
 _LINE_LIMIT = 1 << 20
+_GRID_FIELDS = frozenset({"start_hz", "stop_hz", "points"})
+_MAX_GRID_POINTS = 1_000_001
 
 
 class ControlRequestError(Exception):
@@ -39,48 +58,112 @@ class ControlRequestError(Exception):
 
 
 def _complex_payload(values: np.ndarray) -> dict[str, list[float]]:
-    return {"re": values.real.tolist(), "im": values.imag.tolist()}
+    return {"re": np.real(values).tolist(), "im": np.imag(values).tolist()}
+
+
+def _s_payload(s: np.ndarray) -> dict[str, dict[str, list[float]]]:
+    if s.ndim == 1:
+        return {"s11": _complex_payload(s)}
+    return {f"s{i + 1}{j + 1}": _complex_payload(s[:, i, j]) for i in range(2) for j in range(2)}
+
+
+#: The fields each op accepts besides "op" (and "instrument" for analyzer ops).
+_OP_FIELDS: dict[str, frozenset[str]] = {
+    "objects": frozenset(),
+    "devices": frozenset(),
+    "status": frozenset(),
+    "connect": frozenset({"port", "object", "output", "reversed"}),
+    "disconnect": frozenset({"port"}),
+    "truth": frozenset({"port"}) | _GRID_FIELDS,
+    "truth_s": frozenset({"port", "object"}) | _GRID_FIELDS,
+    "error_terms": frozenset({"port", "direction"}) | _GRID_FIELDS,
+    "set": frozenset({"noise"}),
+    # fault: the fields of the fault kind (see faults.py), checked there
+    "fault": frozenset({"kind", "count", "after", "match", "seconds", "bytes", "code", "text"}),
+    "faults": frozenset(),
+    "clear_faults": frozenset(),
+}
 
 
 class BenchController:
-    """Executes control requests against a scenario's analyzer and objects."""
+    """Executes control requests against a bench's analyzers and objects."""
 
-    def __init__(self, scenario: Scenario, analyzer: SimulatedAnalyzer) -> None:
+    def __init__(self, scenario: Scenario, analyzers: dict[str, SimulatedAnalyzer] | SimulatedAnalyzer,
+                 faults: dict[str, FaultPlan] | None = None) -> None:
         self.scenario = scenario
-        self.analyzer = analyzer
+        self.analyzers = analyzers if isinstance(analyzers, dict) else {"analyzer": analyzers}
+        self.faults = faults or {}
+        self._ops: dict[str, Callable[[dict[str, Any]], dict[str, Any]]] = {
+            name: getattr(self, f"_op_{name}") for name in _OP_FIELDS
+        }
+
+    @property
+    def analyzer(self) -> SimulatedAnalyzer:
+        return next(iter(self.analyzers.values()))
 
     def handle(self, request: Any) -> dict[str, Any]:
         if not isinstance(request, dict) or not isinstance(request.get("op"), str):
-            raise ControlRequestError('a request is a JSON object with an "op" string')
-        handler = getattr(self, f"_op_{request['op']}", None)
-        if handler is None:
-            ops = sorted(name[4:] for name in dir(self) if name.startswith("_op_"))
-            raise ControlRequestError(f"unknown op {request['op']!r}; use one of {', '.join(ops)}")
-        return {"ok": True, **handler(request)}
+            raise ControlRequestError('a request is a JSON object with an "op" string, e.g. {"op": "status"}')
+        op = request["op"]
+        if op not in self._ops:
+            raise ControlRequestError(f"unknown op {op!r}; use one of {', '.join(sorted(self._ops))}")
+        unknown = set(request) - {"op", "instrument"} - _OP_FIELDS[op]
+        if unknown:
+            allowed = ", ".join(sorted(_OP_FIELDS[op] | {"instrument"})) or "none"
+            raise ControlRequestError(f"{op}: unknown field {sorted(unknown)[0]!r}; its fields are: {allowed}")
+        try:
+            return {"ok": True, **self._ops[op](request)}
+        except ValueError as exc:  # the model refuses (e.g. a Touchstone object asked off its grid)
+            raise ControlRequestError(f"{op}: {exc}") from exc
 
-    def _object(self, name: Any, field: str) -> Any:
-        if name is None:
-            return None
+    # -- request fields -------------------------------------------------------------------
+
+    def _instrument(self, request: dict[str, Any]) -> SimulatedAnalyzer:
+        name = request.get("instrument", "analyzer")
+        if name not in self.analyzers:
+            raise ControlRequestError(f"instrument: no analyzer named {name!r} on this bench; "
+                                      f"use one of {', '.join(self.analyzers)}")
+        return self.analyzers[name]
+
+    def _object(self, name: Any, field: str) -> BenchObject:
         if not isinstance(name, str) or name not in self.scenario.objects:
             raise ControlRequestError(f"{field}: no object named {name!r} on this bench (ask op=objects)")
         return self.scenario.objects[name]
 
-    def _port(self, request: dict[str, Any]) -> int:
-        port = request.get("port", 1)
-        if not isinstance(port, int) or not 1 <= port <= self.analyzer.settings.ports:
-            raise ControlRequestError(f"port must be 1..{self.analyzer.settings.ports}, got {port!r}")
+    def _port(self, request: dict[str, Any], analyzer: SimulatedAnalyzer, field: str = "port") -> int:
+        port = request.get(field, 1)
+        ports = analyzer.settings.ports
+        if not isinstance(port, int) or isinstance(port, bool) or not 1 <= port <= ports:
+            raise ControlRequestError(f"{field} must be an integer 1..{ports}, got {port!r}")
         return port
 
-    def _grid(self, request: dict[str, Any]) -> np.ndarray:
-        if "points" not in request:
-            return self.analyzer.frequencies()
-        try:
-            start, stop, points = float(request["start_hz"]), float(request["stop_hz"]), int(request["points"])
-        except (KeyError, TypeError, ValueError) as exc:
-            raise ControlRequestError("a grid needs start_hz, stop_hz and points") from exc
-        if not (0 < start <= stop and 1 <= points <= 1_000_001):
-            raise ControlRequestError("a grid needs 0 < start_hz <= stop_hz and 1 <= points <= 1000001")
-        return np.linspace(start, stop, points)
+    def _grid(self, request: dict[str, Any], analyzer: SimulatedAnalyzer) -> np.ndarray:
+        given = _GRID_FIELDS & set(request)
+        if not given:
+            return analyzer.frequencies()
+        if given != _GRID_FIELDS:
+            raise ControlRequestError("a grid needs all of start_hz, stop_hz and points")
+        start, stop, points = request["start_hz"], request["stop_hz"], request["points"]
+        if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (start, stop)) \
+                or not isinstance(points, int) or isinstance(points, bool):
+            raise ControlRequestError("start_hz and stop_hz must be numbers, points an integer")
+        if not (0 < start <= stop and 1 <= points <= _MAX_GRID_POINTS):
+            raise ControlRequestError(f"a grid needs 0 < start_hz <= stop_hz and 1 <= points <= {_MAX_GRID_POINTS}")
+        return np.linspace(float(start), float(stop), points)
+
+    def _output(self, request: dict[str, Any], analyzer: SimulatedAnalyzer) -> tuple[BenchObject | None, int | None]:
+        output = request.get("output")
+        if output is None:
+            return None, None
+        if isinstance(output, str) and output.lower().startswith("port:"):
+            try:
+                port = int(output[5:])
+            except ValueError:
+                raise ControlRequestError(f"output {output!r}: write port:<number>, e.g. port:2") from None
+            return None, self._port({"output port": port}, analyzer, "output port")
+        return self._object(output, "output"), None
+
+    # -- ops ------------------------------------------------------------------------------
 
     def _op_objects(self, request: dict[str, Any]) -> dict[str, Any]:
         return {"objects": [
@@ -92,49 +175,120 @@ class BenchController:
         return {"devices": [list(d) for d in self.scenario.devices]}
 
     def _op_connect(self, request: dict[str, Any]) -> dict[str, Any]:
+        analyzer = self._instrument(request)
+        if request.get("object") is None:
+            raise ControlRequestError("connect needs an object name (ask op=objects)")
         thing = self._object(request.get("object"), "object")
-        if thing is None:
-            raise ControlRequestError("connect needs an object name")
-        output = self._object(request.get("output"), "output")
+        output, output_port = self._output(request, analyzer)
+        reversed_ = request.get("reversed", False)
+        if not isinstance(reversed_, bool):
+            raise ControlRequestError("reversed must be true or false")
         try:
-            self.analyzer.connect(self._port(request), thing, output)
+            analyzer.connect(self._port(request, analyzer), thing, output, output_port, reversed_)
         except ValueError as exc:
             raise ControlRequestError(str(exc)) from exc
         return {}
 
     def _op_disconnect(self, request: dict[str, Any]) -> dict[str, Any]:
-        self.analyzer.disconnect(self._port(request))
+        analyzer = self._instrument(request)
+        analyzer.disconnect(self._port(request, analyzer))
         return {}
 
     def _op_truth(self, request: dict[str, Any]) -> dict[str, Any]:
-        return _complex_payload(self.analyzer.true_reflection(self._port(request), self._grid(request)))
+        analyzer = self._instrument(request)
+        return _complex_payload(analyzer.true_reflection(self._port(request, analyzer), self._grid(request, analyzer)))
+
+    def _op_truth_s(self, request: dict[str, Any]) -> dict[str, Any]:
+        analyzer = self._instrument(request)
+        grid = self._grid(request, analyzer)
+        if ("object" in request) == ("port" in request):
+            raise ControlRequestError("truth_s needs either object (an object's own S-parameters) or port "
+                                      "(the network between the analyzer's reference planes)")
+        if "object" in request:
+            thing = self._object(request["object"], "object")
+            try:
+                return {"s": _s_payload(thing.response(grid))}
+            except ValueError as exc:
+                raise ControlRequestError(str(exc)) from exc
+        self._port(request, analyzer)
+        return {"s": _s_payload(analyzer.true_network(grid))}
 
     def _op_error_terms(self, request: dict[str, Any]) -> dict[str, Any]:
-        terms = self.analyzer.port_terms(self._port(request), self._grid(request))
-        return {"terms": {name: _complex_payload(value) for name, value in terms.as_dict().items()}}
+        analyzer = self._instrument(request)
+        model = analyzer.settings.model
+        if "direction" in request:
+            if "port" in request:
+                raise ControlRequestError("error_terms takes port or direction, not both")
+            direction = request["direction"]
+            terms = analyzer.direction_terms(self._grid(request, analyzer))
+            if direction not in terms:
+                raise ControlRequestError(f"direction must be one of {', '.join(terms)} on a {model!r} analyzer, "
+                                          f"got {direction!r}")
+            named = terms[direction].as_dict(one_port=model == "reflection")
+        else:
+            try:
+                named = analyzer.port_terms(self._port(request, analyzer), self._grid(request, analyzer)).as_dict()
+            except ValueError as exc:
+                raise ControlRequestError(str(exc)) from exc
+        return {"model": model, "terms": {name: _complex_payload(value) for name, value in named.items()}}
 
     def _op_set(self, request: dict[str, Any]) -> dict[str, Any]:
         if "noise" in request:
             if not isinstance(request["noise"], bool):
                 raise ControlRequestError("noise must be true or false")
-            self.analyzer.noise_enabled = request["noise"]
+            self._instrument(request).noise_enabled = request["noise"]
+        return {}
+
+    def _fault_plan(self, request: dict[str, Any]) -> FaultPlan:
+        name = request.get("instrument", "analyzer")
+        if name not in self.faults:
+            raise ControlRequestError(f"instrument: no instrument named {name!r} on this bench; "
+                                      f"use one of {', '.join(self.faults) or 'none'}")
+        return self.faults[name]
+
+    def _op_fault(self, request: dict[str, Any]) -> dict[str, Any]:
+        plan = self._fault_plan(request)
+        try:
+            fault = plan.arm(request)
+        except FaultSpecError as exc:
+            raise ControlRequestError(str(exc)) from exc
+        return {"armed": fault.describe()}
+
+    def _op_faults(self, request: dict[str, Any]) -> dict[str, Any]:
+        if "instrument" in request:
+            return {"faults": {request["instrument"]: self._fault_plan(request).describe()}}
+        return {"faults": {name: plan.describe() for name, plan in self.faults.items()}}
+
+    def _op_clear_faults(self, request: dict[str, Any]) -> dict[str, Any]:
+        plans = [self._fault_plan(request)] if "instrument" in request else list(self.faults.values())
+        for plan in plans:
+            plan.clear()
         return {}
 
     def _op_status(self, request: dict[str, Any]) -> dict[str, Any]:
-        return {"sweeps": self.analyzer.sweeps_done, "busy_seconds": self.analyzer.busy_seconds}
+        analyzer = self._instrument(request)
+        return {"sweeps": analyzer.sweeps_done, "busy_seconds": analyzer.busy_seconds,
+                "analyzers": {name: {"model": a.settings.model, "sweeps": a.sweeps_done}
+                              for name, a in self.analyzers.items()}}
 
 
 class _ControlHandler(socketserver.StreamRequestHandler):
     def handle(self) -> None:
         controller: BenchController = self.server.context  # type: ignore[attr-defined]
         while True:
-            line = self.rfile.readline(_LINE_LIMIT)
+            try:
+                line = self.rfile.readline(_LINE_LIMIT)
+            except OSError:
+                return
             if not line:
                 return
             try:
                 reply = controller.handle(json.loads(line))
             except json.JSONDecodeError as exc:
-                reply = {"ok": False, "error": f"not JSON ({exc.msg} at column {exc.colno})"}
+                reply = {"ok": False, "error": f"not JSON ({exc.msg} at column {exc.colno}); "
+                                               'send one JSON object per line, e.g. {"op": "status"}'}
+            except UnicodeDecodeError:
+                reply = {"ok": False, "error": "not UTF-8 text; send one JSON object per line"}
             except ControlRequestError as exc:
                 reply = {"ok": False, "error": str(exc)}
             try:
@@ -161,6 +315,7 @@ class BenchControlClient:
         self._reader = self._socket.makefile("rb")
 
     def request(self, op: str, **fields: Any) -> dict[str, Any]:
+        """Send one request; raises :class:`ControlRequestError` with the bench's message."""
         self._socket.sendall(json.dumps({"op": op, **fields}).encode() + b"\n")
         line = self._reader.readline(_LINE_LIMIT * 64)
         if not line:
@@ -170,12 +325,27 @@ class BenchControlClient:
             raise ControlRequestError(reply.get("error", "unknown error"))
         return reply
 
-    def connect(self, port: int, name: str, output: str | None = None) -> None:
-        self.request("connect", port=port, object=name, output=output)
+    def connect(self, port: int, name: str, output: str | None = None, reversed: bool = False) -> None:
+        """Connect object ``name`` to ``port``; ``output`` terminates a two-port's output
+        (a one-port's name, or ``"port:2"``)."""
+        fields: dict[str, Any] = {"port": port, "object": name, "output": output}
+        if reversed:
+            fields["reversed"] = True
+        self.request("connect", **fields)
 
     def truth(self, port: int = 1, **grid: Any) -> np.ndarray:
         reply = self.request("truth", port=port, **grid)
         return np.array(reply["re"]) + 1j * np.array(reply["im"])
+
+    def truth_s(self, **fields: Any) -> dict[str, np.ndarray]:
+        """``truth_s(object="thru")`` or ``truth_s(port=1)``: named complex arrays."""
+        reply = self.request("truth_s", **fields)["s"]
+        return {name: np.array(v["re"]) + 1j * np.array(v["im"]) for name, v in reply.items()}
+
+    def error_terms(self, **fields: Any) -> dict[str, np.ndarray]:
+        """``error_terms(port=1)`` or ``error_terms(direction="forward")``: named complex arrays."""
+        reply = self.request("error_terms", **fields)["terms"]
+        return {name: np.array(v["re"]) + 1j * np.array(v["im"]) for name, v in reply.items()}
 
     def close(self) -> None:
         self._reader.close()

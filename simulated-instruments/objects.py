@@ -83,6 +83,13 @@ def two_port_from_elements(name: str, elements: Sequence[dict[str, Any]], kind: 
     return BenchObject(name, 2, lambda f: ladder_s(frozen, f), kind, description)
 
 
+def thru(name: str, delay_s: float = 0.0, loss_ohm_per_s: float = 0.0, impedance_ohm: float = physics.Z_REF,
+         description: str = "") -> BenchObject:
+    """A thru standard: a flush thru (delay 0) or a short lossy line."""
+    return BenchObject(name, 2, lambda f: physics.abcd_to_s(physics.line(f, impedance_ohm, delay_s, loss_ohm_per_s)),
+                       "thru", description or ("flush thru" if delay_s == 0 else f"thru line of {delay_s * 1e12:g} ps"))
+
+
 # -- terminations and standards ------------------------------------------------------------
 
 def termination(name: str, resistance_ohm: float, series_inductance_h: float = 0.0,

@@ -106,3 +106,44 @@ def terminate_abcd_open(abcd: np.ndarray, z_end: np.ndarray | None, z0: float = 
 
 def vswr_to_reflection(vswr: float | np.ndarray) -> float | np.ndarray:
     return (np.asarray(vswr) - 1.0) / (np.asarray(vswr) + 1.0)
+
+
+def cascade_s(first: np.ndarray, second: np.ndarray) -> np.ndarray:
+    """S-parameters (N, 2, 2) of two two-ports in cascade, port 2 of ``first`` joined to
+    port 1 of ``second``.  Solved from the signal-flow graph of the junction (the waves that
+    bounce between ``first``'s S22 and ``second``'s S11 sum to a geometric series); unlike the
+    ABCD route it also holds for blocks with no transmission."""
+    a11, a12, a21, a22 = first[..., 0, 0], first[..., 0, 1], first[..., 1, 0], first[..., 1, 1]
+    b11, b12, b21, b22 = second[..., 0, 0], second[..., 0, 1], second[..., 1, 0], second[..., 1, 1]
+    loop = 1.0 / (1.0 - a22 * b11)
+    out = np.empty(np.broadcast_shapes(first.shape, second.shape), dtype=complex)
+    out[..., 0, 0] = a11 + a12 * b11 * a21 * loop
+    out[..., 0, 1] = a12 * b12 * loop
+    out[..., 1, 0] = a21 * b21 * loop
+    out[..., 1, 1] = b22 + b21 * a22 * b12 * loop
+    return out
+
+
+def reverse_s(s: np.ndarray) -> np.ndarray:
+    """The same two-port turned around (its port 2 becomes port 1)."""
+    return s[..., ::-1, ::-1]
+
+
+def connector_step(reflection: np.ndarray) -> np.ndarray:
+    """A connector interface as a small symmetric step: S11 = c, S22 = -c,
+    S21 = S12 = sqrt(1 - c²) (a lossless impedance step, Pozar §2.3, to first order)."""
+    c = np.asarray(reflection, dtype=complex)
+    step = np.empty(c.shape + (2, 2), dtype=complex)
+    step[..., 0, 0] = c
+    step[..., 1, 1] = -c
+    step[..., 0, 1] = step[..., 1, 0] = np.sqrt(1.0 - c * c)
+    return step
+
+
+def diagonal_s(gamma_1: np.ndarray, gamma_2: np.ndarray) -> np.ndarray:
+    """Two unrelated one-ports seen as one two-port with no transmission."""
+    g1 = np.asarray(gamma_1, dtype=complex)
+    s = np.zeros(g1.shape + (2, 2), dtype=complex)
+    s[..., 0, 0] = g1
+    s[..., 1, 1] = gamma_2
+    return s

@@ -18,7 +18,7 @@ import numpy as np
 from lineproof.errors import InputError
 from lineproof.simulators import objects as obj
 from lineproof.simulators.analyzer_sim import AnalyzerSimulationSettings
-from lineproof.simulators.error_model import PortErrorSettings
+from lineproof.simulators.error_model import MODEL_DIRECTIONS, PortErrorSettings
 
 
 @dataclass
@@ -31,6 +31,8 @@ class Scenario:
     analyzer: AnalyzerSimulationSettings
     objects: dict[str, obj.BenchObject] = field(default_factory=dict)
     devices: list[tuple[str, str]] = field(default_factory=list)  # (serial, model) in order
+    #: Faults armed when the bench starts ([[faults]] tables; see faults.py).
+    faults: list[dict[str, Any]] = field(default_factory=list)
 
 
 def _require(table: dict[str, Any], key: str, kinds: type | tuple[type, ...], source: str, where: str) -> Any:
@@ -90,6 +92,8 @@ def actual_standards(kit_path: Path, deviation: float, seed: int) -> dict[str, o
                 return 1j * 2 * np.pi * f * (l[0] + l[1] * f + l[2] * f**2 + l[3] * f**3)
 
             made[name] = obj.offset_standard(name, short_end, z_offset, max(delay, 0.0), loss, z0, "short")
+        elif kind == "thru":
+            made[name] = obj.thru(name, max(delay, 0.0), loss, z_offset)
         elif kind == "load":
             return_loss_db = rng.uniform(40.0, 45.0)
             magnitude = deviation * 10 ** (-return_loss_db / 20)
@@ -110,6 +114,15 @@ def _analyzer_settings(table: dict[str, Any], bench: dict[str, Any], source: str
         raise InputError("unknown key", path=source, key=f"analyzer.{sorted(unknown)[0]}",
                          fix=f"use only: {', '.join(sorted(allowed | {'port', 'transport'}))}")
     values = {k: v for k, v in table.items() if k in allowed}
+    model = values.get("model", "reflection" if int(values.get("ports", 1)) == 1 else "full")
+    if model not in MODEL_DIRECTIONS:
+        raise InputError(f"unknown analyzer model {model!r}", path=source, key="analyzer.model",
+                         fix=f"use one of {', '.join(MODEL_DIRECTIONS)}")
+    needed_ports = 1 if model == "reflection" else 2
+    if int(values.get("ports", needed_ports)) != needed_ports:
+        raise InputError(f"a {model!r} analyzer has {needed_ports} port(s), not {values['ports']}",
+                         path=source, key="analyzer.ports", fix=f"set ports = {needed_ports} or leave it out")
+    values.update(model=model, ports=needed_ports)
     values.setdefault("time_scale", float(bench.get("time_scale", 0.0)))
     values.setdefault("seed", int(bench.get("seed", 1)))
     return AnalyzerSimulationSettings(port_settings=tuple(ports), **values)
@@ -124,6 +137,27 @@ def _termination(name: str, table: dict[str, Any], source: str) -> obj.BenchObje
         kind=table.get("kind", "termination"),
         description=table.get("description", ""),
     )
+
+
+def _object(name: str, table: dict[str, Any], path: Path, source: str) -> obj.BenchObject:
+    """One entry of [objects]: a Touchstone file, a thru, a circuit, or a termination."""
+    where = f"objects.{name}"
+    kind = table.get("kind", "object")
+    description = table.get("description", "")
+    if table.get("touchstone"):
+        return obj.touchstone_object(name, str(_resolve(table["touchstone"], path)), kind)
+    if kind == "thru":
+        return obj.thru(name, float(table.get("delay_s", 0.0)), float(table.get("loss_ohm_per_s", 0.0)),
+                        float(table.get("impedance_ohm", 50.0)), description)
+    if "circuit" in table:
+        circuit = _require(table, "circuit", list, source, where)
+        try:
+            made = obj.two_port_from_elements(name, circuit, kind, description)
+            made.response(np.array([1e8, 2e8]))
+        except (KeyError, TypeError, ValueError) as exc:
+            raise InputError(f"bad circuit ({exc})", path=source, key=f"{where}.circuit") from exc
+        return made
+    return _termination(name, table, source)
 
 
 def _population(table: dict[str, Any], rng: np.random.Generator, source: str, index: int) -> list[tuple[str, str, obj.BenchObject]]:
@@ -156,6 +190,13 @@ def _population(table: dict[str, Any], rng: np.random.Generator, source: str, in
     return made
 
 
+def _faults(tables: Any, source: str) -> list[dict[str, Any]]:
+    if not isinstance(tables, list) or not all(isinstance(t, dict) for t in tables):
+        raise InputError("faults must be an array of tables", path=source, key="faults",
+                         fix='write [[faults]] tables, e.g. kind = "drop"')
+    return [dict(t) for t in tables]
+
+
 def load_scenario(path_or_name: str | Path) -> Scenario:
     """Load a scenario file by path, or a shipped one by name (``demo-bench``)."""
     path = Path(path_or_name)
@@ -183,11 +224,8 @@ def load_scenario(path_or_name: str | Path) -> Scenario:
         scenario.objects.update(actual_standards(kit_path, float(standards.get("deviation", 1.0)),
                                                  int(standards.get("seed", seed + 7))))
     for name, table in data.get("objects", {}).items():
-        if table.get("touchstone"):
-            scenario.objects[name] = obj.touchstone_object(name, str(_resolve(table["touchstone"], path)),
-                                                           table.get("kind", "object"))
-        else:
-            scenario.objects[name] = _termination(name, table, source)
+        scenario.objects[name] = _object(name, table, path, source)
+    scenario.faults = _faults(data.get("faults", []), source)
     rng = np.random.default_rng(seed + 13)
     for index, table in enumerate(data.get("populations", [])):
         for serial, model, device in _population(table, rng, source, index):

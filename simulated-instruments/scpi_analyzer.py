@@ -1,21 +1,22 @@
 """The SCPI face of a simulated analyzer, served on a TCP socket on 127.0.0.1.
 
-It answers the IEEE 488.2 common commands, the SCPI error queue and the commands of the
-project's generic SCPI analyzer profile (drivers/profiles/generic-scpi-analyzer.toml).
+It answers the IEEE 488.2 common commands and the SCPI error queue (:mod:`.scpi_server`) and
+the commands of the project's generic SCPI analyzer profile
+(drivers/profiles/generic-scpi-analyzer.toml); PROTOCOLS.md §1 lists them.
 """
 
 from __future__ import annotations
 
 import re
-import socket
-import socketserver
-import threading
 
 import numpy as np
 
 from lineproof.simulators.analyzer_sim import SimulatedAnalyzer
-from lineproof.simulators.local_server import LocalServer
-from lineproof.simulators.scpi import ScpiCommandError, ScpiDispatcher, parse_number, unquote
+from lineproof.simulators.faults import FaultPlan
+from lineproof.simulators.scpi import ScpiCommandError, parse_number, unquote
+from lineproof.simulators.scpi_server import DataReply, ScpiFront, ScpiTcpServer
+
+__all__ = ["AnalyzerScpiFront", "ScpiTcpServer"]
 
 
 def _block(payload: bytes) -> bytes:
@@ -24,32 +25,19 @@ def _block(payload: bytes) -> bytes:
     return b"#" + str(len(length)).encode() + length + payload
 
 
-class AnalyzerScpiFront:
+class AnalyzerScpiFront(ScpiFront):
     """Command handlers binding SCPI headers to a :class:`SimulatedAnalyzer`."""
 
-    def __init__(self, analyzer: SimulatedAnalyzer) -> None:
+    def __init__(self, analyzer: SimulatedAnalyzer, faults: FaultPlan | None = None) -> None:
         self.analyzer = analyzer
-        self.dispatcher = ScpiDispatcher()
         self.data_format = "ASCII"
         self.byte_order = "big"
-        self.event_status = 0
-        #: One program message at a time, whichever client sent it (an instrument has one
-        #: parser); the model's own lock stays free for the bench control channel.
-        self.message_lock = threading.Lock()
+        super().__init__(analyzer.settings.identity, faults)
         self._register()
 
     def _register(self) -> None:
         add = self.dispatcher.add
         a = self.analyzer
-        add("*IDN?", lambda args, sfx: a.settings.identity)
-        add("*RST", lambda args, sfx: self._reset())
-        add("*CLS", lambda args, sfx: self._clear())
-        add("*OPC?", lambda args, sfx: self._opc())
-        add("*OPC", lambda args, sfx: None)
-        add("*WAI", lambda args, sfx: a.wait_idle())
-        add("*ESR?", lambda args, sfx: self._esr())
-        add("*STB?", lambda args, sfx: str(4 if self.dispatcher.errors else 0))
-        add("SYSTem:ERRor[:NEXT]?", lambda args, sfx: self.dispatcher.pop_error())
         add("[SENSe]:FREQuency:STARt", lambda args, sfx: self._set_frequency("start_hz", args))
         add("[SENSe]:FREQuency:STARt?", lambda args, sfx: f"{a.start_hz:.12g}")
         add("[SENSe]:FREQuency:STOP", lambda args, sfx: self._set_frequency("stop_hz", args))
@@ -70,34 +58,21 @@ class AnalyzerScpiFront:
         add("FORMat:BORDer", lambda args, sfx: self._set_byte_order(args))
         add("TRACe[:DATA]?", lambda args, sfx: self._trace(args))
 
-    # -- handlers ---------------------------------------------------------------------------
-
-    def _reset(self) -> None:
+    def reset(self) -> None:
         self.analyzer.reset()
         self.data_format = "ASCII"
         self.byte_order = "big"
 
-    def _clear(self) -> None:
-        self.dispatcher.errors.clear()
-        self.event_status = 0
+    def wait_idle(self) -> None:
+        self.analyzer.wait_idle()
+
+    # -- handlers ---------------------------------------------------------------------------
 
     def _trigger(self) -> None:
-        self.analyzer.sweep()
-
-    def _opc(self) -> str:
-        self.analyzer.wait_idle()
-        return "1"
-
-    def _esr(self) -> str:
-        # IEEE 488.2 §11.5.1: bit 2 query error, 3 device-dependent, 4 execution, 5 command.
-        value = self.event_status
-        for code, _ in self.dispatcher.errors:
-            if -199 <= code <= -100:
-                value |= 32
-            elif -299 <= code <= -200:
-                value |= 16
-        self.event_status = 0
-        return str(value)
+        try:
+            self.analyzer.sweep()
+        except ValueError as exc:  # e.g. a Touchstone object asked outside its file's range
+            raise ScpiCommandError(-221, "Settings conflict") from exc
 
     def _set_frequency(self, attribute: str, args: str) -> None:
         value = parse_number(args)
@@ -133,10 +108,10 @@ class AnalyzerScpiFront:
         if not match:
             raise ScpiCommandError(-224, "Illegal parameter value")
         parameter = match.group(1).upper()
-        ports = self.analyzer.settings.ports
-        if int(parameter[1]) > ports or int(parameter[2]) > ports:
+        if parameter not in self.analyzer.settings.parameters:
             raise ScpiCommandError(-224, "Illegal parameter value")
-        self.analyzer.parameter = parameter
+        with self.analyzer.lock:
+            self.analyzer.parameter = parameter
 
     def _set_format(self, args: str) -> None:
         text = args.replace(" ", "").upper()
@@ -176,47 +151,7 @@ class AnalyzerScpiFront:
         else:
             flat = np.asarray(values, dtype=float)
         if self.data_format == "ASCII":
-            return ",".join(f"{v:.12g}" for v in flat)
+            return DataReply(",".join(f"{v:.12g}" for v in flat.tolist()).encode("ascii"))
         dtype = ">" if self.byte_order == "big" else "<"
         dtype += "f8" if self.data_format == "REAL,64" else "f4"
-        return _block(flat.astype(dtype).tobytes())
-
-
-class _ScpiConnectionHandler(socketserver.StreamRequestHandler):
-    """One client connection: read a line, execute it, write the joined replies."""
-
-    def handle(self) -> None:
-        front: AnalyzerScpiFront = self.server.context  # type: ignore[attr-defined]
-        self.connection.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
-        while True:
-            try:
-                line = self.rfile.readline(1 << 20)
-            except OSError:
-                return
-            if not line:
-                return
-            message = line.rstrip(b"\r\n").decode("ascii", errors="replace")
-            with front.message_lock:
-                replies = front.dispatcher.execute(message)
-            if not replies:
-                continue
-            # IEEE 488.2 §8.4.1: the replies of one program message form one response
-            # message, separated by ';' and ended by the terminator.
-            parts = [r.encode("ascii") if isinstance(r, str) else r for r in replies]
-            try:
-                self.wfile.write(b";".join(parts) + b"\n")
-                self.wfile.flush()
-            except OSError:
-                return
-
-
-class ScpiTcpServer(LocalServer):
-    """Serve a SCPI front on 127.0.0.1 (port 0 = any free port) in a background thread."""
-
-    def __init__(self, front: AnalyzerScpiFront, port: int = 0) -> None:
-        super().__init__(_ScpiConnectionHandler, front, port, name="scpi-server")
-        self.front = front
-
-    @property
-    def visa_resource(self) -> str:
-        return f"TCPIP::127.0.0.1::{self.port}::SOCKET"
+        return DataReply(_block(flat.astype(dtype).tobytes()))

@@ -2,8 +2,9 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from pathlib import Path
+from typing import Any
 
 import pytest
 
@@ -50,6 +51,27 @@ def reflectometer(ideal_bench: SimulatedBench) -> Iterator[ProfiledAnalyzer]:
     analyzer = open_analyzer(ideal_bench.visa_resource, "generic-scpi-reflectometer")
     yield analyzer
     analyzer.close()
+
+
+@pytest.fixture
+def start_bench() -> Iterator[Callable[..., SimulatedBench]]:
+    """Start simulated benches by scenario: a file name in tests/scenarios/ (``"two-port-bench"``)
+    or a shipped scenario's name.  Trace noise is off unless ``noise=True``.  Every bench
+    started is stopped when the test ends."""
+    started: list[SimulatedBench] = []
+
+    def start(name: str, noise: bool = False, **options: Any) -> SimulatedBench:
+        local = SCENARIOS / f"{name}.toml"
+        bench = SimulatedBench(local if local.exists() else name, **options).start()
+        started.append(bench)
+        if not noise:
+            with BenchControlClient(bench.control_address) as client:
+                client.request("set", noise=False)
+        return bench
+
+    yield start
+    for bench in started:
+        bench.stop()
 
 
 SEQUENCES = Path(__file__).parent / "sequences"

@@ -92,3 +92,30 @@ def test_header_parser_never_crashes_on_garbage(data: bytes) -> None:
         return
     if header is not None and header.payload_length is not None:
         assert 0 <= header.payload_length <= 1 << 16
+
+
+@given(st.lists(st.floats(allow_nan=False, allow_infinity=False, width=64), max_size=200),
+       st.sampled_from([",", ", ", " "]))
+def test_number_list_round_trip(values: list[float], separator: str) -> None:
+    # IEEE 488.2 §8.7.2 NR3 numbers written with 17 significant digits round-trip exactly.
+    text = separator.join(f"{v:.17g}" for v in values)
+    np.testing.assert_array_equal(ieee488.parse_number_list(text), np.array(values, dtype=float))
+
+
+@given(st.lists(st.floats(allow_nan=False, allow_infinity=False), min_size=1, max_size=50),
+       st.integers(min_value=0), st.sampled_from(["nan", "inf", "OK", "1.2.3", "", "--1", "1e", "#"]))
+def test_number_list_with_garbage_is_an_error(values: list[float], where: int, junk: str) -> None:
+    items = [f"{v:.17g}" for v in values]
+    items.insert(where % (len(items) + 1), junk)
+    with pytest.raises(CodecError):
+        ieee488.parse_number_list(",".join(items))
+
+
+def test_channel_lists() -> None:
+    # SCPI-1999 Vol 1 §8.3.2 channel lists: "(@1!3)", ranges "1!1:1!4", lists "1!1,2!1".
+    assert ieee488.parse_channel("1!3") == (1, 3)
+    assert ieee488.format_channel_list([(1, 1), (2, 1)]) == "(@1!1,2!1)"
+    assert ieee488.format_channel_ranges(2, 4) == "(@1!1:1!4,2!1:2!4)"
+    for bad in ("3", "1!", "a!b", "1!2!3"):
+        with pytest.raises(CodecError):
+            ieee488.parse_channel(bad)

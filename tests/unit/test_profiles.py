@@ -4,7 +4,14 @@ from __future__ import annotations
 
 import pytest
 
-from lineproof.drivers.profiles import load_analyzer_profile, parse_analyzer_profile, shipped_profile_names
+from lineproof.drivers.profiles import (
+    load_analyzer_profile,
+    load_switch_profile,
+    parse_analyzer_profile,
+    parse_switch_profile,
+    profile_kind,
+    shipped_profile_names,
+)
 from lineproof.errors import InputError
 
 MINIMAL = """
@@ -30,8 +37,12 @@ read_raw = { send = "TRAC? RAW", reply = "block" }
 
 @pytest.mark.parametrize("name", shipped_profile_names())
 def test_shipped_profiles_load(name: str) -> None:
-    profile = load_analyzer_profile(name)
-    assert profile.capabilities.max_points >= 2
+    kind = profile_kind(name)
+    if kind == "switch":
+        assert load_switch_profile(name).capabilities.channels_per_module >= 1
+    else:
+        assert kind == "analyzer"
+        assert load_analyzer_profile(name).capabilities.max_points >= 2
 
 
 def test_variant_inherits_operations_and_overrides_capabilities() -> None:
@@ -71,3 +82,93 @@ def test_bad_profiles_name_the_key(change: tuple[str, str], key: str) -> None:
 def test_unknown_shipped_profile_lists_the_known_ones() -> None:
     with pytest.raises(InputError, match="generic-scpi-analyzer"):
         load_analyzer_profile("no-such-profile")
+
+
+SWITCH = """
+[profile]
+name = "bench-matrix"
+kind = "switch"
+based_on = "generic-scpi-switch"
+[capabilities]
+modules = 2
+channels_per_module = 6
+"""
+
+
+def test_switch_profile_inherits_the_generic_route_commands() -> None:
+    profile = parse_switch_profile(SWITCH, "matrix.toml")
+    assert (profile.capabilities.modules, profile.capabilities.channels_per_module) == (2, 6)
+    assert profile.operation("close_channels").render(channels="(@1!2)") == "ROUTe:CLOSe (@1!2)"
+    assert profile.operation("open_all").idempotent and not profile.operation("reset").idempotent
+
+
+def test_a_switch_profile_is_not_an_analyzer_profile() -> None:
+    with pytest.raises(InputError, match="load it as a switch profile"):
+        parse_analyzer_profile(SWITCH, "matrix.toml")
+
+
+LINE = MINIMAL.replace("[capabilities]", """[link]
+write_termination = "\\r"
+read_termination = "\\r\\n"
+echo = true
+prompt = "S2> "
+error_line = '^\\?(?P<code>\\d+) (?P<text>.*)$'
+baud_rate = 9600
+parity = "E"
+[capabilities]
+data_format = "ASCII"
+parameter_names = { S11 = "s11" }""").replace(
+    'read_raw = { send = "TRAC? RAW", reply = "block" }',
+    'read_raw = { send = "rows raw {parameter}", reply = "rows", columns = ["frequency", "re", "im"] }',
+).replace('trigger = "INIT"', 'trigger = { send = "take", reply = "text", timeout_s = 30 }')
+
+
+def test_line_protocol_profile() -> None:
+    profile = parse_analyzer_profile(LINE, "line.toml")
+    assert profile.link.needs_serial and profile.link.prompt == "S2> " and profile.link.baud_rate == 9600
+    assert profile.capabilities.instrument_name("S11") == "s11"
+    read = profile.operation("read_raw")
+    assert read.columns == ("frequency", "re", "im") and read.render(parameter="s11") == "rows raw s11"
+    assert profile.operation("trigger").timeout_s == 30 and not profile.operation("trigger").idempotent
+
+
+def test_one_set_sweep_replaces_start_stop_points() -> None:
+    text = MINIMAL.replace('set_start = "FREQ:STAR {start_hz:.0f}"\nset_stop = "FREQ:STOP {stop_hz:.0f}"\n'
+                           'set_points = "SWE:POIN {points}"',
+                           'set_sweep = "band {start_hz:.0f} {stop_hz:.0f} {points:d}"')
+    profile = parse_analyzer_profile(text, "x.toml")
+    assert profile.operation("set_sweep").render(start_hz=1e6, stop_hz=2e6, points=11) == "band 1000000 2000000 11"
+    with pytest.raises(InputError, match=r"\[operations.set_points\].*set_sweep"):
+        parse_analyzer_profile(text.replace('set_sweep = "band {start_hz:.0f} {stop_hz:.0f} {points:d}"',
+                                            'set_start = "A {start_hz}"\nset_stop = "B {stop_hz}"'), "x.toml")
+
+
+@pytest.mark.parametrize(
+    ("change", "key"),
+    [
+        (("error_line = '^\\?(?P<code>\\d+) (?P<text>.*)$'", "error_line = '^\\?(\\d+) (.*)$'"), "link.error_line"),
+        (("baud_rate = 9600", "baud_rate = -1"), "link.baud_rate"),
+        (("parity = \"E\"", "parity = \"even\""), "link.parity"),
+        (("prompt = \"S2> \"", "prompt = \"\""), "link.prompt"),
+        (("echo = true", "echo = true\nbell = true"), "link.bell"),
+        (('columns = ["frequency", "re", "im"]', 'columns = ["frequency", "re"]'), "operations.read_raw.columns"),
+        (('columns = ["frequency", "re", "im"]', 'columns = ["f", "re", "im"]'), "operations.read_raw.columns"),
+        (('reply = "rows", columns', 'reply = "block", columns'), "operations.read_raw.columns"),
+        (('timeout_s = 30', 'timeout_s = 0'), "operations.trigger.timeout_s"),
+        (('parameter_names = { S11 = "s11" }', 'parameter_names = { S22 = "s22" }'),
+         "capabilities.parameter_names.S22"),
+    ],
+)
+def test_bad_line_profiles_name_the_key(change: tuple[str, str], key: str) -> None:
+    text = LINE.replace(*change)
+    assert text != LINE
+    with pytest.raises(InputError) as caught:
+        parse_analyzer_profile(text, "line.toml")
+    assert "line.toml" in str(caught.value) and f"[{key}]" in str(caught.value)
+
+
+def test_a_block_reply_cannot_come_over_a_prompted_line() -> None:
+    text = LINE.replace('reply = "rows", columns = ["frequency", "re", "im"]', 'reply = "block"').replace(
+        'data_format = "ASCII"', 'data_format = "REAL,64"')
+    with pytest.raises(InputError, match=r"\[operations.read_raw.reply\].*message framing"):
+        parse_analyzer_profile(text, "line.toml")

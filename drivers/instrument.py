@@ -1,0 +1,81 @@
+"""What the profiled analyzer and switch share: a profile's operations sent over a session,
+identity, reset and the error-queue check after each setting."""
+
+from __future__ import annotations
+
+from lineproof.drivers import ieee488
+from lineproof.drivers.profiles import Operation, Profile
+from lineproof.drivers.session import MessageSession
+from lineproof.errors import InputError, ReplyError
+from lineproof.values import InstrumentIdentity
+
+
+class ProfiledInstrument:
+    """An instrument whose commands come from a profile."""
+
+    def __init__(self, session: MessageSession, profile: Profile) -> None:
+        self.session = session
+        self.profile = profile
+
+    @property
+    def resource(self) -> str:
+        return self.session.resource
+
+    @property
+    def recoveries(self) -> list[str]:
+        """Failures the session recovered from by repeating an idempotent query."""
+        return list(self.session.recoveries)
+
+    def identify(self) -> InstrumentIdentity:
+        """The four IEEE 488.2 §10.14 identity fields (from ``*IDN?`` or the profile's equivalent)."""
+        reply = self._call("identify")
+        try:
+            return ieee488.parse_identity(reply, self.resource)
+        except ieee488.CodecError as exc:
+            raise ReplyError(str(exc), resource=self.resource, command=self._op("identify").send,
+                             expected="maker, model, serial, firmware") from exc
+
+    def reset(self) -> None:
+        """Back to the instrument's power-on settings, with its status cleared."""
+        for name in ("reset", "clear"):
+            if self.profile.operation(name):
+                self._call(name)
+        self._sync(self.profile.timing.command_timeout_s)
+
+    def close(self) -> None:
+        self.session.close()
+
+    def _op(self, name: str) -> Operation:
+        operation = self.profile.operation(name)
+        if operation is None:
+            raise InputError(f"profile has no {name} operation", path=self.profile.source,
+                             key=f"operations.{name}", fix=f"add {name} to [operations]")
+        return operation
+
+    def _call(self, name: str, timeout_s: float | None = None, **values: object) -> str | None:
+        """Send an operation; returns its reply line for the one-line reply kinds."""
+        operation = self._op(name)
+        command = operation.render(**values)
+        timeout = timeout_s or operation.timeout_s or self.profile.timing.command_timeout_s
+        if operation.reply == "none":
+            self.session.send(command, timeout, operation.idempotent)
+            return None
+        return self.session.query(command, timeout, operation.idempotent)
+
+    def _setting(self, name: str, **values: object) -> None:
+        """Apply one setting, if the profile has it, and check the instrument accepted it:
+        draining the error queue after each setting names the command at fault."""
+        if self.profile.operation(name) is None:
+            return
+        self._call(name, **values)
+        self._check_errors(self._op(name).render(**values))
+
+    def _sync(self, timeout_s: float | None = None) -> None:
+        wait = self.profile.operation("wait")
+        if wait is not None:
+            self.session.wait_complete(wait.send, timeout_s or wait.timeout_s or self.profile.timing.command_timeout_s)
+
+    def _check_errors(self, caused_by: str | None = None) -> None:
+        next_error = self.profile.operation("next_error")
+        if next_error is not None:
+            self.session.drain_errors(next_error.send, caused_by=caused_by)

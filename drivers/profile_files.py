@@ -1,0 +1,125 @@
+"""Reading profile files: TOML text, ``based_on`` inheritance from shipped profiles, and a
+typed table reader whose every error names the file, the key and the fix.
+
+The schema itself (which keys mean what) lives in :mod:`.profiles`.
+"""
+
+from __future__ import annotations
+
+import re
+import tomllib
+from collections.abc import Mapping
+from importlib import resources
+from pathlib import Path
+from typing import Any
+
+from lineproof.errors import InputError
+
+
+class TableReader:
+    """Typed access to a parsed TOML table that names file and key in every error."""
+
+    def __init__(self, data: Mapping[str, Any], path: str, prefix: str = "") -> None:
+        self.data = data
+        self.path = path
+        self.prefix = prefix
+
+    def key(self, name: str) -> str:
+        return f"{self.prefix}{name}"
+
+    def error(self, name: str, problem: str, fix: str | None = None) -> InputError:
+        return InputError(problem, path=self.path, key=self.key(name), fix=fix)
+
+    def table(self, name: str, required: bool = True) -> TableReader:
+        value = self.data.get(name)
+        if value is None and not required:
+            return TableReader({}, self.path, f"{self.key(name)}.")
+        if not isinstance(value, dict):
+            raise self.error(name, "missing table" if value is None else "must be a table",
+                             fix=f"add a [{self.key(name)}] table")
+        return TableReader(value, self.path, f"{self.key(name)}.")
+
+    def get(self, name: str, kind: type | tuple[type, ...], default: Any = ..., fix: str = "") -> Any:
+        if name not in self.data:
+            if default is ...:
+                raise self.error(name, "missing key", fix=fix or f"add {name} = ...")
+            return default
+        value = self.data[name]
+        kinds = kind if isinstance(kind, tuple) else (kind,)
+        if float in kinds and isinstance(value, int) and not isinstance(value, bool):
+            value = float(value)
+        if not isinstance(value, kinds) or (isinstance(value, bool) and bool not in kinds):
+            expected = " or ".join(k.__name__ for k in kinds)
+            raise self.error(name, f"must be {expected}, got {type(value).__name__} {value!r}",
+                             fix=fix or f"give {name} as {expected}")
+        return value
+
+    def choice(self, name: str, allowed: tuple[str, ...], default: Any = ..., fix: str = "") -> str:
+        value = self.get(name, str, default)
+        if value not in allowed:
+            raise self.error(name, f"unknown value {value!r}", fix=fix or f"use one of: {', '.join(allowed)}")
+        return value
+
+    def positive(self, name: str, default: Any = ...) -> float:
+        value = self.get(name, float, default)
+        if not value > 0:
+            raise self.error(name, f"must be greater than 0, got {value!r}")
+        return value
+
+    def reject_unknown(self, allowed: set[str] | frozenset[str]) -> None:
+        for name in self.data:
+            if name not in allowed:
+                raise self.error(name, "unknown key", fix=f"remove it or use one of: {', '.join(sorted(allowed))}")
+
+
+def load_toml(text: str, source: str) -> dict[str, Any]:
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML ({exc})", path=source, fix="correct the TOML syntax") from exc
+
+
+def with_base(data: dict[str, Any], source: str, depth: int = 0) -> dict[str, Any]:
+    """Merge a profile over the shipped profile it names in ``profile.based_on``: each
+    table of the base is updated key by key, so a variant states only what differs."""
+    head = data.get("profile")
+    base_name = head.get("based_on") if isinstance(head, dict) else None
+    if base_name is None:
+        return data
+    if not isinstance(base_name, str) or depth > 4:
+        raise InputError("based_on must name one shipped profile (and not form a loop)",
+                         path=source, key="profile.based_on")
+    base_text, base_source = shipped_text(base_name)
+    merged = with_base(load_toml(base_text, base_source), base_source, depth + 1)
+    for table, values in data.items():
+        if isinstance(values, dict) and isinstance(merged.get(table), dict):
+            merged[table] = {**merged[table], **values}
+        else:
+            merged[table] = values
+    merged["profile"].pop("based_on", None)
+    return merged
+
+
+def shipped_profile_names() -> list[str]:
+    folder = resources.files("lineproof.drivers") / "profiles"
+    return sorted(p.name[:-5] for p in folder.iterdir() if p.name.endswith(".toml"))
+
+
+def shipped_text(name: str) -> tuple[str, str]:
+    """Text and display name of a shipped profile."""
+    shipped = resources.files("lineproof.drivers") / "profiles" / f"{name}.toml"
+    if not re.fullmatch(r"[a-z0-9][a-z0-9-]*", name) or not shipped.is_file():
+        raise InputError(f"no shipped profile named {name!r}", key="profile",
+                         fix=f"use one of {', '.join(shipped_profile_names())} or a path to a .toml file")
+    return shipped.read_text(encoding="utf-8"), f"profiles/{name}.toml"
+
+
+def profile_text(name_or_path: str | Path) -> tuple[str, str]:
+    """Text and display name of a shipped profile (by name) or of a profile file (by path)."""
+    path = Path(name_or_path)
+    if path.suffix == ".toml" or path.exists():
+        try:
+            return path.read_text(encoding="utf-8"), str(path)
+        except OSError as exc:
+            raise InputError(f"cannot read profile ({exc.strerror})", path=str(path)) from exc
+    return shipped_text(str(name_or_path))

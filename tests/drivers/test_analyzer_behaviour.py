@@ -1,0 +1,98 @@
+"""One behaviour suite for every transport (``link`` runs each test over each one): what the
+profiled analyzer returns is checked against the simulated bench's hidden truth.
+
+The one-port error model used as the check is the three-term model (Agilent AN 1287-3,
+from memory): Γm = e00 + e10e01·Γ / (1 − e11·Γ).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from links import DriverBench
+
+from lineproof.errors import InputError, InstrumentReported
+from lineproof.values import SweepPlan
+
+PLAN = SweepPlan(100e6, 500e6, 401)
+
+
+def _model_of_truth(link: DriverBench, plan: SweepPlan, port: int = 1) -> np.ndarray:
+    grid = {"start_hz": plan.start_hz, "stop_hz": plan.stop_hz, "points": plan.points}
+    truth = link.control.truth(port, **grid)
+    terms = link.control.request("error_terms", port=port, **grid)["terms"]
+    e = {name: np.array(v["re"]) + 1j * np.array(v["im"]) for name, v in terms.items()}
+    return e["directivity"] + e["reflection_tracking"] * truth / (1 - e["source_match"] * truth)
+
+
+def test_identity(link: DriverBench) -> None:
+    identity = link.analyzer().identify()
+    # ideal-bench.toml: "Tarnmoor Instruments,SIM-R1 reflectometer (simulated),SIM0099,1.0"
+    assert (identity.manufacturer, identity.serial, identity.firmware) == ("Tarnmoor Instruments", "SIM0099", "1.0")
+    assert identity.resource == link.resource
+
+
+def test_raw_trace_is_the_error_model_of_the_truth(link: DriverBench) -> None:
+    analyzer = link.analyzer()
+    link.control.connect(1, "TM150-0002", "good-termination")
+    analyzer.configure(PLAN)
+    sweep = analyzer.measure(["S11"])
+    np.testing.assert_array_equal(sweep.frequencies_hz, PLAN.frequencies())
+    np.testing.assert_allclose(sweep["S11"], _model_of_truth(link, PLAN), atol=1e-9)
+
+
+@pytest.mark.analyzer_settings(max_points=50)
+def test_a_sweep_beyond_max_points_is_segmented_and_stitched_invisibly(link: DriverBench) -> None:
+    analyzer = link.analyzer(capabilities={"max_points": 50})
+    link.control.connect(1, "TM150-0001", "poor-termination")
+    plan = SweepPlan(100e6, 500e6, 401)
+    before = link.control.request("status")["sweeps"]
+    analyzer.configure(plan)
+    sweep = analyzer.measure(["S11"])
+    # 401 points in at most 50 per sweep: ceil(401 / 50) = 9 sweeps of 44 or 45 points.
+    assert link.control.request("status")["sweeps"] - before == 9
+    np.testing.assert_array_equal(sweep.frequencies_hz, plan.frequencies())
+    np.testing.assert_allclose(sweep["S11"], _model_of_truth(link, plan), atol=1e-9)
+    # and the next measurement starts again from the first segment
+    np.testing.assert_allclose(analyzer.measure(["S11"])["S11"], sweep["S11"], atol=1e-9)
+
+
+def test_a_setting_the_instrument_refuses_names_the_command(link: DriverBench) -> None:
+    # The profile claims 6 GHz; the simulated analyzer stops at 3 GHz (ideal-bench.toml).
+    analyzer = link.analyzer(capabilities={"frequency_max_hz": 6e9})
+    with pytest.raises(InstrumentReported) as caught:
+        analyzer.configure(SweepPlan(1e9, 5e9, 11))
+    error = caught.value
+    assert error.resource == link.resource and "5000000000" in error.command
+    assert error.text  # the instrument's own message, e.g. SCPI -222 "Data out of range"
+
+
+def test_measuring_before_configuring_or_an_unknown_parameter_is_refused(link: DriverBench) -> None:
+    analyzer = link.analyzer()
+    with pytest.raises(InputError, match="configure"):
+        analyzer.measure(["S11"])
+    analyzer.configure(SweepPlan(100e6, 200e6, 11))
+    with pytest.raises(InputError, match=r"cannot measure S21"):
+        analyzer.measure(["S21"])
+    with pytest.raises(InputError, match="no corrected data"):
+        analyzer.measure(["S11"], corrected=True)
+
+
+def test_reset_returns_to_power_on_and_asks_for_a_new_configuration(link: DriverBench) -> None:
+    analyzer = link.analyzer()
+    analyzer.configure(SweepPlan(100e6, 200e6, 11))
+    analyzer.reset()
+    with pytest.raises(InputError, match="configure"):
+        analyzer.measure(["S11"])
+    analyzer.configure(PLAN)
+    assert analyzer.measure(["S11"])["S11"].size == PLAN.points
+
+
+@pytest.mark.analyzer_settings(time_scale=1.0)
+def test_the_sweep_timeout_scales_with_the_sweep_not_the_command_timeout(link: DriverBench) -> None:
+    # 201 points at 1 kHz IF bandwidth take 0.2 s plus per-point time (simulated in real
+    # time here); the command timeout of 0.1 s would cut a fixed-timeout wait short.
+    analyzer = link.analyzer(timing={"command_timeout_s": 0.1, "retries": 0})
+    analyzer.configure(SweepPlan(100e6, 200e6, 201, if_bandwidth_hz=1000.0))
+    assert analyzer.measure(["S11"])["S11"].size == 201
+    assert analyzer.recoveries == []
