@@ -101,23 +101,34 @@ class MeasuredSweep:
 
 @dataclass(frozen=True)
 class BandLimit:
-    """A named band with its acceptance limit on input VSWR."""
+    """A named band with its limit set: input VSWR (required; ``math.inf`` for a band with
+    no match limit), and optionally a minimum return loss and a maximum insertion loss."""
 
     name: str
     start_hz: float
     stop_hz: float
     max_vswr: float
+    min_return_loss_db: float | None = None
+    max_insertion_loss_db: float | None = None
 
     def __post_init__(self) -> None:
         if self.stop_hz < self.start_hz:
             raise ValueError(f"band {self.name}: stop below start")
         if not self.max_vswr > 1.0:
             raise ValueError(f"band {self.name}: a VSWR limit must exceed 1.0")
+        if self.min_return_loss_db is not None and not self.min_return_loss_db > 0.0:
+            raise ValueError(f"band {self.name}: a return-loss limit must be above 0 dB")
+        if self.max_insertion_loss_db is not None and not math.isfinite(self.max_insertion_loss_db):
+            raise ValueError(f"band {self.name}: an insertion-loss limit must be a finite number of dB")
 
     @property
     def max_reflection(self) -> float:
-        """The limit as |Γ| (VSWR = (1+|Γ|)/(1-|Γ|))."""
-        return (self.max_vswr - 1.0) / (self.max_vswr + 1.0)
+        """The tightest match limit as |Γ|: from the VSWR limit (|Γ| = (VSWR-1)/(VSWR+1)) and,
+        when given, the return-loss limit (|Γ| = 10^(-RL/20))."""
+        limit = 1.0 if math.isinf(self.max_vswr) else (self.max_vswr - 1.0) / (self.max_vswr + 1.0)
+        if self.min_return_loss_db is not None:
+            limit = min(limit, 10.0 ** (-self.min_return_loss_db / 20.0))
+        return limit
 
 
 class Verdict(str, enum.Enum):
@@ -138,8 +149,32 @@ class Verdict(str, enum.Enum):
 
 
 @dataclass(frozen=True)
+class MarkerReading:
+    """A figure read at a named marker frequency (the nearest sweep point)."""
+
+    name: str
+    frequency_hz: float
+    reflection: float
+    expanded_uncertainty: float | None = None
+    insertion_loss_db: float | None = None
+
+    @property
+    def vswr(self) -> float:
+        return _vswr(self.reflection)
+
+    @property
+    def return_loss_db(self) -> float:
+        return math.inf if self.reflection == 0 else -20.0 * math.log10(self.reflection)
+
+
+@dataclass(frozen=True)
 class BandResult:
-    """One band of one device: worst and mean figures and the verdict."""
+    """One band of one device: worst and mean figures and the verdict.
+
+    ``expanded_uncertainty`` is the largest expanded (k = 2) uncertainty of |Γ| in the band;
+    ``worst_upper_reflection`` the largest |Γ| + U (what guard-banded acceptance compares).
+    Insertion-loss figures are present when the band has transmission data.
+    """
 
     limit: BandLimit
     worst_reflection: float
@@ -148,6 +183,11 @@ class BandResult:
     expanded_uncertainty: float | None
     verdict: Verdict
     decision_rule: str
+    worst_upper_reflection: float | None = None
+    worst_insertion_loss_db: float | None = None
+    worst_insertion_loss_frequency_hz: float | None = None
+    insertion_loss_uncertainty_db: float | None = None
+    markers: tuple[MarkerReading, ...] = ()
 
     @property
     def worst_vswr(self) -> float:
@@ -184,6 +224,13 @@ class CalibrationRecord:
     reference_impedance_ohm: float
     frequencies_hz: np.ndarray
     terms: Mapping[str, np.ndarray]
+    #: Residual-error model of the calibration (see :mod:`lineproof.uncertainty`): complex
+    #: arrays whose first axis is the calibration grid.
+    residuals: Mapping[str, np.ndarray] = field(default_factory=dict)
+    temperature_c: float | None = None
+    #: Set when the terms were interpolated onto a sweep grid: the interpolation's own
+    #: estimate of the largest error it adds to a corrected reflection (|Γ|).
+    interpolation_error: float | None = None
 
     def __post_init__(self) -> None:
         frequencies = _frozen_array(self.frequencies_hz, float)
@@ -191,8 +238,13 @@ class CalibrationRecord:
         for name, value in terms.items():
             if value.shape != frequencies.shape:
                 raise ValueError(f"error term {name} does not match the calibration grid")
+        residuals = {name: _frozen_array(value, complex) for name, value in self.residuals.items()}
+        for name, value in residuals.items():
+            if value.shape[:1] != frequencies.shape:
+                raise ValueError(f"residual model {name} does not match the calibration grid")
         object.__setattr__(self, "frequencies_hz", frequencies)
         object.__setattr__(self, "terms", MappingProxyType(terms))
+        object.__setattr__(self, "residuals", MappingProxyType(residuals))
 
 
 @dataclass(frozen=True)
@@ -203,6 +255,8 @@ class TerminationQualification:
     worst_vswr: float
     worst_frequency_hz: float
     limit_vswr: float
+    #: Expanded (k = 2) uncertainty of |Γ| at the worst point, when it was evaluated.
+    expanded_uncertainty: float | None = None
 
     @property
     def passed(self) -> bool:
@@ -232,6 +286,10 @@ class DeviceResult:
     bands: tuple[BandResult, ...]
     measured_utc: str
     extra: Mapping[str, str] = field(default_factory=dict)
+    #: The qualified termination on the device's output while it was measured.
+    termination: TerminationQualification | None = None
+    #: What the bands judge, e.g. "as-terminated input reflection" or "S11 (ideal termination)".
+    figure: str = "as-terminated input reflection"
 
     @property
     def verdict(self) -> Verdict:

@@ -44,7 +44,7 @@ def test_plain_standards() -> None:
 
 def test_shipped_kit_loads_and_says_it_is_illustrative() -> None:
     kit = load_kit("kits/n50-illustrative.toml")
-    assert {s.kind for s in kit.standards.values()} == {"open", "short", "load"}
+    assert {s.kind for s in kit.standards.values()} == {"open", "short", "load", "thru"}
     assert "illustrative" in kit.note
     assert len(kit.sha256) == 64
 

@@ -1,0 +1,330 @@
+"""Uncertainty of a corrected reflection, per frequency point, and the published mismatch
+formulas it rests on.
+
+Method: the GUM (JCGM 100:2008) law of propagation of uncertainty, applied to the
+complex-valued error of a corrected reflection as EURAMET cg-12 v3.0 (2018), "Guidelines on
+the Evaluation of Vector Network Analysers", describes: after a one-port calibration the
+corrected value Γc of a device of true reflection Γ carries the residual errors
+
+    Γc - Γ ≈ D + τ Γ + M Γ²          (residual directivity, tracking, source match)
+
+and the device's own connection, the termination on its output, and trace noise add to it.
+The residual terms come from the kit's statement of how far its actual standards are from
+their models.  To first order the residual polynomial p(Γ) = D + τΓ + MΓ² takes, at each
+standard's model value Γ_i, minus that standard's deviation δ_i (the calibration makes the
+actual standard read as its model), so p = -Σ δ_i L_i(Γ) with L_i the Lagrange polynomials
+on the nodes Γ_i (the least-squares analogue for more than three standards).  Every input
+quantity x (a delay, a capacitance, a phase, the load's reflection, a connection) moves its
+standard by δ = s·x and so p by -s·x·L_i; its coefficient vector c = -s ℓ_i (three complex
+numbers per frequency) and its variance build
+
+    A = Σ E|x|² c c^H      (the error's variance is v^H A v,          v = (1, Γ, Γ²))
+    B = Σ E[x²]  c c^T     (its pseudo-variance is v^T B v; zero for an input of unknown phase)
+
+stored with the calibration ("port1.variance", "port1.pseudo_variance").  The magnitude
+|Γ| moves with the error's component along Γ: u²(|Γ|) = ½ (V + Re(W e^(-2j arg Γ))) (GUM
+Supplement 2, JCGM 102:2011, for the two-dimensional output, projected).  Inputs of unknown
+phase and known magnitude a are U-shaped in projection, u = a/√2 (I. A. Harris and F. L.
+Warner, "Re-examination of mismatch uncertainty when measuring microwave power and
+attenuation", IEE Proc. H 128(1), 1981); worst-case limits of a real quantity are
+rectangular, u = a/√3 (GUM 4.3.7).  The expanded uncertainty is U = k u with k = 2.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from lineproof.calkit import CalKit, StandardDefinition, ideal_reflection, varied
+
+#: Step for the numerical sensitivity of a standard's model to one of its values.
+_DELAY_STEP_S = 1e-14
+_RELATIVE_STEP = 1e-6
+_INDUCTANCE_STEP_H = 1e-14
+
+
+@dataclass(frozen=True)
+class UncertaintySettings:
+    """What the station knows beyond the kit: connector repeatability (from a repeatability
+    study: the RMS |Γ| a reconnection adds, at ``repeatability_reference_hz``, taken to grow
+    in proportion to frequency) and the trace noise of a corrected reflection (standard
+    deviation of each of its real and imaginary parts; None: estimated from the data)."""
+
+    connection_repeatability: float = 0.0
+    repeatability_reference_hz: float = 1e9
+    trace_noise: float | None = None
+    coverage_factor: float = 2.0
+
+    def repeatability(self, frequencies_hz: np.ndarray) -> np.ndarray:
+        return self.connection_repeatability * np.asarray(frequencies_hz, dtype=float) / self.repeatability_reference_hz
+
+
+@dataclass(frozen=True, eq=False)
+class InputQuantity:
+    """One input of the residual model: how far it moves its standard (``sensitivity``, per
+    unit of x), E|x|² (``variance``), and whether x is real (else of unknown phase)."""
+
+    name: str
+    sensitivity: np.ndarray
+    variance: np.ndarray | float
+    real: bool
+
+
+def load_reflection_variance(kit: CalKit) -> float:
+    """E|δ|² of the actual load's reflection: the worst figure's |Γ|² (its phase unknown:
+    U-shaped in projection), or -- when the kit gives a best figure too -- the mean of |Γ|²
+    over return losses spread evenly between the two."""
+    statement = kit.uncertainty
+    worst = statement.load_return_loss_db
+    best = statement.load_return_loss_best_db
+    if best is None or best == worst:
+        return 10 ** (-worst / 10)
+    # mean of 10^(-x/10) for x uniform on [worst, best]
+    return (10 ** (-worst / 10) - 10 ** (-best / 10)) * 10 / math.log(10) / (best - worst)
+
+
+def _derivative(standard: StandardDefinition, f: np.ndarray, z0: float, **changes: object) -> np.ndarray:
+    return (ideal_reflection(varied(standard, **changes), f, z0) - ideal_reflection(standard, f, z0))
+
+
+def standard_inputs(kit: CalKit, kind: str, frequencies_hz: np.ndarray, settings: UncertaintySettings) -> list[InputQuantity]:
+    """The input quantities that move the actual ``kind`` standard away from its model."""
+    f = np.asarray(frequencies_hz, dtype=float)
+    statement = kit.uncertainty
+    model = kit.ideal(kind, f)
+    standard = kit.standard(kind)
+    z0 = kit.reference_impedance_ohm
+    inputs: list[InputQuantity] = []
+    if kind == "load":
+        inputs.append(InputQuantity("load reflection", np.ones(f.shape, complex), load_reflection_variance(kit), False))
+    else:
+        phase = statement.open_phase_deg if kind == "open" else statement.short_phase_deg
+        if phase:
+            inputs.append(InputQuantity(f"{kind} phase", 1j * model, (math.radians(phase) / math.sqrt(3)) ** 2, True))
+        delay = statement.open_delay_uncertainty_s if kind == "open" else statement.short_delay_uncertainty_s
+        if delay and standard.data is None:
+            step = _derivative(standard, f, z0, offset_delay_s=standard.offset_delay_s + _DELAY_STEP_S) / _DELAY_STEP_S
+            inputs.append(InputQuantity(f"{kind} offset delay", step, delay**2, True))
+        if kind == "open" and statement.open_capacitance_uncertainty and standard.data is None:
+            scaled = tuple(c * (1 + _RELATIVE_STEP) for c in standard.coefficients)
+            step = _derivative(standard, f, z0, coefficients=scaled) / _RELATIVE_STEP
+            inputs.append(InputQuantity("open capacitance", step, statement.open_capacitance_uncertainty**2, True))
+        if kind == "short" and statement.short_inductance_uncertainty_h and standard.data is None:
+            c = standard.coefficients
+            moved = (c[0] + _INDUCTANCE_STEP_H, c[1], c[2], c[3])
+            step = _derivative(standard, f, z0, coefficients=moved) / _INDUCTANCE_STEP_H
+            inputs.append(InputQuantity("short inductance", step, statement.short_inductance_uncertainty_h**2, True))
+    if settings.connection_repeatability:
+        # A connector interface as a small impedance step: S11 = c, S22 = -c, S21 S12 = 1 - c²
+        # (Pozar, Microwave Engineering, §4.3), which moves a reflection Γ by c (1 - Γ²).
+        inputs.append(InputQuantity(f"{kind} connection", 1 - model**2, settings.repeatability(f) ** 2, False))
+    if settings.trace_noise:
+        inputs.append(InputQuantity(f"{kind} noise", np.ones(f.shape, complex), 2 * settings.trace_noise**2, False))
+    return inputs
+
+
+def _node_weights(nodes: np.ndarray) -> np.ndarray:
+    """Coefficients (N, 3, n) of the polynomials through the nodes (N, n): column i holds
+    (a0, a1, a2) of the quadratic taking 1 at node i and 0 at the others (least squares for
+    n > 3)."""
+    vandermonde = np.stack([np.ones_like(nodes), nodes, nodes * nodes], axis=-1)
+    if nodes.shape[-1] == 3:
+        return np.linalg.inv(vandermonde)
+    return np.linalg.pinv(vandermonde)
+
+
+def residual_model(kit: CalKit, kinds: tuple[str, ...], frequencies_hz: np.ndarray,
+                   settings: UncertaintySettings, prefix: str = "port1") -> dict[str, np.ndarray]:
+    """The calibration's residual-error model (A and B above) for one port calibrated with
+    the kit's ``kinds`` standards."""
+    f = np.asarray(frequencies_hz, dtype=float)
+    nodes = np.stack([kit.ideal(kind, f) for kind in kinds], axis=-1)
+    weights = _node_weights(nodes)
+    variance = np.zeros(f.shape + (3, 3), dtype=complex)
+    pseudo = np.zeros(f.shape + (3, 3), dtype=complex)
+    for index, kind in enumerate(kinds):
+        for quantity in standard_inputs(kit, kind, f, settings):
+            c = -quantity.sensitivity[:, None] * weights[:, :, index]
+            outer = np.asarray(quantity.variance)[..., None, None]
+            variance += outer * c[:, :, None] * np.conj(c)[:, None, :]
+            if quantity.real:
+                pseudo += outer * c[:, :, None] * c[:, None, :]
+    return {f"{prefix}.variance": variance, f"{prefix}.pseudo_variance": pseudo}
+
+
+def transmission_model(kit: CalKit, frequencies_hz: np.ndarray, settings: UncertaintySettings) -> dict[str, np.ndarray]:
+    """Relative variance of the transmission tracking a thru leaves: its delay (phase only
+    moves the phase of S21), its loss statement, and the thru connection."""
+    f = np.asarray(frequencies_hz, dtype=float)
+    statement = kit.uncertainty
+    phase = (2 * np.pi * f * statement.thru_delay_uncertainty_s) ** 2
+    magnitude = np.full(f.shape, statement.thru_loss_uncertainty**2)
+    connection = 2 * settings.repeatability(f) ** 2
+    return {"transmission.magnitude_variance": (magnitude + connection / 2).astype(complex),
+            "transmission.phase_variance": (phase + connection / 2).astype(complex)}
+
+
+def add_specified_residuals(residuals: Mapping[str, np.ndarray], prefix: str, directivity: np.ndarray | float,
+                            tracking: np.ndarray | float, source_match: np.ndarray | float) -> dict[str, np.ndarray]:
+    """Add residual terms stated as bounds of unknown phase -- |ΔΓ| <= D + T|Γ| + M|Γ|², from
+    an analyzer's corrected-performance data or from a check standard (see
+    :func:`residuals_from_check_standard`) -- to a calibration's residual model."""
+    combined = {name: np.array(value) for name, value in residuals.items()}
+    variance = combined[f"{prefix}.variance"]
+    for index, bound in enumerate((directivity, tracking, source_match)):
+        variance[:, index, index] += np.asarray(bound, dtype=float) ** 2
+    return combined
+
+
+def residuals_from_check_standard(known: np.ndarray, measured: np.ndarray, expected_u: np.ndarray,
+                                  coverage_factor: float = 2.0) -> np.ndarray:
+    """The part of a check standard's observed deviation |Γm - Γknown| that the model does
+    not explain (beyond k·u of its own prediction), spread over D, T, M as a bound
+    D = T = M = excess / (1 + |Γ| + |Γ|²); returns that common bound per point."""
+    g = np.abs(known)
+    excess = np.maximum(0.0, np.abs(measured - known) - coverage_factor * expected_u)
+    return excess / (1 + g + g * g)
+
+
+def _quadratic_forms(residuals: Mapping[str, np.ndarray], prefix: str, vector: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    variance = residuals.get(f"{prefix}.variance")
+    if variance is None:
+        zero = np.zeros(vector.shape[0])
+        return zero, zero.astype(complex)
+    pseudo = residuals[f"{prefix}.pseudo_variance"]
+    v = np.einsum("nj,njk,nk->n", np.conj(vector), variance, vector).real
+    w = np.einsum("nj,njk,nk->n", vector, pseudo, vector)
+    return v, w
+
+
+def estimate_trace_noise(trace: np.ndarray) -> float:
+    """Standard deviation of each part (real, imaginary) of white noise on a smooth trace,
+    from its second differences (Var(x[i-1] - 2x[i] + x[i+1]) = 6σ²), robustly (median
+    absolute deviation, 1.4826 for a normal distribution).  A trace that is not smooth at
+    the point spacing makes it larger, never smaller."""
+    values = np.asarray(trace, dtype=complex)
+    if values.size < 5:
+        return 0.0
+    second = values[:-2] - 2 * values[1:-1] + values[2:]
+    parts = np.concatenate([second.real, second.imag])
+    return float(1.4826 * np.median(np.abs(parts - np.median(parts))) / math.sqrt(6))
+
+
+@dataclass(frozen=True, eq=False)
+class ReflectionUncertainty:
+    """|Γ| per point with its standard and expanded uncertainty, the interval and a budget
+    (standard uncertainty of |Γ| from each source)."""
+
+    magnitude: np.ndarray
+    standard_uncertainty: np.ndarray
+    coverage_factor: float
+    budget: Mapping[str, np.ndarray] = field(default_factory=dict)
+
+    @property
+    def expanded(self) -> np.ndarray:
+        return self.coverage_factor * self.standard_uncertainty
+
+    @property
+    def lower(self) -> np.ndarray:
+        return np.maximum(self.magnitude - self.expanded, 0.0)
+
+    @property
+    def upper(self) -> np.ndarray:
+        return np.minimum(self.magnitude + self.expanded, 1.0)
+
+    def vswr_interval(self) -> tuple[np.ndarray, np.ndarray]:
+        from lineproof.metrics import vswr_from_reflection
+
+        return vswr_from_reflection(self.lower), vswr_from_reflection(self.upper)
+
+
+def termination_bound(gamma: np.ndarray, termination_upper: np.ndarray | float) -> np.ndarray:
+    """Largest change of an as-terminated input reflection from a termination of reflection
+    up to ρL: |S21 S12 ρL / (1 - S22 ρL)| <= (1 - |S11|²) ρL / (1 - ρL) for a passive
+    reciprocal device (|S21|² <= 1 - |S11|², |S22| <= 1)."""
+    rho = np.minimum(np.asarray(termination_upper, dtype=float), 0.999)
+    return (1 - np.minimum(np.abs(gamma), 1.0) ** 2) * rho / (1 - rho)
+
+
+def reflection_uncertainty(
+    residuals: Mapping[str, np.ndarray],
+    gamma: np.ndarray,
+    frequencies_hz: np.ndarray,
+    settings: UncertaintySettings = UncertaintySettings(),
+    termination_upper: np.ndarray | float | None = None,
+    interpolation_error: float | None = None,
+    transmission: tuple[np.ndarray, np.ndarray] | None = None,
+    prefix: str = "port1",
+) -> ReflectionUncertainty:
+    """Uncertainty of the corrected reflection ``gamma`` at each point.
+
+    ``termination_upper``: the largest reflection of the termination on the device's output
+    (as-terminated measurement); ``transmission``: (S21 S12, load match) of full two-port data,
+    whose corrected S11 also carries the residual load match (p(ELF), reaching S11 through
+    S21 S12)."""
+    g = np.asarray(gamma, dtype=complex)
+    f = np.asarray(frequencies_hz, dtype=float)
+    vector = np.stack([np.ones_like(g), g, g * g], axis=-1)
+    if transmission is not None:
+        product, load_match = transmission
+        vector = vector + product[:, None] * np.stack([np.ones_like(g), load_match, load_match**2], axis=-1)
+    v, w = _quadratic_forms(residuals, prefix, vector)
+    turn = np.exp(-2j * np.angle(g))
+    budget = {"calibration": np.sqrt(np.maximum(0.5 * (v + (w * turn).real), 0.0))}
+    noise = settings.trace_noise if settings.trace_noise is not None else estimate_trace_noise(g)
+    budget["noise"] = np.full(f.shape, noise)
+    if settings.connection_repeatability:
+        reach = np.abs(1 - g * g) if transmission is None else np.abs(1 - g * g) + np.abs(transmission[0])
+        budget["connection"] = settings.repeatability(f) * reach / math.sqrt(2)
+    if termination_upper is not None:
+        budget["termination"] = termination_bound(g, termination_upper) / math.sqrt(2)
+    if interpolation_error:
+        budget["interpolation"] = np.full(f.shape, interpolation_error / math.sqrt(2))
+    total = np.sqrt(sum(part**2 for part in budget.values()))
+    return ReflectionUncertainty(np.abs(g), total, settings.coverage_factor, budget)
+
+
+def transmission_uncertainty_db(
+    residuals: Mapping[str, np.ndarray],
+    s: np.ndarray,
+    settings: UncertaintySettings = UncertaintySettings(),
+    noise: float | None = None,
+) -> np.ndarray:
+    """Expanded uncertainty (dB) of |S21| of full two-port data: thru statement (tracking),
+    residual source match at port 1 times S11 and residual load match (the port-1 residual
+    directivity it was measured with) times S22, and noise; first order, the complex relative
+    error taken as of unknown phase except the tracking's magnitude part."""
+    s11, s21, s22 = s[:, 0, 0], s[:, 1, 0], s[:, 1, 1]
+    magnitude = residuals.get("transmission.magnitude_variance", np.zeros(s21.shape)).real
+    mismatch = np.zeros(s21.shape)
+    variance = residuals.get("port1.variance")
+    if variance is not None:
+        mismatch = variance[:, 2, 2].real * np.abs(s11) ** 2 + variance[:, 0, 0].real * np.abs(s22) ** 2
+    sigma = noise if noise is not None else (settings.trace_noise or estimate_trace_noise(s21))
+    relative = np.sqrt(magnitude + 0.5 * mismatch + (sigma / np.maximum(np.abs(s21), 1e-12)) ** 2)
+    return settings.coverage_factor * 20 / math.log(10) * relative
+
+
+# -- published mismatch formulas -------------------------------------------------------------
+
+def mismatch_limits_db(reflection_1: float, reflection_2: float) -> tuple[float, float]:
+    """Worst-case mismatch error limits of a power transfer between two reflections of
+    unknown phase: 20 log10(1 + |Γ1||Γ2|) and 20 log10(1 - |Γ1||Γ2|) dB."""
+    product = reflection_1 * reflection_2
+    return 20 * math.log10(1 + product), 20 * math.log10(1 - product)
+
+
+def mismatch_standard_uncertainty(reflection_1: float, reflection_2: float) -> float:
+    """Standard uncertainty of that mismatch (relative, in amplitude): |Γ1||Γ2| / √2,
+    U-shaped (Harris and Warner 1981)."""
+    return reflection_1 * reflection_2 / math.sqrt(2)
+
+
+def cascaded_vswr_bounds(vswr_1: float, vswr_2: float) -> tuple[float, float]:
+    """Worst-case range of the VSWR of two mismatches in cascade, phases unknown:
+    from the larger divided by the smaller to their product."""
+    larger, smaller = max(vswr_1, vswr_2), min(vswr_1, vswr_2)
+    return larger / smaller, larger * smaller
