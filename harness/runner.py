@@ -23,9 +23,9 @@ from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 
-from lineproof import __version__
+from lineproof import __version__, calstore
 from lineproof.calkit import load_kit
-from lineproof.errors import InputError, LineproofError, RunHalted
+from lineproof.errors import CalibrationError, InputError, LineproofError, RunHalted
 from lineproof.journal import JOURNAL_NAME, RunJournal, read_journal
 from lineproof.operators import StopRequested
 from lineproof.recording import RecordedDevice, RunFacts, RunFolder
@@ -258,12 +258,11 @@ def calibration_problem(cal: CalibrationRecord | None, spec: SequenceSpec, ident
     """Why a calibration from before the interruption cannot be kept, or None if it can."""
     if cal is None or spec.calibration is None:
         return "no calibration was finished"
-    age = (datetime.now(UTC) - datetime.fromisoformat(cal.created_utc)).total_seconds()
-    if age > spec.calibration.valid_for_s:
-        return f"it is {age / 60:.0f} min old, older than the {spec.calibration.valid_for_s / 60:.0f} min allowed"
-    who = cal.instrument
-    if (who.manufacturer, who.model, who.serial) != (identity.manufacturer, identity.model, identity.serial):
-        return f"it was made on {who.describe()}, and {identity.describe()} answers now"
+    try:
+        calstore.check_instrument(cal, identity)
+        calstore.check_age(cal, spec.calibration.valid_for_s)
+    except CalibrationError as exc:
+        return str(exc)
     if cal.plan != spec.plan:
         return "it was made for another sweep"
     path = resolve_path(spec.calibration.kit, spec)
@@ -281,7 +280,10 @@ def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dic
     state.taken = {str(d["serial"]).lower() for d in devices}
     state.measured = max([int(d["position"] or 0) for d in devices] + [len(devices)])
     cal_id = row.get("calibration_id")
-    cal = store.load_calibration(str(cal_id)) if cal_id else None
+    try:
+        cal = store.load_calibration(str(cal_id)) if cal_id else None
+    except InputError as exc:
+        return state, f"its saved terms cannot be read ({exc.problem})"
     checks = store.rows("SELECT * FROM verifications WHERE run_id = ? AND calibration_id = ? ORDER BY verification_id",
                         (run_id, cal_id))
     problem = calibration_problem(cal, spec, identity, bool(checks[-1]["passed"]) if checks else None)
@@ -321,8 +323,8 @@ def resume_run(run_id: str, options: RunOptions, view: RunView, stop: StopSignal
             raise InputError(f"run {run_id} is complete: there is nothing to resume", path=str(database),
                              fix="start a new run with lineproof run SEQUENCE")
         folder = RunFolder(records, run_id)
-        if not (folder.path / JOURNAL_NAME).is_file():
-            raise InputError("the run's folder or journal is missing", path=str(folder.path),
+        if not (folder.path / SEQUENCE_COPY).is_file():
+            raise InputError("the run's folder or its copy of the sequence is missing", path=str(folder.path),
                              fix="give the records folder the run wrote to with --records DIR")
         with _run_lock(folder.path):
             spec = _kept_sequence(folder, row)

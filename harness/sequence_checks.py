@@ -8,7 +8,6 @@ and the order of the steps.  Every problem goes into the same :class:`Problems` 
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -259,24 +258,15 @@ def _check_switch(spec: SequenceSpec, problems: Problems) -> None:
         if unit.slot is not None and unit.slot not in switch.wiring:
             problems.add(unit.key.replace(".serial", ".slot"), f"slot {unit.slot!r} of {unit.serial} is not wired to the switch",
                          f"add it to [{key}] in {source}")
-    loader = _switch_profile_loader()
+    from lineproof.drivers.profiles import load_switch_profile
+
     profile_key, _ = _station_key(spec, "switch.profile")
-    if loader is None:
-        problems.add(profile_key, "this version of lineproof has no switch driver",
-                     "connect by operator, or install a lineproof with switch profiles", source=source)
-        return
     try:
-        loader(_profile_path(spec, switch.profile))
+        load_switch_profile(_profile_path(spec, switch.profile))
     except InputError as exc:
         problems.items.append(exc)
         problems.add(profile_key, "the switch profile named here cannot be used (see above)",
                      "name a shipped switch profile or a valid profile file", source=source)
-
-
-def _switch_profile_loader() -> Callable[[str], object] | None:
-    from lineproof.drivers import profiles
-
-    return getattr(profiles, "load_switch_profile", None)
 
 
 def _check_simulated_bench(spec: SequenceSpec, problems: Problems) -> None:

@@ -4,6 +4,7 @@ the station is one, and the operator that connects things -- the run's "connect 
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -70,29 +71,28 @@ def _analyzer_resource(spec: StationSpec, bench: Any) -> str:
 
 def _open_analyzer(spec: StationSpec, resource: str) -> Analyzer:
     from lineproof.drivers import open_analyzer
+    from lineproof.drivers.connect import serial_options_of
+    from lineproof.drivers.profiles import load_analyzer_profile
 
     analyzer = spec.analyzer
+    profile = load_analyzer_profile(_profile_argument(spec, analyzer.profile))
     if analyzer.transport == "serial":
-        from lineproof.drivers.transports import SerialOptions
-
-        options = SerialOptions(baud_rate=analyzer.baud_rate) if analyzer.baud_rate else None
-        return open_analyzer(resource, _profile_argument(spec, analyzer.profile), "serial", serial=options)
-    return open_analyzer(resource, _profile_argument(spec, analyzer.profile), "visa")
+        options = serial_options_of(profile)
+        if analyzer.baud_rate:
+            options = dataclasses.replace(options, baud_rate=analyzer.baud_rate)
+        return open_analyzer(resource, profile, "serial", serial=options)
+    return open_analyzer(resource, profile, "visa")
 
 
 def _open_switch(spec: StationSpec, bench: Any) -> Switch:
-    from lineproof import drivers
+    from lineproof.drivers import open_switch
 
-    opener = getattr(drivers, "open_switch", None)
-    if opener is None:
-        raise InputError("this version of lineproof has no switch driver", key="station.switch",
-                         fix="connect by operator (connected_by = \"operator\")")
     assert spec.switch is not None
     resource = spec.switch.resource or getattr(bench, "switch_resource", None)
     if resource is None:
         raise InputError("this simulated bench has no switch matrix", key="station.switch",
                          fix="use a scenario with a switch, or connect by operator")
-    return opener(resource, _profile_argument(spec, spec.switch.profile))
+    return open_switch(resource, _profile_argument(spec, spec.switch.profile))
 
 
 def _make_operator(sequence: SequenceSpec, station: OpenStation, ask: Callable[[str], str | None]) -> Operator:

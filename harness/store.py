@@ -20,17 +20,18 @@ from typing import Any
 
 import numpy as np
 
+from lineproof import calstore
 from lineproof.errors import InputError
 from lineproof.store_schema import APPLICATION, MIGRATIONS, SCHEMA_1, SCHEMA_VERSION, SQLITE, Dialect
 from lineproof.values import (
     CalibrationRecord,
     DeviceResult,
-    InstrumentIdentity,
-    SweepPlan,
     TerminationQualification,
     VerificationResult,
 )
 
+#: Where saved calibrations live, beside the database.
+CALIBRATIONS_FOLDER = "calibrations"
 _NOT_OURS_FIX = "give a new file name or a results database that lineproof created"
 
 
@@ -180,37 +181,30 @@ class ResultStore:
 
     # -- calibrations, qualifications, verifications --------------------------------------------
 
-    def save_calibration(self, run_id: str, cal: CalibrationRecord, station: str) -> None:
-        terms = {"frequencies_hz": cal.frequencies_hz, **{f"term_{k}": v for k, v in cal.terms.items()}}
+    def save_calibration(self, run_id: str, cal: CalibrationRecord, station: str) -> Path:
+        """Keep the calibration's terms and residual model as files (:mod:`lineproof.calstore`, in
+        ``calibrations/`` beside the database) and its description as a row."""
+        saved = calstore.save_calibration(cal, self.path.parent / CALIBRATIONS_FOLDER)
         plan, who = cal.plan, cal.instrument
         with self._transaction() as db:
             self._run(db, "INSERT INTO calibrations (calibration_id, created_utc, method, kit_name, kit_sha256, analyzer,"
                       " analyzer_manufacturer, analyzer_model, analyzer_serial, analyzer_firmware, resource, station,"
-                      " start_hz, stop_hz, points, if_bandwidth_hz, power_dbm, reference_impedance_ohm, run_id, terms)"
-                      " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                      " start_hz, stop_hz, points, if_bandwidth_hz, power_dbm, reference_impedance_ohm, temperature_c,"
+                      " run_id, file) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                       (cal.calibration_id, cal.created_utc, cal.method, cal.kit_name, cal.kit_hash, who.describe(),
-                       who.manufacturer, who.model, who.serial, who.firmware, who.resource, station, plan.start_hz, plan.stop_hz, plan.points,
-                       plan.if_bandwidth_hz, plan.power_dbm, cal.reference_impedance_ohm, run_id,
-                       _pack_arrays(terms)))
+                       who.manufacturer, who.model, who.serial, who.firmware, who.resource, station, plan.start_hz,
+                       plan.stop_hz, plan.points, plan.if_bandwidth_hz, plan.power_dbm, cal.reference_impedance_ohm,
+                       cal.temperature_c, run_id, saved.relative_to(self.path.parent).as_posix()))
             self._run(db, "UPDATE runs SET calibration_id = ?, calibration_method = ?, cal_kit = ? WHERE run_id = ?",
                       (cal.calibration_id, cal.method, cal.kit_name, run_id))
+        return saved
 
     def load_calibration(self, calibration_id: str) -> CalibrationRecord | None:
-        rows = self.rows("SELECT * FROM calibrations WHERE calibration_id = ?", (calibration_id,))
+        """A calibration this database describes, read back from its saved files."""
+        rows = self.rows("SELECT file FROM calibrations WHERE calibration_id = ?", (calibration_id,))
         if not rows:
             return None
-        row = rows[0]
-        arrays = unpack_arrays(row["terms"])
-        return CalibrationRecord(
-            calibration_id=row["calibration_id"], method=row["method"], kit_name=row["kit_name"],
-            kit_hash=row["kit_sha256"], created_utc=row["created_utc"],
-            instrument=InstrumentIdentity(row["analyzer_manufacturer"], row["analyzer_model"], row["analyzer_serial"],
-                                          row["analyzer_firmware"], row["resource"]),
-            plan=SweepPlan(row["start_hz"], row["stop_hz"], int(row["points"]), row["if_bandwidth_hz"], row["power_dbm"]),
-            reference_impedance_ohm=row["reference_impedance_ohm"],
-            frequencies_hz=arrays["frequencies_hz"],
-            terms={name[5:]: value for name, value in arrays.items() if name.startswith("term_")},
-        )
+        return calstore.load_calibration(self.path.parent / str(rows[0]["file"]))
 
     def record_qualification(self, run_id: str, calibration_id: str, qualification: TerminationQualification,
                              measured_utc: str) -> int:

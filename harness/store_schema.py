@@ -10,7 +10,7 @@ Tables (schema 2)::
 
     lineproof_meta        key/value: application, schema_version
     runs                  one per run: sequence and its hash, station, operator, analyzer, status
-    calibrations          one per solved calibration, with its error terms (numpy .npz bytes)
+    calibrations          one per solved calibration; ``file`` names its saved terms (calstore)
     qualifications        each termination qualification: calibration, worst VSWR, limit, result
     verifications         each check-standard verification: calibration, worst deviation, result
     verification_bands    its per-band figures
@@ -126,8 +126,9 @@ MIGRATION_2 = (
         if_bandwidth_hz {real} NOT NULL,
         power_dbm {real},
         reference_impedance_ohm {real} NOT NULL,
+        temperature_c {real},
         run_id TEXT REFERENCES runs(run_id),
-        terms {blob} NOT NULL
+        file TEXT NOT NULL
     )""",
     """CREATE TABLE qualifications (
         qualification_id {id},

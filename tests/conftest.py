@@ -82,12 +82,17 @@ def sequence_variant(tmp_path: Path):
     """Write a copy of a test sequence into tmp_path, its bench path made absolute, with text
     replacements; a bench ``time_scale`` given makes a private copy of the scenario too."""
 
-    def make(name: str = "batch.toml", replace: dict[str, str] | None = None, time_scale: float | None = None) -> Path:
+    def make(name: str = "batch.toml", replace: dict[str, str] | None = None, time_scale: float | None = None,
+             bench_replace: dict[str, str] | None = None) -> Path:
         text = (SEQUENCES / name).read_text(encoding="utf-8")
         scenario = SCENARIOS / "batch-bench.toml"
-        if time_scale is not None:
-            scenario_text = scenario.read_text(encoding="utf-8").replace("time_scale = 0.1", f"time_scale = {time_scale}")
-            scenario = tmp_path / f"bench-{time_scale}.toml"
+        if time_scale is not None or bench_replace:
+            changes = {"time_scale = 0.1": f"time_scale = {time_scale or 0.1}", **(bench_replace or {})}
+            scenario_text = scenario.read_text(encoding="utf-8")
+            for old, new in changes.items():
+                assert old in scenario_text, old
+                scenario_text = scenario_text.replace(old, new)
+            scenario = tmp_path / "bench.toml"
             scenario.write_text(scenario_text, encoding="utf-8")
         text = text.replace('"../scenarios/batch-bench.toml"', f'"{scenario.as_posix()}"')
         for old, new in (replace or {}).items():
