@@ -23,6 +23,8 @@ COMMAND_MODULES = (
     "lineproof.demo",
     "lineproof.run_command",
     "lineproof.check_command",
+    "lineproof.report_command",
+    "lineproof.results_command",
 )
 
 

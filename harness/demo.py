@@ -67,7 +67,12 @@ def run_demo(out_dir: Path, termination: str | None = None, out: TextIO = sys.st
     if outcome.recorded:
         print("", file=out)
         print_table(outcome.recorded, out)
-    view.run_finished(outcome.summary())
+    summary = outcome.summary()
+    if outcome.status == "complete":
+        from lineproof.report_command import make_report
+
+        summary["report"] = str(make_report(outcome.run_id, outcome.records).html)
+    view.run_finished(summary)
     files = sorted(d.file for d in outcome.recorded)
     return DemoOutcome(outcome.run_id, outcome, files, outcome.database, outcome.run_folder)
 

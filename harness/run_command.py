@@ -81,7 +81,10 @@ def _command(arguments: argparse.Namespace) -> int:
         print(json.dumps({"event": "error", "kind": "could-not-complete", "exit_code": 2, "reason": str(exc)}),
               flush=True)
         return 2
-    view.run_finished(outcome.summary())
+    summary = outcome.summary()
+    if outcome.status == "complete":
+        summary["report_command"] = f"lineproof report {outcome.run_id} --records {outcome.records}"
+    view.run_finished(summary)
     if outcome.status != "complete" and not arguments.json:
         print(f"lineproof: run did not complete ({outcome.status}): {outcome.reason}", file=sys.stderr)
     return outcome.exit_code

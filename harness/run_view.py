@@ -137,6 +137,8 @@ class ConsoleRunView:
                 self._print(f"{label}: {summary[key]}")
         if summary.get("resume_command"):
             self._print(f"To continue: {summary['resume_command']}", "bold")
+        if summary.get("report_command"):
+            self._print(f"For the report: {summary['report_command']}")
 
     def close(self) -> None:
         with self._lock:

@@ -106,6 +106,12 @@ def format_one_port(frequencies_hz: np.ndarray, reflection: np.ndarray, z0: floa
     return format_header(metadata) + f"# Hz S RI R {z0:g}\n" + body
 
 
+def make_readable(descriptor: int) -> None:
+    """Give a file made by ``tempfile.mkstemp`` (owner-only) the usual permissions (umask)."""
+    if hasattr(os, "fchmod"):
+        os.fchmod(descriptor, 0o666 & ~_UMASK)
+
+
 def write_new_file(folder: Path, stem: str, suffix: str, text: str, encoding: str = "ascii") -> Path:
     """Write ``text`` to ``folder/stem.suffix`` atomically, never replacing a file.
 
@@ -117,8 +123,7 @@ def write_new_file(folder: Path, stem: str, suffix: str, text: str, encoding: st
     folder.mkdir(parents=True, exist_ok=True)
     handle, temporary = tempfile.mkstemp(dir=folder, prefix=".partial-", suffix=suffix)
     try:
-        if hasattr(os, "fchmod"):
-            os.fchmod(handle, 0o666 & ~_UMASK)  # mkstemp makes the file private; results are not
+        make_readable(handle)
         with os.fdopen(handle, "w", encoding=encoding, newline="\n") as stream:
             stream.write(text)
             stream.flush()
