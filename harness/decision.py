@@ -1,11 +1,16 @@
 """Decision rules for an upper limit (ILAC-G8:09/2019, "Guidelines on Decision Rules and
-Statements of Conformity").
+Statements of Conformity", §4.2).
 
-- simple acceptance (ILAC-G8 §4.2.1, a guard band w = 0): pass when the measured value is
+- simple acceptance (§4.2.1, binary, guard band w = 0): pass when the measured value is
   within the limit, fail otherwise.
-- guard-banded acceptance (ILAC-G8 §4.2.2 with w = U, the expanded uncertainty at k = 2):
-  pass when value + U is within the limit; fail when value - U is beyond it; otherwise the
-  result is indeterminate -- too close to the limit to say.
+- guard-banded acceptance (§4.2.3, non-binary, w = U, the expanded uncertainty): pass when
+  value + U is within the limit; fail when value - U is beyond it; otherwise
+  "indeterminate" -- too close to the limit to say (ILAC-G8's conditional pass and
+  conditional fail, which a production line treats alike).
+- binary guard band (§4.2.2, w = U): pass when value + U is within the limit, fail otherwise
+  (the producer carries the risk near the limit).
+
+A device's record carries the text of the rule used (:data:`RULE_TEXT`).
 """
 
 from __future__ import annotations
@@ -16,11 +21,13 @@ import numpy as np
 
 from lineproof.values import Verdict
 
-DecisionRule = Literal["simple", "guard-banded"]
+DecisionRule = Literal["simple", "guard-banded", "guard-banded-binary"]
 
 RULE_TEXT = {
-    "simple": "simple acceptance, ILAC-G8:09/2019 4.2.1 (no guard band)",
-    "guard-banded": "guard-banded acceptance, ILAC-G8:09/2019 4.2.2 (guard band w = U, k = 2)",
+    "simple": "simple acceptance, ILAC-G8:09/2019 4.2.1 (binary, no guard band)",
+    "guard-banded": "guard-banded acceptance, ILAC-G8:09/2019 4.2.3 (non-binary, guard band w = U; "
+                    "indeterminate = conditional pass or conditional fail)",
+    "guard-banded-binary": "guard-banded acceptance, ILAC-G8:09/2019 4.2.2 (binary, guard band w = U)",
 }
 
 
@@ -29,17 +36,19 @@ def judge_upper_limit(
 ) -> Verdict:
     """Judge every point of a band against an upper limit; the band's verdict is the worst.
 
-    Under the guard-banded rule a band passes only if every point passes with its guard
-    band, and fails as soon as one point fails beyond doubt.
+    Under a guard-banded rule a band passes only if every point passes with its guard band;
+    under the non-binary rule it fails as soon as one point fails beyond doubt.
     """
+    if rule not in RULE_TEXT:
+        raise ValueError(f"unknown decision rule {rule!r}; use one of {', '.join(RULE_TEXT)}")
     values = np.asarray(values, dtype=float)
-    if rule == "simple" or expanded_uncertainty is None:
-        if rule != "simple":
-            raise ValueError("guard-banded acceptance needs an expanded uncertainty")
+    if rule == "simple":
         return Verdict.PASS if bool(np.all(values <= limit)) else Verdict.FAIL
+    if expanded_uncertainty is None:
+        raise ValueError("guard-banded acceptance needs an expanded uncertainty")
     u = np.asarray(expanded_uncertainty, dtype=float)
-    if bool(np.any(values - u > limit)):
-        return Verdict.FAIL
     if bool(np.all(values + u <= limit)):
         return Verdict.PASS
+    if rule == "guard-banded-binary" or bool(np.any(values - u > limit)):
+        return Verdict.FAIL
     return Verdict.INDETERMINATE

@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import TextIO
 
 from lineproof import __version__
+from lineproof.metrics import vswr_from_reflection
 from lineproof.recording import RecordedDevice
 from lineproof.run_steps import StopSignal
 from lineproof.run_view import ConsoleRunView
@@ -44,8 +45,14 @@ def demo_sequence(termination: str | None = None) -> SequenceSpec:
     return check_sequence_text(text, str(path))
 
 
+def _vswr(reflection: float | None) -> float:
+    return float("nan") if reflection is None else float(vswr_from_reflection(reflection))
+
+
 def print_table(recorded: list[RecordedDevice], out: TextIO) -> None:
-    header = f"{'serial':<12} {'model':<26} {'band':<6} {'worst VSWR':>10} {'at MHz':>8} {'limit':>6}  verdict"
+    """Worst VSWR per band, and with the expanded uncertainty added ('with U')."""
+    header = (f"{'serial':<12} {'model':<26} {'band':<6} {'worst VSWR':>10} {'at MHz':>8} {'with U':>7} "
+              f"{'limit':>6}  verdict")
     print(header, file=out)
     print("-" * len(header), file=out)
     for device in sorted(recorded, key=lambda d: d.position):
@@ -54,7 +61,11 @@ def print_table(recorded: list[RecordedDevice], out: TextIO) -> None:
             serial = result.device.serial if index == 0 else ""
             model = result.device.model if index == 0 else ""
             print(f"{serial:<12} {model:<26} {band.limit.name:<6} {band.worst_vswr:>10.3f} "
-                  f"{band.worst_frequency_hz / 1e6:>8.1f} {band.limit.max_vswr:>6.2f}  {band.verdict.value}", file=out)
+                  f"{band.worst_frequency_hz / 1e6:>8.1f} {_vswr(band.worst_upper_reflection):>7.3f} "
+                  f"{band.limit.max_vswr:>6.2f}  {band.verdict.value}", file=out)
+    if recorded:
+        print(f"'with U': worst VSWR with the expanded uncertainty (k = 2) added; decision: "
+              f"{recorded[0].result.bands[0].decision_rule}", file=out)
 
 
 def run_demo(out_dir: Path, termination: str | None = None, out: TextIO = sys.stdout) -> DemoOutcome:

@@ -50,10 +50,12 @@ class Operator(Protocol):
     """Whoever (or whatever) connects things to the analyzer's ports: a person at a prompt,
     a switch matrix, or a simulated operator."""
 
-    def connect(self, port: int, thing: str, output: str | None, instruction: str) -> None:
+    def connect(self, port: int, thing: str, output: str | None, instruction: str,
+                reversed: bool = False) -> None:
         """Connect ``thing`` to ``port`` and return when it is done.
 
         ``output`` says what a two-port's output goes to: the name of a one-port termination,
         ``"port:2"`` for analyzer port 2, or None for a one-port ``thing``.  ``instruction`` is
-        the sentence a person would be shown.
+        the sentence a person would be shown.  ``reversed`` turns a two-port round (its output
+        on ``port``): how a forward-only analyzer measures a device's reverse direction.
         """

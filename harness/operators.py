@@ -43,10 +43,11 @@ class SimulatedOperator:
             raise LinkError(f"cannot reach the bench control channel ({exc})", resource=control_address) from exc
         self.log: list[str] = []
 
-    def connect(self, port: int, thing: str, output: str | None, instruction: str) -> None:
+    def connect(self, port: int, thing: str, output: str | None, instruction: str,
+                reversed: bool = False) -> None:
         self.log.append(instruction)
         try:
-            self._client.connect(port, thing, output)
+            self._client.connect(port, thing, output, reversed=reversed)
         except self._request_error as exc:
             raise LinkError(f"the simulated operator could not connect {thing} ({exc})") from exc
 
@@ -72,11 +73,12 @@ class ConsoleOperator:
             raise StopRequested()
         return answer.strip()
 
-    def connect(self, port: int, thing: str, output: str | None, instruction: str) -> None:
+    def connect(self, port: int, thing: str, output: str | None, instruction: str,
+                reversed: bool = False) -> None:
         self.log.append(instruction)
         self._answer(f"{instruction}. Press Enter when done (or type stop)")
         if self._hands is not None:
-            self._hands.connect(port, thing, output, instruction)
+            self._hands.connect(port, thing, output, instruction, reversed=reversed)
 
     def acknowledge(self, text: str) -> None:
         """Show a message and wait until the person confirms it."""
@@ -126,7 +128,11 @@ class SwitchOperator:
         self.slots = dict(slots or {})
         self.log: list[str] = []
 
-    def connect(self, port: int, thing: str, output: str | None, instruction: str) -> None:
+    def connect(self, port: int, thing: str, output: str | None, instruction: str,
+                reversed: bool = False) -> None:
+        if reversed:
+            raise InputError(f"a switch cannot turn {thing} round", key="calibration.method",
+                             fix="on a switch station use a method that needs no reversed device (not one-path)")
         name = self.slots.get(thing, thing)
         channels = self.wiring.get(name)
         if channels is None:

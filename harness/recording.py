@@ -15,6 +15,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 
@@ -65,6 +66,8 @@ class MeasurementBasis:
     qualification_utc: str
     verification: VerificationResult | None = None
     verification_id: int | None = None
+    #: The termination's measured trace and uncertainty (a ``steps.QualifiedTermination``).
+    termination_data: Any = None
 
 
 @dataclass(frozen=True)
@@ -115,6 +118,8 @@ def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResu
         ("termination.worst_vswr", f"{q.worst_vswr:.4f}"),
         ("termination.worst_frequency_hz", f"{q.worst_frequency_hz:.10g}"),
         ("termination.limit_vswr", f"{q.limit_vswr:.3f}"),
+        ("termination.expanded_uncertainty",
+         "not evaluated" if q.expanded_uncertainty is None else f"{q.expanded_uncertainty:.5f}"),
         ("termination.result", "qualified" if q.passed else "rejected"),
         ("termination.qualified_utc", basis.qualification_utc),
     ]
@@ -130,9 +135,12 @@ def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResu
             (f"{prefix}.worst_return_loss_db", f"{band.worst_return_loss_db:.2f}"),
             (f"{prefix}.expanded_uncertainty",
              "not evaluated" if band.expanded_uncertainty is None else f"{band.expanded_uncertainty:.5f}"),
+            (f"{prefix}.worst_upper_vswr", "not evaluated" if band.worst_upper_reflection is None
+             else f"{float(metrics.vswr_from_reflection(band.worst_upper_reflection)):.4f}"),
             (f"{prefix}.verdict", band.verdict.value),
         ]
     items += _uncertainty_items(uncertainty)
+    items += sorted(result.extra.items())
     items += [("decision_rule", result.bands[0].decision_rule if result.bands else facts.decision_rule),
               ("verdict", result.verdict.value)]
     return items
@@ -152,11 +160,18 @@ def _verification_items(verification: VerificationResult | None, position: int) 
     ]
 
 
+#: How the uncertainty of every point is found (see :mod:`lineproof.uncertainty`).
+UNCERTAINTY_METHOD = ("GUM (JCGM 100:2008) propagation of the kit's stated deviations, connector repeatability, "
+                      "trace noise and the termination's own mismatch; EURAMET cg-12 v3.0 residual-error model")
+
+
 def _uncertainty_items(uncertainty: np.ndarray | None) -> list[tuple[str, object]]:
     if uncertainty is None:
-        return [("uncertainty", "not evaluated: simple acceptance, the verdict ignores measurement uncertainty")]
+        return [("uncertainty", "not evaluated"), ("uncertainty.method", "none")]
     return [
-        ("uncertainty", "expanded uncertainty of |reflection|, coverage factor k = 2"),
+        ("uncertainty", "expanded uncertainty of |reflection| at every point"),
+        ("uncertainty.method", UNCERTAINTY_METHOD),
+        ("uncertainty.coverage", "expanded, k = 2 (95.45 %), k from the distribution where a bounded term dominates"),
         ("uncertainty.max_reflection", f"{float(np.max(uncertainty)):.5f}"),
         ("uncertainty.mean_reflection", f"{float(np.mean(uncertainty)):.5f}"),
     ]

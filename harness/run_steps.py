@@ -28,8 +28,9 @@ from lineproof.recording import MeasurementBasis, RecordedDevice, RunFacts, RunF
 from lineproof.run_view import RunView
 from lineproof.sequence import DeviceUnit, SequenceSpec, StepSpec, resolve_path
 from lineproof.stations import OpenStation
+from lineproof.steps import QualifiedTermination
 from lineproof.store import ResultStore
-from lineproof.values import CalibrationRecord, DeviceIdentity, TerminationQualification, VerificationResult
+from lineproof.values import CalibrationRecord, DeviceIdentity, VerificationResult
 from lineproof.verification import reference_magnitude, verify_with_check_standard
 
 
@@ -46,7 +47,7 @@ class RunState:
     """Where the run stands; filled from the database and journal when it resumes."""
 
     calibration: CalibrationRecord | None = None
-    qualification: tuple[TerminationQualification, int, str] | None = None  # result, row id, UTC
+    qualification: tuple[QualifiedTermination, int, str] | None = None  # result, row id, UTC
     last_check: tuple[VerificationResult, int] | None = None  # the last *passing* check and its id
     reuse_calibration: bool = False
     steps_done: set[int] = field(default_factory=set)
@@ -63,8 +64,11 @@ class _ProgressOperator:
         self.inner = inner
         self.view = view
 
-    def connect(self, port: int, thing: str, output: str | None, instruction: str) -> None:
-        self.inner.connect(port, thing, output, instruction)
+    def connect(self, port: int, thing: str, output: str | None, instruction: str, reversed: bool = False) -> None:
+        if reversed:
+            self.inner.connect(port, thing, output, instruction, reversed=True)
+        else:
+            self.inner.connect(port, thing, output, instruction)
         self.view.step_advanced(instruction)
 
 
@@ -113,7 +117,8 @@ class StepRunner:
         self._record_lock = threading.Lock()
         self._reference: np.ndarray | None = None
         self.measuring = steps.Station(station.analyzer, _ProgressOperator(station.operator, view),  # type: ignore[arg-type]
-                                       station.identity, spec.plan, station.spec.analyzer.port)
+                                       station.identity, spec.plan, station.spec.analyzer.port,
+                                       station.spec.uncertainty)
 
     def run(self) -> None:
         """Every step in order; raises RunHalted when a step finds the run must not go on."""
@@ -171,7 +176,7 @@ class StepRunner:
             raise InputError("cal kit file not found", path=cal_spec.kit, key="calibration.kit")
         kit = load_kit(path)
         self.view.step_started(f"calibrating ({cal_spec.method}, kit {kit.name})", total=3)
-        cal = steps.calibrate_one_port(self.measuring, kit)
+        cal = steps.calibrate(self.measuring, kit, cal_spec.method)
         self.store.save_calibration(self.facts.run_id, cal, self.facts.station)
         self.journal.write("calibrated", calibration_id=cal.calibration_id, reused=False)
         state.calibration, state.qualification, state.last_check = cal, None, None
@@ -182,16 +187,20 @@ class StepRunner:
         state, termination = self.state, self.spec.termination
         assert termination is not None and state.calibration is not None
         if state.reuse_calibration and state.qualification is not None:
-            self.view.qualification(state.qualification[0], reused=True)
+            self.view.qualification(state.qualification[0].qualification, reused=True)
             return
         self.view.step_started(f"qualifying termination {termination.name}", total=1)
-        result = steps.qualify_termination(self.measuring, state.calibration, termination.name, termination.max_vswr)
+        qualified = steps.measure_termination(self.measuring, state.calibration, termination.name, termination.max_vswr)
         measured_utc = datetime.now(UTC).isoformat(timespec="seconds")
-        row = self.store.record_qualification(self.facts.run_id, state.calibration.calibration_id, result, measured_utc)
-        self.journal.write("qualified", qualification_id=row, passed=result.passed)
-        state.qualification = (result, row, measured_utc)
+        trace = {"frequencies_hz": qualified.frequencies_hz, "reflection": qualified.reflection,
+                 "standard_uncertainty": qualified.standard_uncertainty,
+                 "expanded_uncertainty": qualified.expanded_uncertainty}
+        row = self.store.record_qualification(self.facts.run_id, state.calibration.calibration_id,
+                                              qualified.qualification, measured_utc, trace)
+        self.journal.write("qualified", qualification_id=row, passed=qualified.qualification.passed)
+        state.qualification = (qualified, row, measured_utc)
         self.view.step_finished("")
-        self.view.qualification(result, reused=False)
+        self.view.qualification(qualified.qualification, reused=False)
 
     def _verify_step(self, index: int, step: StepSpec) -> None:
         if self.state.reuse_calibration and self.state.last_check is not None:
@@ -238,9 +247,10 @@ class StepRunner:
         state = self.state
         if state.calibration is None or state.qualification is None:
             raise RunHalted("the batch needs a calibration and a qualified termination first")
+        qualified, row, measured_utc = state.qualification
         check = state.last_check
-        return MeasurementBasis(state.calibration, state.qualification[0], state.qualification[1],
-                                state.qualification[2], check[0] if check else None, check[1] if check else None)
+        return MeasurementBasis(state.calibration, qualified.qualification, row, measured_utc,
+                                check[0] if check else None, check[1] if check else None, qualified)
 
     def _batch(self, index: int, step: StepSpec) -> None:
         devices, termination = self.spec.devices, self.spec.termination
@@ -297,10 +307,15 @@ class StepRunner:
 
     def _record(self, device: DeviceIdentity, position: int, frequencies: np.ndarray, raw: np.ndarray,
                 basis: MeasurementBasis) -> None:
+        """Correct, judge with the uncertainty of every point (the termination's own mismatch
+        included), and record."""
         corrected = calibration.correct_one_port(basis.calibration, frequencies, raw)
-        result = steps.judge(device, frequencies, corrected, self.spec.bands, self.spec.decision_rule)  # type: ignore[arg-type]
+        spread = steps.device_uncertainty(self.measuring, basis.calibration, frequencies, corrected,
+                                          basis.termination_data)
+        result = steps.judge(device, frequencies, corrected, self.spec.bands, self.spec.decision_rule,  # type: ignore[arg-type]
+                             spread.expanded, termination=basis.qualification)
         recorded = record_device(self.store, self.journal, self.folder, self.facts, basis, result, position,
-                                 frequencies, corrected)
+                                 frequencies, corrected, spread.expanded)
         with self._record_lock:
             self.recorded.append(recorded)
         self.view.device_recorded(recorded)

@@ -22,6 +22,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
+from typing import Any
 
 from lineproof import __version__, calstore
 from lineproof.calkit import load_kit
@@ -33,7 +34,8 @@ from lineproof.run_steps import RunState, StepRunner, StopSignal
 from lineproof.run_view import RunView
 from lineproof.sequence import SequenceSpec, check_sequence_text, resolve_path
 from lineproof.stations import OpenStation, open_station
-from lineproof.store import ResultStore, open_store
+from lineproof.steps import QualifiedTermination
+from lineproof.store import ResultStore, open_store, unpack_arrays
 from lineproof.touchstone import write_new_file
 from lineproof.values import CalibrationRecord, InstrumentIdentity, TerminationQualification, VerificationResult
 
@@ -273,6 +275,16 @@ def calibration_problem(cal: CalibrationRecord | None, spec: SequenceSpec, ident
     return None
 
 
+def _kept_qualification(row: dict[str, Any]) -> tuple[QualifiedTermination, int, str]:
+    """A qualification from before the interruption, with its trace, as the batch uses it."""
+    trace = unpack_arrays(row["trace"])
+    qualification = TerminationQualification(row["termination"], row["worst_vswr"], row["worst_frequency_hz"],
+                                             row["limit_vswr"], row["expanded_uncertainty"])
+    qualified = QualifiedTermination(qualification, trace["frequencies_hz"], trace["reflection"],
+                                     trace["standard_uncertainty"], trace["expanded_uncertainty"])
+    return qualified, int(row["qualification_id"]), str(row["measured_utc"])
+
+
 def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dict[str, object],
                    identity: InstrumentIdentity, steps_done: set[int]) -> tuple[RunState, str | None]:
     state = RunState(steps_done=set(steps_done))
@@ -292,10 +304,8 @@ def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dic
     state.calibration, state.reuse_calibration = cal, True
     quals = store.rows("SELECT * FROM qualifications WHERE run_id = ? AND calibration_id = ? AND passed = 1"
                        " ORDER BY qualification_id", (run_id, cal_id))
-    if quals:
-        q = quals[-1]
-        state.qualification = (TerminationQualification(q["termination"], q["worst_vswr"], q["worst_frequency_hz"],
-                                                        q["limit_vswr"]), int(q["qualification_id"]), q["measured_utc"])
+    if quals and quals[-1]["trace"]:
+        state.qualification = _kept_qualification(quals[-1])
     if checks:
         c = checks[-1]
         result = VerificationResult(c["check_standard"], c["calibration_id"], c["measured_utc"], int(c["devices_before"]),

@@ -21,6 +21,7 @@ from types import MappingProxyType
 from lineproof.errors import InputError
 from lineproof.toml_problems import KeyLines, Problems, TableReader, parse_toml
 from lineproof.touchstone import SERIAL_RULE, serial_problem
+from lineproof.uncertainty import UncertaintySettings
 from lineproof.values import BandLimit, SweepPlan
 
 #: Actions a ``[[step]]`` may ``do``.
@@ -77,6 +78,8 @@ class StationSpec:
     simulated_bench: str | None = None
     switch: SwitchSpec | None = None
     reference_plane: str = "analyzer test-port connector"
+    #: What the station knows of its own uncertainty beyond the kit (repeatability, noise).
+    uncertainty: UncertaintySettings = field(default_factory=UncertaintySettings)
 
 
 @dataclass(frozen=True)
@@ -248,7 +251,8 @@ def _station_from(root: TableReader, station_text: tuple[str, str] | None, probl
 
 
 def parse_station(table: TableReader, source: str) -> StationSpec | None:
-    table.reject_unknown({"name", "simulated_bench", "connected_by", "reference_plane", "analyzer", "switch"})
+    table.reject_unknown({"name", "simulated_bench", "connected_by", "reference_plane", "analyzer", "switch",
+                          "uncertainty"})
     name = table.get("name", str, fix='add name = "which bench this is"')
     simulated = table.get("simulated_bench", str, None)
     analyzer = _analyzer(table.table("analyzer", required=True), simulated is not None)
@@ -262,9 +266,26 @@ def parse_station(table: TableReader, source: str) -> StationSpec | None:
     if connected_by == "simulated-operator" and simulated is None:
         table.problems.add(table.key("connected_by"), "a simulated operator exists only on a simulated bench",
                            "set simulated_bench = \"<scenario>\" or choose operator")
+    uncertainty = _uncertainty(table.table("uncertainty"))
     if name is None or analyzer is None or connected_by is None or (table.has("switch") and switch is None):
         return None
-    return StationSpec(name.strip(), source, analyzer, connected_by, simulated, switch, reference_plane or "")
+    return StationSpec(name.strip(), source, analyzer, connected_by, simulated, switch, reference_plane or "",
+                       uncertainty or UncertaintySettings())
+
+
+def _uncertainty(table: TableReader | None) -> UncertaintySettings | None:
+    """``[station.uncertainty]``: connector repeatability from a repeatability study (RMS |Γ| a
+    reconnection adds at ``repeatability_reference_hz``), trace noise (None: from the data)."""
+    if table is None:
+        return None
+    table.reject_unknown({"connection_repeatability", "repeatability_reference_hz", "trace_noise", "coverage_factor"})
+    repeatability = table.number("connection_repeatability", 0.0, minimum=0.0)
+    reference = table.number("repeatability_reference_hz", 1e9, above=0.0)
+    noise = table.number("trace_noise", None, minimum=0.0)
+    coverage = table.number("coverage_factor", None, above=0.0)
+    if None in (repeatability, reference):
+        return None
+    return UncertaintySettings(repeatability, reference, noise, coverage)
 
 
 def _analyzer(table: TableReader | None, simulated: bool) -> AnalyzerSpec | None:
@@ -370,10 +391,10 @@ def _bands(root: TableReader, problems: Problems) -> tuple[BandLimit, ...]:
 def _calibration(table: TableReader | None) -> CalibrationSpec | None:
     if table is None:
         return None
-    from lineproof.sequence_checks import METHODS
+    from lineproof.calibration import METHOD_NAMES
 
     table.reject_unknown({"method", "kit", "valid_for_minutes"})
-    method = table.choice("method", sorted(METHODS), "one-port")
+    method = table.choice("method", list(METHOD_NAMES), "one-port")
     kit = table.get("kit", str, fix='add kit = "kits/n50-illustrative.toml" (or your kit file)')
     minutes = table.number("valid_for_minutes", 480.0, above=0.0)
     if None in (method, kit, minutes):

@@ -8,7 +8,6 @@ and the order of the steps.  Every problem goes into the same :class:`Problems` 
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -17,28 +16,16 @@ from lineproof.errors import InputError
 from lineproof.sequence import SequenceSpec, resolve_path
 from lineproof.toml_problems import Problems
 
-
-@dataclass(frozen=True)
-class MethodNeeds:
-    """What a calibration method asks of an analyzer."""
-
-    summary: str
-    kinds: tuple[str, ...]  # standards the kit must define
-    two_port: bool
-    paths: tuple[str, ...]  # analyzer path sets that can do it
-
-
-METHODS: dict[str, MethodNeeds] = {
-    "one-port": MethodNeeds("open, short and load at one port", ("open", "short", "load"), False,
-                            ("reflection", "forward", "full")),
-    "one-path-two-port": MethodNeeds("forward-only two-port (the device is reversed for the other direction)",
-                                     ("open", "short", "load", "thru"), True, ("forward", "full")),
-    "full-two-port": MethodNeeds("full two-port (12-term, SOLT)", ("open", "short", "load", "thru"), True, ("full",)),
+#: Standards a kit must define for each calibration method (short names of
+#: :data:`lineproof.calibration.METHOD_NAMES`).
+METHOD_STANDARDS: dict[str, tuple[str, ...]] = {
+    "one-port": ("open", "short", "load"),
+    "one-path": ("open", "short", "load", "thru"),
+    "solt": ("open", "short", "load", "thru"),
+    "thru-response": ("thru",),
 }
 #: The methods the runner can carry out in this version.
 RUNNABLE_METHODS = frozenset({"one-port"})
-#: Decision rules the runner can apply in this version (guard bands need per-point uncertainty).
-RUNNABLE_RULES = frozenset({"simple"})
 
 
 def check_references(spec: SequenceSpec, problems: Problems) -> None:
@@ -116,20 +103,23 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
     cal = spec.calibration
     if cal is None:
         return
-    needs = METHODS[cal.method]
     if caps is not None:
+        from lineproof.calibration import choose_method
+        from lineproof.errors import CalibrationError
+
         port = spec.station.analyzer.port
-        reflection = f"S{port}{port}"
-        if needs.two_port and (caps.ports < 2 or caps.paths not in needs.paths):
-            problems.add("calibration.method", f"the analyzer cannot do a {cal.method} calibration ({needs.summary}): "
-                         f"it has {caps.ports} port(s) and measures {caps.paths} paths",
-                         "use method = \"one-port\" or an analyzer with the paths it needs")
-        elif not needs.two_port and reflection not in caps.parameters:
-            problems.add("calibration.method", f"the analyzer does not measure {reflection} for a one-port calibration",
-                         "use the port its profile measures")
-        elif cal.method not in RUNNABLE_METHODS:
-            problems.add("calibration.method", f"this version of lineproof cannot run a {cal.method} calibration yet",
-                         f"use one of: {', '.join(sorted(RUNNABLE_METHODS))}")
+        try:
+            choose_method(caps.paths, cal.method)
+        except CalibrationError as exc:
+            problems.add("calibration.method", f"{exc} ({caps.ports} port(s))",
+                         "choose a method the analyzer allows, or an analyzer with the paths this one needs")
+        else:
+            if cal.method == "one-port" and f"S{port}{port}" not in caps.parameters:
+                problems.add("calibration.method", f"the analyzer does not measure S{port}{port} for a one-port "
+                             "calibration", "use the port its profile measures")
+            elif cal.method not in RUNNABLE_METHODS:
+                problems.add("calibration.method", f"lineproof run measures batches as-terminated at one port; a "
+                             f"{cal.method} calibration is not part of a run yet", "use method = \"one-port\"")
     path = resolve_path(cal.kit, spec)
     if path is None:
         problems.add("calibration.kit", f"cal kit file {cal.kit!r} not found (looked beside the sequence, "
@@ -143,7 +133,7 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
         problems.absorb(exc, "calibration.kit")
         return
     kinds = {standard.kind for standard in kit.standards.values()}
-    missing = [kind for kind in needs.kinds if kind not in kinds and kind != "thru"]
+    missing = [kind for kind in METHOD_STANDARDS[cal.method] if kind not in kinds]
     if missing:
         problems.add("calibration.kit", f"kit {kit.name} has no {', '.join(missing)} standard for a {cal.method} calibration",
                      f"add the standards to {path} or use another kit")
@@ -202,9 +192,6 @@ def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
         if "measure-batch" not in seen:
             problems.add("reverify", "re-verification happens during a batch, and this sequence measures none",
                          "remove [reverify] or add a measure-batch step")
-    if spec.decision_rule not in RUNNABLE_RULES:
-        problems.add("decision.rule", f"this version of lineproof cannot apply {spec.decision_rule} acceptance yet "
-                     "(it needs the per-point uncertainty)", "use rule = \"simple\"")
 
 
 def _check_devices(spec: SequenceSpec, problems: Problems) -> None:
@@ -242,7 +229,7 @@ def _needed_objects(spec: SequenceSpec) -> list[tuple[str, str]]:
         except InputError:
             return found  # reported by _check_calibration
         found += [(name, "calibration.kit") for name, standard in kit.standards.items()
-                  if standard.kind in METHODS[cal.method].kinds]
+                  if standard.kind in METHOD_STANDARDS[cal.method]]
     return found
 
 

@@ -207,13 +207,17 @@ class ResultStore:
         return calstore.load_calibration(self.path.parent / str(rows[0]["file"]))
 
     def record_qualification(self, run_id: str, calibration_id: str, qualification: TerminationQualification,
-                             measured_utc: str) -> int:
+                             measured_utc: str, trace: Mapping[str, np.ndarray] | None = None) -> int:
+        """A termination qualification; ``trace`` keeps its per-point arrays (corrected
+        reflection and uncertainty) so that a resumed run can rely on it as the first did."""
         q = qualification
+        packed = None if trace is None else _pack_arrays(trace)
         with self._transaction() as db:
             cursor = self._run(db, "INSERT INTO qualifications (run_id, calibration_id, termination, measured_utc,"
-                               " worst_vswr, worst_frequency_hz, limit_vswr, passed) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                               " worst_vswr, worst_frequency_hz, limit_vswr, expanded_uncertainty, passed, trace)"
+                               " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                                (run_id, calibration_id, q.name, measured_utc, q.worst_vswr, q.worst_frequency_hz,
-                                q.limit_vswr, int(q.passed)))
+                                q.limit_vswr, q.expanded_uncertainty, int(q.passed), packed))
             self._run(db, "UPDATE runs SET termination = ?, termination_worst_vswr = ?, termination_limit_vswr = ?,"
                       " termination_passed = ? WHERE run_id = ?",
                       (q.name, q.worst_vswr, q.limit_vswr, int(q.passed), run_id))

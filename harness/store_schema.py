@@ -11,7 +11,8 @@ Tables (schema 2)::
     lineproof_meta        key/value: application, schema_version
     runs                  one per run: sequence and its hash, station, operator, analyzer, status
     calibrations          one per solved calibration; ``file`` names its saved terms (calstore)
-    qualifications        each termination qualification: calibration, worst VSWR, limit, result
+    qualifications        each termination qualification: calibration, worst VSWR, limit, result, and
+                          its corrected trace with uncertainty (numpy .npz bytes)
     verifications         each check-standard verification: calibration, worst deviation, result
     verification_bands    its per-band figures
     devices               one per measured device of a run: verdict, file, calibration, last check
@@ -139,7 +140,9 @@ MIGRATION_2 = (
         worst_vswr {real} NOT NULL,
         worst_frequency_hz {real} NOT NULL,
         limit_vswr {real} NOT NULL,
-        passed INTEGER NOT NULL
+        expanded_uncertainty {real},
+        passed INTEGER NOT NULL,
+        trace {blob}
     )""",
     """CREATE TABLE verifications (
         verification_id {id},

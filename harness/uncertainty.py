@@ -18,8 +18,8 @@ quantity x (a delay, a capacitance, a phase, the load's reflection, a connection
 standard by δ = s·x and so p by -s·x·L_i; its coefficient vector c = -s ℓ_i (three complex
 numbers per frequency) and its variance build
 
-    A = Σ E|x|² c c^H      (the error's variance is v^H A v,          v = (1, Γ, Γ²))
-    B = Σ E[x²]  c c^T     (its pseudo-variance is v^T B v; zero for an input of unknown phase)
+    A = Σ E|x|² c̄ cᵀ       (the error's variance is v^H A v,          v = (1, Γ, Γ²))
+    B = Σ E[x²]  c cᵀ      (its pseudo-variance is vᵀ B v; zero for an input of unknown phase)
 
 stored with the calibration ("port1.variance", "port1.pseudo_variance").  The magnitude
 |Γ| moves with the error's component along Γ: u²(|Γ|) = ½ (V + Re(W e^(-2j arg Γ))) (GUM
@@ -40,6 +40,7 @@ import numpy as np
 
 from lineproof.calkit import CalKit, StandardDefinition, ideal_reflection, varied
 
+LOAD_INPUT = "load reflection"
 #: Step for the numerical sensitivity of a standard's model to one of its values.
 _DELAY_STEP_S = 1e-14
 _RELATIVE_STEP = 1e-6
@@ -56,7 +57,9 @@ class UncertaintySettings:
     connection_repeatability: float = 0.0
     repeatability_reference_hz: float = 1e9
     trace_noise: float | None = None
-    coverage_factor: float = 2.0
+    #: None: k = 2, or the factor of a dominant contribution of unknown phase (see
+    #: :func:`coverage_factor`); a number fixes k.
+    coverage_factor: float | None = None
 
     def repeatability(self, frequencies_hz: np.ndarray) -> np.ndarray:
         return self.connection_repeatability * np.asarray(frequencies_hz, dtype=float) / self.repeatability_reference_hz
@@ -86,6 +89,14 @@ def load_reflection_variance(kit: CalKit) -> float:
     return (10 ** (-worst / 10) - 10 ** (-best / 10)) * 10 / math.log(10) / (best - worst)
 
 
+def load_spread(kit: CalKit) -> float:
+    """Smallest over largest |Γ| of the actual loads (1: the worst figure exactly)."""
+    statement = kit.uncertainty
+    if statement.load_return_loss_best_db is None:
+        return 1.0
+    return 10 ** (-(statement.load_return_loss_best_db - statement.load_return_loss_db) / 20)
+
+
 def _derivative(standard: StandardDefinition, f: np.ndarray, z0: float, **changes: object) -> np.ndarray:
     return (ideal_reflection(varied(standard, **changes), f, z0) - ideal_reflection(standard, f, z0))
 
@@ -99,7 +110,7 @@ def standard_inputs(kit: CalKit, kind: str, frequencies_hz: np.ndarray, settings
     z0 = kit.reference_impedance_ohm
     inputs: list[InputQuantity] = []
     if kind == "load":
-        inputs.append(InputQuantity("load reflection", np.ones(f.shape, complex), load_reflection_variance(kit), False))
+        inputs.append(InputQuantity(LOAD_INPUT, np.ones(f.shape, complex), load_reflection_variance(kit), False))
     else:
         phase = statement.open_phase_deg if kind == "open" else statement.short_phase_deg
         if phase:
@@ -145,14 +156,19 @@ def residual_model(kit: CalKit, kinds: tuple[str, ...], frequencies_hz: np.ndarr
     weights = _node_weights(nodes)
     variance = np.zeros(f.shape + (3, 3), dtype=complex)
     pseudo = np.zeros(f.shape + (3, 3), dtype=complex)
+    load = np.zeros(f.shape + (3, 3), dtype=complex)
     for index, kind in enumerate(kinds):
         for quantity in standard_inputs(kit, kind, f, settings):
             c = -quantity.sensitivity[:, None] * weights[:, :, index]
             outer = np.asarray(quantity.variance)[..., None, None]
-            variance += outer * c[:, :, None] * np.conj(c)[:, None, :]
+            term = outer * np.conj(c)[:, :, None] * c[:, None, :]
+            variance += term
+            if quantity.name == LOAD_INPUT:
+                load += term
             if quantity.real:
                 pseudo += outer * c[:, :, None] * c[:, None, :]
-    return {f"{prefix}.variance": variance, f"{prefix}.pseudo_variance": pseudo}
+    return {f"{prefix}.variance": variance, f"{prefix}.pseudo_variance": pseudo,
+            f"{prefix}.load_variance": load, f"{prefix}.load_spread": np.full(f.shape, load_spread(kit), complex)}
 
 
 def transmission_model(kit: CalKit, frequencies_hz: np.ndarray, settings: UncertaintySettings) -> dict[str, np.ndarray]:
@@ -213,14 +229,48 @@ def estimate_trace_noise(trace: np.ndarray) -> float:
     return float(1.4826 * np.median(np.abs(parts - np.median(parts))) / math.sqrt(6))
 
 
+#: Coverage factor for the coverage probability of k = 2 under a normal distribution
+#: (95.45 %) when one contribution of unknown phase dominates: X = r·Y + sqrt(1 - r²)·Z with
+#: Y the projection of a vector of magnitude spread evenly over [m·a, a] and uniform phase
+#: (scaled to unit variance), Z standard normal, r = u(Y)/u(X).  Rows m = 0, 0.2, ... 1;
+#: columns r = 0, 0.05, ... 1.  Computed by numerical integration over Y (4000 phases x 200
+#: magnitudes) and root finding; tests/unit/test_uncertainty.py checks it by Monte Carlo.
+#: GUM G.6.5-G.6.6 and EA-4/02 M:2013 §5: with a dominant non-normal contribution the
+#: coverage factor follows its distribution (1.41 for a pure U-shape).
+_SPREADS = np.array([0.0, 0.2, 0.4, 0.6, 0.8, 1.0])
+_SHARES = np.linspace(0.0, 1.0, 21)
+_COVERAGE_TABLE = np.array([
+    (2.000, 2.000, 2.000, 2.000, 2.000, 2.000, 2.000, 2.000, 1.999, 1.999, 1.999, 1.999, 1.999, 1.999, 1.999, 2.000, 2.002, 2.004, 2.006, 2.009, 2.024),
+    (2.000, 2.000, 2.000, 2.000, 2.000, 2.000, 1.999, 1.999, 1.998, 1.997, 1.994, 1.991, 1.987, 1.982, 1.974, 1.964, 1.951, 1.934, 1.913, 1.888, 1.869),
+    (2.000, 2.000, 2.000, 2.000, 2.000, 2.000, 1.999, 1.998, 1.997, 1.995, 1.991, 1.986, 1.979, 1.969, 1.955, 1.937, 1.912, 1.880, 1.837, 1.781, 1.717),
+    (2.000, 2.000, 2.000, 2.000, 2.000, 1.999, 1.999, 1.998, 1.996, 1.993, 1.989, 1.983, 1.974, 1.962, 1.944, 1.921, 1.890, 1.847, 1.789, 1.706, 1.582),
+    (2.000, 2.000, 2.000, 2.000, 2.000, 1.999, 1.999, 1.998, 1.996, 1.993, 1.988, 1.982, 1.972, 1.958, 1.939, 1.914, 1.879, 1.832, 1.766, 1.667, 1.473),
+    (2.000, 2.000, 2.000, 2.000, 2.000, 1.999, 1.999, 1.998, 1.996, 1.993, 1.988, 1.981, 1.971, 1.957, 1.938, 1.912, 1.876, 1.828, 1.760, 1.657, 1.411),
+])  # fmt: skip
+
+
+def coverage_factor(share: np.ndarray, spread: np.ndarray | float) -> np.ndarray:
+    """Coverage factor for a dominant contribution of unknown phase with standard-uncertainty
+    ``share`` r of the total and magnitude spread m (bilinear in the table above)."""
+    r = np.clip(np.asarray(share, dtype=float), 0.0, 1.0) * (_SHARES.size - 1)
+    m = np.clip(np.broadcast_to(np.asarray(spread, dtype=float), r.shape), 0.0, 1.0) * (_SPREADS.size - 1)
+    r0 = np.minimum(r.astype(int), _SHARES.size - 2)
+    m0 = np.minimum(m.astype(int), _SPREADS.size - 2)
+    dr, dm = r - r0, m - m0
+    table = _COVERAGE_TABLE
+    low = table[m0, r0] * (1 - dr) + table[m0, r0 + 1] * dr
+    high = table[m0 + 1, r0] * (1 - dr) + table[m0 + 1, r0 + 1] * dr
+    return low * (1 - dm) + high * dm
+
+
 @dataclass(frozen=True, eq=False)
 class ReflectionUncertainty:
-    """|Γ| per point with its standard and expanded uncertainty, the interval and a budget
-    (standard uncertainty of |Γ| from each source)."""
+    """|Γ| per point with its standard uncertainty, coverage factor (per point), the interval
+    and a budget (standard uncertainty of |Γ| from each source)."""
 
     magnitude: np.ndarray
     standard_uncertainty: np.ndarray
-    coverage_factor: float
+    coverage_factor: np.ndarray
     budget: Mapping[str, np.ndarray] = field(default_factory=dict)
 
     @property
@@ -241,12 +291,23 @@ class ReflectionUncertainty:
         return vswr_from_reflection(self.lower), vswr_from_reflection(self.upper)
 
 
-def termination_bound(gamma: np.ndarray, termination_upper: np.ndarray | float) -> np.ndarray:
+def termination_bound(gamma: np.ndarray, termination_rms: np.ndarray | float) -> np.ndarray:
     """Largest change of an as-terminated input reflection from a termination of reflection
-    up to ρL: |S21 S12 ρL / (1 - S22 ρL)| <= (1 - |S11|²) ρL / (1 - ρL) for a passive
-    reciprocal device (|S21|² <= 1 - |S11|², |S22| <= 1)."""
-    rho = np.minimum(np.asarray(termination_upper, dtype=float), 0.999)
+    ρL: |S21 S12 ρL / (1 - S22 ρL)| <= (1 - |S11|²) ρL / (1 - ρL) for a passive reciprocal
+    device (|S21|² <= 1 - |S11|², |S22| <= 1)."""
+    rho = np.minimum(np.asarray(termination_rms, dtype=float), 0.999)
     return (1 - np.minimum(np.abs(gamma), 1.0) ** 2) * rho / (1 - rho)
+
+
+def termination_rms(reflection: np.ndarray, standard_uncertainty: np.ndarray) -> np.ndarray:
+    """What is known of a qualified termination's |ΓL|: its measured value with the
+    uncertainty of measuring it, as the RMS sqrt(|ΓLm|² + 2u²) (u the radial standard
+    uncertainty; the error taken as of unknown phase)."""
+    return np.sqrt(np.abs(reflection) ** 2 + 2 * np.asarray(standard_uncertainty) ** 2)
+
+
+def _radial(v: np.ndarray, w: np.ndarray, turn: np.ndarray) -> np.ndarray:
+    return np.sqrt(np.maximum(0.5 * (v + (w * turn).real), 0.0))
 
 
 def reflection_uncertainty(
@@ -254,37 +315,62 @@ def reflection_uncertainty(
     gamma: np.ndarray,
     frequencies_hz: np.ndarray,
     settings: UncertaintySettings = UncertaintySettings(),
-    termination_upper: np.ndarray | float | None = None,
+    termination_reach: np.ndarray | float | None = None,
     interpolation_error: float | None = None,
     transmission: tuple[np.ndarray, np.ndarray] | None = None,
     prefix: str = "port1",
 ) -> ReflectionUncertainty:
     """Uncertainty of the corrected reflection ``gamma`` at each point.
 
-    ``termination_upper``: the largest reflection of the termination on the device's output
-    (as-terminated measurement); ``transmission``: (S21 S12, load match) of full two-port data,
-    whose corrected S11 also carries the residual load match (p(ELF), reaching S11 through
-    S21 S12)."""
+    ``termination_reach``: the (RMS) reflection of the termination on the device's output in
+    an as-terminated measurement (:func:`termination_rms`); ``transmission``: (S21 S12, load
+    match) of full two-port data, whose corrected S11 also carries the residual load match
+    (p(ELF), reaching S11 through S21 S12).  The coverage factor is 2 unless a contribution of
+    unknown phase dominates (then from :func:`coverage_factor`), or ``settings.coverage_factor``."""
     g = np.asarray(gamma, dtype=complex)
     f = np.asarray(frequencies_hz, dtype=float)
     vector = np.stack([np.ones_like(g), g, g * g], axis=-1)
     if transmission is not None:
         product, load_match = transmission
         vector = vector + product[:, None] * np.stack([np.ones_like(g), load_match, load_match**2], axis=-1)
-    v, w = _quadratic_forms(residuals, prefix, vector)
     turn = np.exp(-2j * np.angle(g))
-    budget = {"calibration": np.sqrt(np.maximum(0.5 * (v + (w * turn).real), 0.0))}
+    v, w = _quadratic_forms(residuals, prefix, vector)
+    calibration = _radial(v, w, turn)
+    load_v = np.zeros(f.shape)
+    if f"{prefix}.load_variance" in residuals:
+        load_v = np.einsum("nj,njk,nk->n", np.conj(vector), residuals[f"{prefix}.load_variance"], vector).real
+    load = np.minimum(np.sqrt(np.maximum(load_v, 0.0) / 2), calibration)
+    budget = {"calibration (load standard)": load,
+              "calibration (other standards)": np.sqrt(np.maximum(calibration**2 - load**2, 0.0))}
     noise = settings.trace_noise if settings.trace_noise is not None else estimate_trace_noise(g)
     budget["noise"] = np.full(f.shape, noise)
     if settings.connection_repeatability:
         reach = np.abs(1 - g * g) if transmission is None else np.abs(1 - g * g) + np.abs(transmission[0])
         budget["connection"] = settings.repeatability(f) * reach / math.sqrt(2)
-    if termination_upper is not None:
-        budget["termination"] = termination_bound(g, termination_upper) / math.sqrt(2)
+    bounded = [(load, residuals.get(f"{prefix}.load_spread", np.ones(f.shape)).real)]
+    if termination_reach is not None:
+        budget["termination"] = termination_bound(g, termination_reach) / math.sqrt(2)
+        bounded.append((budget["termination"], np.ones(f.shape)))
     if interpolation_error:
         budget["interpolation"] = np.full(f.shape, interpolation_error / math.sqrt(2))
+        bounded.append((budget["interpolation"], np.ones(f.shape)))
     total = np.sqrt(sum(part**2 for part in budget.values()))
-    return ReflectionUncertainty(np.abs(g), total, settings.coverage_factor, budget)
+    return ReflectionUncertainty(np.abs(g), total, _coverage(bounded, total, settings), budget)
+
+
+def _coverage(bounded: list[tuple[np.ndarray, np.ndarray]], total: np.ndarray,
+              settings: UncertaintySettings) -> np.ndarray:
+    """Per point: the stated coverage factor, or that of the largest contribution of unknown
+    phase (the others counted as normal, which errs on the wide side)."""
+    if settings.coverage_factor is not None:
+        return np.full(total.shape, settings.coverage_factor)
+    parts = np.stack([part for part, _ in bounded])
+    spreads = np.stack([spread for _, spread in bounded])
+    largest = np.argmax(parts, axis=0)
+    columns = np.arange(total.size)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        share = np.where(total > 0, parts[largest, columns] / total, 0.0)
+    return coverage_factor(share, spreads[largest, columns])
 
 
 def transmission_uncertainty_db(
@@ -305,7 +391,7 @@ def transmission_uncertainty_db(
         mismatch = variance[:, 2, 2].real * np.abs(s11) ** 2 + variance[:, 0, 0].real * np.abs(s22) ** 2
     sigma = noise if noise is not None else (settings.trace_noise or estimate_trace_noise(s21))
     relative = np.sqrt(magnitude + 0.5 * mismatch + (sigma / np.maximum(np.abs(s21), 1e-12)) ** 2)
-    return settings.coverage_factor * 20 / math.log(10) * relative
+    return (settings.coverage_factor or 2.0) * 20 / math.log(10) * relative
 
 
 # -- published mismatch formulas -------------------------------------------------------------

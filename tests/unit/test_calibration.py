@@ -91,3 +91,91 @@ def test_missing_standard_is_refused() -> None:
     ideals = {"open": np.ones(n, complex), "short": -np.ones(n, complex), "load": np.zeros(n, complex)}
     with pytest.raises(CalibrationError, match="missing load"):
         calibration.solve_one_port(PLAN.frequencies(), {"open": ideals["open"], "short": ideals["short"]}, ideals)
+
+
+def test_closed_form_agrees_with_scikit_rf_on_kit_standards() -> None:
+    # The vectorised solve of the three-standard system against scikit-rf's OnePort (a
+    # reference library), with the kit's offset standards (not ideal +1/-1/0) as ideals.
+    import skrf
+    from skrf.calibration import OnePort
+
+    rng = np.random.default_rng(21)
+    f = PLAN.frequencies()
+    kit = load_kit("kits/sma50-illustrative.toml")
+    truth = random_terms(rng, f.size)
+    ideals = {kind: kit.ideal(kind, f) for kind in ("open", "short", "load")}
+    measured = {kind: embed(truth, value) for kind, value in ideals.items()}
+    mine = calibration.solve_one_port(f, measured, ideals)
+    frequency = skrf.Frequency.from_f(f, unit="Hz")
+    reference = OnePort(measured=[skrf.Network(frequency=frequency, s=measured[k]) for k in ideals],
+                        ideals=[skrf.Network(frequency=frequency, s=ideals[k]) for k in ideals])
+    reference.run()
+    for name, key in (("directivity", "directivity"), ("source_match", "source match"),
+                      ("reflection_tracking", "reflection tracking")):
+        np.testing.assert_allclose(mine[name], reference.coefs[key], atol=1e-12)
+        np.testing.assert_allclose(mine[name], truth[name], atol=1e-12)
+
+
+def test_four_standards_are_solved_by_least_squares() -> None:
+    rng = np.random.default_rng(22)
+    f = PLAN.frequencies()
+    truth = random_terms(rng, f.size)
+    ideals = {"open": np.ones(f.size, complex), "short": -np.ones(f.size, complex),
+              "load": np.zeros(f.size, complex), "offset short": -np.exp(-2j * np.pi * f * 60e-12)}
+    measured = {name: embed(truth, value) for name, value in ideals.items()}
+    solved = calibration.solve_one_port(f, measured, ideals)
+    for name in truth:
+        np.testing.assert_allclose(solved[name], truth[name], atol=1e-10)
+
+
+def test_standards_measured_on_different_grids_are_refused() -> None:
+    n = PLAN.points
+    ideals = {"open": np.ones(n, complex), "short": -np.ones(n, complex), "load": np.zeros(n, complex)}
+    measured = dict(ideals)
+    measured["load"] = np.zeros(n - 1, complex)
+    with pytest.raises(CalibrationError, match="different grid.*same sweep plan"):
+        calibration.solve_one_port(PLAN.frequencies(), measured, ideals)
+
+
+@pytest.mark.parametrize(("paths", "wanted", "expected"), [
+    ("reflection", None, calibration.ONE_PORT_METHOD),
+    ("forward", None, calibration.ONE_PATH_METHOD),
+    ("full", None, calibration.FULL_TWO_PORT_METHOD),
+    ("full", "one-path", calibration.ONE_PATH_METHOD),
+    ("forward", "thru-response", calibration.THRU_RESPONSE_METHOD),
+    ("full", "one-port", calibration.ONE_PORT_METHOD),
+])
+def test_method_follows_what_the_analyzer_can_measure(paths: str, wanted: str | None, expected: str) -> None:
+    assert calibration.choose_method(paths, wanted) == expected
+
+
+def test_a_method_beyond_the_analyzer_is_refused() -> None:
+    with pytest.raises(CalibrationError, match="measures forward paths only.*one-path"):
+        calibration.choose_method("forward", "solt")
+    with pytest.raises(CalibrationError, match="unknown calibration method"):
+        calibration.choose_method("full", "trl")
+
+
+def test_75_ohm_system_is_corrected_correctly() -> None:
+    # A device defined by scikit-rf in 50 ohm and renormalised by scikit-rf to 75 ohm (the
+    # reference), measured through error terms with the 75-ohm kit's standards (defined
+    # against 75 ohm): the correction must return the 75-ohm reflection.  scikit-rf 2.2's
+    # OnePort.apply_cal is wrong here (it assumes 50 ohm); our closed form has no Z0 in it.
+    import skrf
+
+    f = PLAN.frequencies()
+    frequency = skrf.Frequency.from_f(f, unit="Hz")
+    media = skrf.media.DefinedGammaZ0(frequency, z0_port=50.0, z0=50.0)
+    device = media.resistor(30.0) ** media.shunt_capacitor(2e-12) ** media.short()  # a one-port in 50 ohm
+    truth_50 = device.s[:, 0, 0].copy()
+    device.renormalize(75.0)
+    truth_75 = device.s[:, 0, 0]
+    kit = load_kit("kits/n75-illustrative.toml")
+    assert kit.reference_impedance_ohm == 75.0
+    terms = random_terms(np.random.default_rng(23), f.size)
+    ideals = {kind: kit.ideal(kind, f) for kind in ("open", "short", "load")}
+    cal = calibration.make_record("test", calibration.solve_one_port(
+        f, {k: embed(terms, v) for k, v in ideals.items()}, ideals), f, PLAN, IDENTITY, kit.name, kit.sha256, 75.0)
+    np.testing.assert_allclose(calibration.correct_one_port(cal, f, embed(terms, truth_75)), truth_75, atol=1e-11)
+    # and the 75-ohm figure differs from the 50-ohm one: the test would notice a 50-ohm slip
+    assert np.max(np.abs(truth_75 - truth_50)) > 0.05

@@ -72,3 +72,78 @@ def test_kit_without_a_short_says_so_when_asked() -> None:
     kit = parse_kit("[kit]\nname='k'\n[standards.open]\nkind='open'\n[standards.load]\nkind='load'\n", "k.toml")
     with pytest.raises(InputError, match="no short standard"):
         kit.standard("short")
+
+
+@pytest.mark.parametrize("z_reference", [50.0, 75.0])
+def test_thru_matches_telegrapher_line(z_reference: float) -> None:
+    # A lossy 60-ohm line between two z_reference ports: the AN 1287-11 line against the
+    # simulator's telegrapher's-equation ABCD (Pozar Table 4.1) converted with Pozar Table 4.2.
+    from lineproof.calkit import thru_s
+
+    definition = StandardDefinition("line", "thru", 120e-12, 2.0e9, 60.0)
+    expected = physics.abcd_to_s(physics.line(F, 60.0, 120e-12, 2.0e9), z_reference)
+    np.testing.assert_allclose(thru_s(definition, F, z_reference), expected, atol=2e-5)
+
+
+def test_modelled_load_is_the_parasitic_resistor() -> None:
+    kit = parse_kit("[kit]\nname='k'\n[standards.load]\nkind='load'\nload_resistance_ohm=50.5\n"
+                    "load_inductance_h=0.1e-9\nload_capacitance_f=0.05e-12\n", "k.toml")
+    w = 2 * np.pi * F
+    z = 1 / (1 / (50.5 + 1j * w * 0.1e-9) + 1j * w * 0.05e-12)
+    np.testing.assert_allclose(kit.ideal("load", F), physics.load_reflection(z), atol=1e-14)
+
+
+def test_touchstone_standard_is_used_and_interpolated(tmp_path) -> None:
+    import skrf
+
+    grid = np.linspace(1e6, 6e9, 2001)
+    data = 0.999 * np.exp(-2j * np.pi * grid * 2 * 30e-12)
+    skrf.Network(frequency=skrf.Frequency.from_f(grid, unit="Hz"), s=data, z0=50).write_touchstone(
+        str(tmp_path / "open-data"))
+    text = ("[kit]\nname='k'\n[standards.open]\nkind='open'\ntouchstone='open-data.s1p'\n"
+            "[standards.short]\nkind='short'\n[standards.load]\nkind='load'\n")
+    (tmp_path / "k.toml").write_text(text)
+    kit = load_kit(tmp_path / "k.toml")
+    np.testing.assert_allclose(kit.ideal("open", grid), data, atol=1e-12)
+    np.testing.assert_allclose(kit.ideal("open", F), 0.999 * np.exp(-2j * np.pi * F * 60e-12), atol=1e-6)
+    with pytest.raises(InputError, match=r"k.toml \[standards.open.touchstone\].*leaves the known span"):
+        kit.ideal("open", np.linspace(1e6, 7e9, 11))
+
+
+@pytest.mark.parametrize(("text", "key", "words"), [
+    ("[kit]\nname='k'\n[standards.open]\nkind='open'\ntouchstone='x.s1p'\noffset_delay_s=1e-12\n",
+     "standards.open.offset_delay_s", "either a model or Touchstone"),
+    ("[kit]\nname='k'\n[standards.open]\nkind='open'\ntouchstone='missing.s1p'\n",
+     "standards.open.touchstone", "cannot read"),
+    ("[kit]\nname='k'\n[standards.open]\nkind='open'\nload_resistance_ohm=50\n",
+     "standards.open.load_resistance_ohm", "only a load"),
+    ("[kit]\nname='k'\n[standards.load]\nkind='load'\n[uncertainty]\nload_return_loss=40\n",
+     "uncertainty.load_return_loss", "unknown key"),
+    ("[kit]\nname='k'\n[standards.load]\nkind='load'\n[uncertainty]\nload_return_loss_db=40\n"
+     "load_return_loss_best_db=30\n", "uncertainty.load_return_loss_best_db", "below the worst"),
+    ("[kit]\nname='k'\n[standards.load]\nkind='load'\n[uncertainty]\nopen_phase_deg=-1\n",
+     "uncertainty.open_phase_deg", "cannot be negative"),
+])
+def test_more_bad_kits_name_key_and_fix(tmp_path, text: str, key: str, words: str) -> None:
+    (tmp_path / "bad.toml").write_text(text)
+    with pytest.raises(InputError, match=words) as caught:
+        load_kit(tmp_path / "bad.toml")
+    assert f"[{key}]" in str(caught.value) and "bad.toml" in str(caught.value)
+
+
+def test_kit_without_a_thru_says_so_for_a_two_port_calibration() -> None:
+    kit = parse_kit("[kit]\nname='k'\n[standards.open]\nkind='open'\n", "k.toml")
+    with pytest.raises(InputError, match=r"k.toml \[standards\]: the kit has no thru.*\[standards.thru\]"):
+        kit.thru(F)
+
+
+@pytest.mark.parametrize(("name", "z0"), [("kits/n50-illustrative.toml", 50.0), ("kits/sma50-illustrative.toml", 50.0),
+                                          ("kits/n75-illustrative.toml", 75.0)])
+def test_shipped_kits_are_complete_and_marked_illustrative(name: str, z0: float) -> None:
+    kit = load_kit(name)
+    assert kit.reference_impedance_ohm == z0
+    assert {s.kind for s in kit.standards.values()} == {"open", "short", "load", "thru"}
+    assert "illustrative" in kit.note and "not any manufacturer" in kit.note
+    # every model standard is passive: |Γ| <= 1 over the range a kit of this kind serves
+    for kind in ("open", "short", "load"):
+        assert np.all(np.abs(kit.ideal(kind, F)) <= 1.0 + 1e-12)

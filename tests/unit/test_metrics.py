@@ -66,3 +66,37 @@ def test_band_figures_use_only_points_inside_the_band() -> None:
     assert figures.indices.size == 5
     with pytest.raises(ValueError, match="holds no sweep point"):
         metrics.band_figures(f, magnitude, BandLimit("23cm", 1240e6, 1300e6, 1.2))
+
+
+def test_insertion_loss_and_phase_agree_with_scikit_rf() -> None:
+    rng = np.random.default_rng(6)
+    s = rng.uniform(0.1, 1, (200, 2, 2)) * np.exp(1j * rng.uniform(0, 2 * np.pi, (200, 2, 2)))
+    network = skrf.Network(frequency=skrf.Frequency(1, 200, 200, "MHz"), s=s)
+    np.testing.assert_allclose(metrics.insertion_loss_db(s[:, 1, 0]), -network.s_db[:, 1, 0], rtol=1e-12)
+    np.testing.assert_allclose(metrics.phase_deg(s[:, 1, 0]), network.s_deg[:, 1, 0], atol=1e-12)
+
+
+def test_group_delay_of_a_line_and_of_a_filter() -> None:
+    f = np.linspace(10e6, 1e9, 991)
+    # a pure delay: the group delay is the delay itself
+    np.testing.assert_allclose(metrics.group_delay_s(f, np.exp(-2j * np.pi * f * 3.3e-9)), 3.3e-9, rtol=1e-12)
+    # a filter: against scikit-rf's Network.group_delay (a reference library)
+    media = skrf.media.DefinedGammaZ0(skrf.Frequency.from_f(f, unit="Hz"), z0_port=50.0, z0=50.0)
+    filt = media.shunt_capacitor(10e-12) ** media.inductor(60e-9) ** media.shunt_capacitor(10e-12)
+    np.testing.assert_allclose(metrics.group_delay_s(f, filt.s[:, 1, 0]), filt.group_delay[:, 1, 0], rtol=1e-9)
+
+
+def test_markers_read_the_nearest_point_and_refuse_outside() -> None:
+    f = np.linspace(100e6, 500e6, 401)
+    assert metrics.marker_index(f, 145.2e6) == 45
+    with pytest.raises(ValueError, match="outside the sweep"):
+        metrics.marker_index(f, 600e6)
+
+
+def test_return_loss_limit_tightens_the_vswr_limit() -> None:
+    # 20 dB return loss is |Γ| 0.1, tighter than VSWR 1.5 (|Γ| 0.2); "Reference Data for
+    # Engineers" conversion table values as above.
+    band = BandLimit("b", 1e6, 2e6, 1.5, min_return_loss_db=20.0)
+    assert band.max_reflection == pytest.approx(0.1)
+    assert BandLimit("b", 1e6, 2e6, 1.5).max_reflection == pytest.approx(0.2)
+    assert BandLimit("b", 1e6, 2e6, float("inf")).max_reflection == 1.0

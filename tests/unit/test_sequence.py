@@ -120,7 +120,7 @@ def test_every_problem_is_reported_with_its_line_key_and_fix(tmp_path: Path) -> 
 def test_capabilities_are_checked_before_any_instrument(tmp_path: Path) -> None:
     # generic-scpi-reflectometer: 1 MHz - 3 GHz, 10001 points per sweep, one port (its profile file)
     text = (GOOD.replace("stop_hz = 500e6", "stop_hz = 3.5e9", 1).replace("points = 201", "points = 20001")
-            .replace('kit = "kits/', 'method = "full-two-port"\nkit = "kits/')
+            .replace('kit = "kits/', 'method = "solt"\nkit = "kits/')
             .replace("start_hz = 420e6\nstop_hz = 450e6", "start_hz = 3.2e9\nstop_hz = 3.3e9"))
     found = problems_of(tmp_path, text)
     messages = {p.key: p.problem for p in found}
@@ -128,7 +128,7 @@ def test_capabilities_are_checked_before_any_instrument(tmp_path: Path) -> None:
     assert "at most 10001 per sweep" in messages["sweep.points"]
     assert "allow_segments" in next(p.fix for p in found if p.key == "sweep.points")
     assert "outside the analyzer's range" in messages["band[2].start_hz"]
-    assert "cannot do a full-two-port calibration" in messages["calibration.method"]
+    assert "cannot do a solt calibration" in messages["calibration.method"]
 
 
 def test_segments_are_allowed_when_asked(tmp_path: Path) -> None:
