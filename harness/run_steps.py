@@ -58,11 +58,13 @@ class RunState:
 
 
 class _ProgressOperator:
-    """Passes connections through to the real operator and advances the step's progress."""
+    """Passes connections through to the real operator and advances the step's progress;
+    ``after_connect`` (when set) runs once each connection is made."""
 
     def __init__(self, inner: Operator, view: RunView) -> None:
         self.inner = inner
         self.view = view
+        self.after_connect: Callable[[], None] | None = None
 
     def connect(self, port: int, thing: str, output: str | None, instruction: str, reversed: bool = False) -> None:
         if reversed:
@@ -70,13 +72,22 @@ class _ProgressOperator:
         else:
             self.inner.connect(port, thing, output, instruction)
         self.view.step_advanced(instruction)
+        if self.after_connect is not None:
+            self.after_connect()
 
 
 class _RecordingPipeline:
-    """At most one device being recorded while the next is measured (depth 0: record inline)."""
+    """Records one device while the next is swept.
+
+    A device's recording is handed over when it has been measured, and started when the next
+    connection is made -- that is, just before the next sweep, when the main thread is about to
+    wait for the analyzer and does not compete for the interpreter.  ``overlap=False`` records
+    each device at once, in the calling thread (attended runs: the line shows before the prompt).
+    """
 
     def __init__(self, overlap: bool) -> None:
         self._executor = ThreadPoolExecutor(1, thread_name_prefix="lineproof-record") if overlap else None
+        self._waiting: Callable[[], None] | None = None
         self._pending: Future[None] | None = None
 
     def submit(self, work: Callable[[], None]) -> None:
@@ -84,9 +95,17 @@ class _RecordingPipeline:
             work()
             return
         self.drain()
-        self._pending = self._executor.submit(work)
+        self._waiting = work
+
+    def start(self) -> None:
+        """Start the waiting recording (called once the next connection is made)."""
+        waiting, self._waiting = self._waiting, None
+        if waiting is not None and self._executor is not None:
+            self._pending = self._executor.submit(waiting)
 
     def drain(self) -> None:
+        """Wait until every recording handed over is done (and raise what it raised)."""
+        self.start()
         pending, self._pending = self._pending, None
         if pending is not None:
             pending.result()
@@ -157,7 +176,7 @@ class StepRunner:
 
     def _route(self, index: int, step: StepSpec) -> None:
         assert step.target is not None
-        self.station.operator.connect(self.measuring.port, step.target, None, f"Connect {step.target} to port "
+        self.measuring.operator.connect(self.measuring.port, step.target, None, f"Connect {step.target} to port "
                                       f"{self.measuring.port}")
         self.view.step_finished(f"routed to {step.target}")
 
@@ -257,18 +276,18 @@ class StepRunner:
         assert devices is not None and termination is not None
         overlap = not isinstance(self.station.operator, ConsoleOperator)
         pipeline = _RecordingPipeline(overlap)
+        self.measuring.operator.after_connect = pipeline.start  # type: ignore[attr-defined]
         try:
             for unit in self._units():
                 if self._check_due():
-                    pipeline.drain()
                     self.verify()
                 self._measure_one(unit, termination.name, pipeline)
                 if self.stop.requested:
                     break
-            pipeline.drain()
             if not self.stop.requested and self.spec.reverify.at_end and self.state.measured > self.state.checked_at_devices:
                 self.verify()
         finally:
+            self.measuring.operator.after_connect = None  # type: ignore[attr-defined]
             pipeline.close()
 
     def _units(self):  # -> Iterator[DeviceUnit]
@@ -296,7 +315,7 @@ class StepRunner:
         device = DeviceIdentity(unit.serial, unit.model)
         basis = self._basis()
         if self.spec.devices is not None and self.spec.devices.entry == "listed":
-            self.station.operator.connect(
+            self.measuring.operator.connect(
                 self.measuring.port, unit.serial, termination,
                 f"Connect {unit.model} s/n {unit.serial} to port {self.measuring.port}, its output on {termination}")
         frequencies, raw = self.measuring.measure_raw()

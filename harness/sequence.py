@@ -77,6 +77,9 @@ class StationSpec:
     connected_by: str
     simulated_bench: str | None = None
     switch: SwitchSpec | None = None
+    #: The control channel of a simulated bench started elsewhere (``lineproof sim``):
+    #: the station's resources are given, and a simulated operator connects through it.
+    bench_control: str | None = None
     reference_plane: str = "analyzer test-port connector"
     #: What the station knows of its own uncertainty beyond the kit (repeatability, noise).
     uncertainty: UncertaintySettings = field(default_factory=UncertaintySettings)
@@ -251,10 +254,15 @@ def _station_from(root: TableReader, station_text: tuple[str, str] | None, probl
 
 
 def parse_station(table: TableReader, source: str) -> StationSpec | None:
-    table.reject_unknown({"name", "simulated_bench", "connected_by", "reference_plane", "analyzer", "switch",
-                          "uncertainty"})
+    table.reject_unknown({"name", "simulated_bench", "bench_control", "connected_by", "reference_plane", "analyzer",
+                          "switch", "uncertainty"})
     name = table.get("name", str, fix='add name = "which bench this is"')
     simulated = table.get("simulated_bench", str, None)
+    control = table.get("bench_control", str, None)
+    if control is not None and (simulated is not None or not re.fullmatch(r"(127\.0\.0\.1|localhost):[0-9]{1,5}", control)):
+        table.problems.add(table.key("bench_control"), f"bench_control {control[:60]!r} is not usable here",
+                           "give the 127.0.0.1:<port> that lineproof sim printed, without simulated_bench")
+        control = None
     analyzer = _analyzer(table.table("analyzer", required=True), simulated is not None)
     switch = _switch(table.table("switch"), simulated is not None)
     default_hands = "switch" if table.has("switch") else "operator"
@@ -263,14 +271,15 @@ def parse_station(table: TableReader, source: str) -> StationSpec | None:
     if connected_by == "switch" and not table.has("switch"):
         table.problems.add(table.key("connected_by"), "connected_by = \"switch\" but the station has no switch",
                            "add a [station.switch] table or choose operator")
-    if connected_by == "simulated-operator" and simulated is None:
+    if connected_by == "simulated-operator" and simulated is None and control is None:
         table.problems.add(table.key("connected_by"), "a simulated operator exists only on a simulated bench",
-                           "set simulated_bench = \"<scenario>\" or choose operator")
+                           "set simulated_bench = \"<scenario>\" (or bench_control) or choose operator")
     uncertainty = _uncertainty(table.table("uncertainty"))
     if name is None or analyzer is None or connected_by is None or (table.has("switch") and switch is None):
         return None
-    return StationSpec(name.strip(), source, analyzer, connected_by, simulated, switch, reference_plane or "",
-                       uncertainty or UncertaintySettings())
+    return StationSpec(name.strip(), source, analyzer, connected_by, simulated_bench=simulated, switch=switch,
+                       bench_control=control, reference_plane=reference_plane or "",
+                       uncertainty=uncertainty or UncertaintySettings())
 
 
 def _uncertainty(table: TableReader | None) -> UncertaintySettings | None:

@@ -101,7 +101,8 @@ def _make_operator(sequence: SequenceSpec, station: OpenStation, ask: Callable[[
         assert station.switch is not None and spec.switch is not None
         slots = {u.serial: u.slot for u in sequence.devices.units if u.slot} if sequence.devices else {}
         return SwitchOperator(station.switch, spec.switch.wiring, slots)
-    hands = SimulatedOperator(station.bench.control_address) if station.bench is not None else None
+    control = station.bench.control_address if station.bench is not None else spec.bench_control
+    hands = SimulatedOperator(control) if control is not None else None
     if spec.connected_by == "simulated-operator":
         assert hands is not None
         return hands
