@@ -17,13 +17,15 @@ from lineproof.drivers import ieee488
 from lineproof.drivers.instrument import ProfiledInstrument
 from lineproof.drivers.profiles import AnalyzerCapabilities, AnalyzerProfile, Operation
 from lineproof.drivers.session import MessageSession
-from lineproof.errors import InputError, LinkError, ReplyError
+from lineproof.errors import InputError, InstrumentError, LinkError, ReplyError
 from lineproof.values import MeasuredSweep, SweepPlan
 
 #: Relative tolerance of the frequency check: ASCII rows carry 9 significant digits
-#: (PROTOCOLS.md §2), i.e. up to 5e-9 relative rounding; any real grid mismatch (another
-#: start, stop or point count) moves points by far more.
-_GRID_TOLERANCE = 1e-8
+#: (PROTOCOLS.md §2), i.e. up to 5e-9 relative rounding, and REAL,32 (IEEE 754 single) a
+#: 24-bit significand, 6e-8; any real grid mismatch (another start, stop or point count)
+#: moves points by far more (a step of a 10,001-point sweep is 1e-4 of its span).
+_GRID_TOLERANCE = {"REAL,32": 1.2e-7}
+_GRID_TOLERANCE_DEFAULT = 1e-8
 #: Bytes per value on the wire, for transfer timeouts: REAL sizes, and a generous width for
 #: a decimal number with its separator.
 _TEXT_NUMBER_BYTES = 24
@@ -79,6 +81,7 @@ class ProfiledAnalyzer(ProfiledInstrument):
                 fix="narrow the sweep or use an analyzer that covers it",
             )
         self._plan = None
+        self._powered_on()  # read (and clear) the Power On bit left by start-up or a reset
         self._segments = split_plan(plan, caps.max_points)
         self._configured_segment = None
         for name in ("single_sweep_mode", "set_data_format"):
@@ -109,6 +112,17 @@ class ProfiledAnalyzer(ProfiledInstrument):
             raise InputError("this analyzer gives no corrected data", path=self.profile.source,
                              key="capabilities.corrected_data", fix="measure raw data and correct it in lineproof")
         read = "read_corrected" if corrected else "read_raw"
+        try:
+            pieces = self._measure_segments(parameters, read)
+            self._check_errors()
+        except InstrumentError as exc:
+            self._raise_if_reset(exc)
+            raise
+        self._raise_if_reset(None)
+        traces = {p: np.concatenate(chunks) for p, chunks in pieces.items()}
+        return MeasuredSweep(self._plan.frequencies(), traces, corrected=corrected)
+
+    def _measure_segments(self, parameters: Sequence[str], read: str) -> dict[str, list[np.ndarray]]:
         pieces: dict[str, list[np.ndarray]] = {p: [] for p in parameters}
         for index, segment in enumerate(self._segments):
             if self._configured_segment != index:
@@ -118,9 +132,28 @@ class ProfiledAnalyzer(ProfiledInstrument):
                 pieces[parameter].append(self._read_trace(read, parameter, segment.plan))
             if "frequency" not in self._op(read).columns:
                 self._check_grid(segment.plan)
-        self._check_errors()
-        traces = {p: np.concatenate(chunks) for p, chunks in pieces.items()}
-        return MeasuredSweep(self._plan.frequencies(), traces, corrected=corrected)
+        return pieces
+
+    def _raise_if_reset(self, failure: InstrumentError | None) -> None:
+        """A reset or power glitch in the middle of a run loses every setting: the sweep it
+        spoilt is refused, and the next one needs configure() again (IEEE 488.2 §11.5.1.1.2
+        Power On bit of *ESR?, read at configure and after each measurement)."""
+        try:
+            reset = self._powered_on()
+        except InstrumentError:
+            if failure is None:
+                raise
+            return
+        if not reset:
+            return
+        self._plan = None
+        self._configured_segment = None
+        raise ReplyError(
+            "the instrument was reset or power-cycled during the measurement (Power On bit of its "
+            "event status) and has lost its settings; the sweep is discarded -- configure it again",
+            resource=self.resource, command=failure.command if failure else self._op("event_status").send,
+            expected="no reset between configure and measure",
+        ) from failure
 
     # -- timing -----------------------------------------------------------------------
 
@@ -180,9 +213,11 @@ class ProfiledAnalyzer(ProfiledInstrument):
             self._call("select_parameter", parameter=name)
         op = self._op(operation)
         command = op.render(parameter=name)
-        values = self._read_values(operation, 2, plan.points, parameter=name)
+        values = self._read_values(operation, 2, plan.points, complex_pairs=True, parameter=name)
         try:
-            if op.reply == "rows":
+            if op.reply == "block":
+                trace = values
+            elif op.reply == "rows":
                 columns = list(op.columns)
                 if "frequency" in columns:
                     self._compare_grid(values[:, columns.index("frequency")], plan, command)
@@ -192,7 +227,9 @@ class ProfiledAnalyzer(ProfiledInstrument):
         except ieee488.CodecError as exc:
             raise ReplyError(str(exc), resource=self.resource, command=command) from exc
         if trace.size != plan.points:
-            raise ReplyError(f"trace has {trace.size} points", resource=self.resource, command=command,
+            self._plan = None  # the instrument's settings are not ours: configure again
+            raise ReplyError(f"trace has {trace.size} points; was the instrument reset or reconfigured "
+                             "behind our back?", resource=self.resource, command=command,
                              expected=f"{plan.points} points")
         return trace
 
@@ -207,15 +244,20 @@ class ProfiledAnalyzer(ProfiledInstrument):
 
     def _compare_grid(self, grid: np.ndarray, plan: SweepPlan, command: str) -> None:
         expected = plan.frequencies()
-        if grid.shape != expected.shape or not np.allclose(grid, expected, rtol=_GRID_TOLERANCE, atol=1e-3):
+        tolerance = _GRID_TOLERANCE.get(self.capabilities.data_format, _GRID_TOLERANCE_DEFAULT)
+        if grid.shape != expected.shape or not np.allclose(grid, expected, rtol=tolerance, atol=1e-3):
+            self._plan = None  # the instrument's settings are not ours: configure again
             first = f"{grid[0]:.9g} Hz" if grid.size else "nothing"
             raise ReplyError(
                 f"instrument swept another grid ({grid.size} points from {first}); "
-                "was it reset or reconfigured behind our back?",
+                "was it reset or reconfigured behind our back? Configure it again",
                 resource=self.resource, command=command, expected=plan.describe(),
             )
 
-    def _read_values(self, name: str, values_per_point: int, points: int, **values: object) -> np.ndarray:
+    def _read_values(self, name: str, values_per_point: int, points: int, complex_pairs: bool = False,
+                     **values: object) -> np.ndarray:
+        """Numbers as the operation's reply kind gives them: rows as a 2-D array, a number
+        list as a 1-D array, a block as reals (or, with ``complex_pairs``, as complex)."""
         operation = self._op(name)
         command = operation.render(**values)
         timeout = self._transfer_timeout(operation, values_per_point, points)
@@ -225,7 +267,10 @@ class ProfiledAnalyzer(ProfiledInstrument):
         if operation.reply == "numbers":
             return session.query_numbers(command, timeout, operation.idempotent)
         payload = session.query_block(command, timeout, operation.idempotent)
+        caps = self.capabilities
+        decode = ieee488.decode_complex_payload if complex_pairs else ieee488.decode_real_payload
         try:
-            return ieee488.decode_real_payload(payload, self.capabilities.data_format, self.capabilities.byte_order)
+            return decode(payload, caps.data_format, caps.byte_order)
         except ieee488.CodecError as exc:
-            raise ReplyError(str(exc), resource=self.resource, command=command) from exc
+            raise ReplyError(str(exc), resource=self.resource, command=command,
+                             expected=f"{caps.data_format} values") from exc

@@ -9,6 +9,9 @@ from lineproof.drivers.session import MessageSession
 from lineproof.errors import InputError, ReplyError
 from lineproof.values import InstrumentIdentity
 
+#: IEEE 488.2 §11.5.1.1.2: bit 7 of the standard event status register, Power On.
+POWER_ON_BIT = 128
+
 
 class ProfiledInstrument:
     """An instrument whose commands come from a profile."""
@@ -74,6 +77,18 @@ class ProfiledInstrument:
         wait = self.profile.operation("wait")
         if wait is not None:
             self.session.wait_complete(wait.send, timeout_s or wait.timeout_s or self.profile.timing.command_timeout_s)
+
+    def _powered_on(self) -> bool:
+        """Whether the instrument has been powered on (or reset by a power glitch) since the
+        event status register was last read; reading clears it.  False without the operation."""
+        if self.profile.operation("event_status") is None:
+            return False
+        reply = self._call("event_status")
+        try:
+            return bool(int(reply.strip()) & POWER_ON_BIT)
+        except ValueError as exc:
+            raise ReplyError(f"event status {reply!r} is not an integer", resource=self.resource,
+                             command=self._op("event_status").send, expected="0..255") from exc
 
     def _check_errors(self, caused_by: str | None = None) -> None:
         next_error = self.profile.operation("next_error")

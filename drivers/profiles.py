@@ -40,6 +40,7 @@ COMMON_OPERATIONS: dict[str, OperationSpec] = {
     "clear": OperationSpec(idempotent=False),
     "wait": OperationSpec(),
     "next_error": OperationSpec(idempotent=False),
+    "event_status": OperationSpec(idempotent=False),
 }
 
 #: Operations an analyzer profile may define.

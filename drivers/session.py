@@ -94,6 +94,8 @@ class MessageSession:
         #: Commands written since the error queue was last read (the suspects of an entry).
         self._since_check: list[str] = []
         self._stale = False
+        #: How long a resynchronisation waits for a late reply (the failed exchange's timeout).
+        self._resync_timeout_s = default_timeout_s
         #: A command was written and its response is not completely read yet.
         self._in_response = False
         self._terminators = (self.framing.read_termination,)
@@ -117,12 +119,23 @@ class MessageSession:
         _trace(self.resource, "<-", command)
         self.transport.write_raw(command.encode("ascii") + self.framing.write_termination, deadline)
         if self.framing.echo:
+            self._read_echo(command, deadline)
+
+    def _read_echo(self, command: str, deadline: float) -> None:
+        """Read back the echo of ``command``.  Prompts and empty lines in front of it are the
+        answers to earlier synchronising empty lines (or the prompt of a fresh open): skipped."""
+        while True:
             echo, _ = self._read_line(deadline, (self.framing.read_termination,))
-            try:
-                line_protocol.strip_echo(echo, command, self._prompt_text)
-            except ieee488.CodecError as exc:
-                raise ReplyError(str(exc), resource=self.resource, command=command,
-                                 expected="the echo of the command") from exc
+            prompt = self._prompt_text or ""
+            while prompt and echo.startswith(prompt):
+                echo = echo[len(prompt):]
+            if echo:
+                break
+        try:
+            line_protocol.strip_echo(echo, command, self._prompt_text)
+        except ieee488.CodecError as exc:
+            raise ReplyError(str(exc), resource=self.resource, command=command,
+                             expected="the echo of the command") from exc
 
     @property
     def _prompt_text(self) -> str | None:
@@ -140,7 +153,7 @@ class MessageSession:
             text = raw.rstrip(b"\r").decode("ascii")
         except UnicodeDecodeError as exc:
             raise ReplyError(f"reply is not ASCII text: {raw[:40]!r}", resource=self.resource,
-                             command=self.last_command) from exc
+                             command=self.last_command, expected="a line of ASCII text") from exc
         _trace(self.resource, "->", text + (" <prompt>" if at_prompt else ""))
         return text, at_prompt
 
@@ -187,14 +200,15 @@ class MessageSession:
         """Run one write-and-read exchange; repeat it on a fresh link when it may be repeated."""
         attempts = 1 + (self.retries if idempotent else 0)
         for attempt in range(1, attempts + 1):
-            if self._stale:
-                self._resynchronise()
-            deadline = self._deadline(timeout_s)
             try:
+                if self._stale:
+                    self._resynchronise()
+                deadline = self._deadline(timeout_s)
                 self._write(command, deadline)
                 return exchange(deadline)
             except LinkError as exc:
                 self._stale = True
+                self._resync_timeout_s = self.default_timeout_s if timeout_s is None else timeout_s
                 failure = exc
             except ReplyError:
                 # Garbage in the middle of a response leaves the rest of it on the wire.
@@ -215,19 +229,27 @@ class MessageSession:
     def _resynchronise(self) -> None:
         """Start the next exchange on a clean stream.
 
-        Prompted framing first waits (bounded) for the prompt that ends whatever late reply is
-        still coming; message framing, and a prompted link that stays silent, reopen the
-        link, which drops every unread byte.
+        Message framing reopens the link, which drops every unread byte.  Prompted framing
+        first waits for the prompt that ends whatever late reply is still coming -- as long
+        again as the failed exchange was allowed, because a line instrument cannot be
+        interrupted and would answer a stale command into the next exchange; if none comes,
+        it reopens the port and sends an empty line, which the instrument answers with a
+        line end and the prompt (PROTOCOLS.md §2).  A failure leaves the session stale.
         """
+        if not self.framing.prompted:
+            self.transport.reopen()
+            self._stale = False
+            return
+        try:
+            discarded = self._read_response_raw(self._deadline(self._resync_timeout_s))
+        except LinkError:
+            self.transport.reopen()
+            deadline = self._deadline(None)
+            self.transport.write_raw(self.framing.write_termination, deadline)
+            ready = self.framing.read_termination + (self.framing.prompt or b"")
+            discarded = [self.transport.read_line_raw((ready,), deadline, _LINE_LIMIT)]
+        _trace(self.resource, "-> discarded", repr(discarded))
         self._stale = False
-        if self.framing.prompted:
-            try:
-                discarded = self._read_response_raw(self._deadline(None))
-                _trace(self.resource, "-> discarded", repr(discarded))
-                return
-            except LinkError:
-                pass
-        self.transport.reopen()
 
     def _read_response_raw(self, deadline: float) -> list[bytes]:
         chunks = []
@@ -284,8 +306,9 @@ class MessageSession:
         return self._transact(command, lambda deadline: self._one_line(deadline, "one reply line"),
                               timeout_s, idempotent, "one reply line")
 
-    def query_block(self, command: str, timeout_s: float | None = None, idempotent: bool = True) -> bytes:
-        """Write, then read an IEEE 488.2 arbitrary block; returns the payload.
+    def query_block(self, command: str, timeout_s: float | None = None,
+                    idempotent: bool = True) -> bytes | bytearray:
+        """Write, then read an IEEE 488.2 arbitrary block; returns the payload (bytes-like).
 
         The header is read in two short reads, then the payload and its terminator in one
         exact-length read with the termination character off.  A declared length above the
@@ -296,7 +319,7 @@ class MessageSession:
                              command=command)
         expected = "an IEEE 488.2 arbitrary block"
 
-        def exchange(deadline: float) -> bytes:
+        def exchange(deadline: float) -> bytes | bytearray:
             try:
                 return self._read_block(deadline)
             except ieee488.CodecError as exc:
@@ -307,7 +330,7 @@ class MessageSession:
             log.debug("%s -> block of %d bytes: %s...", self.resource, len(payload), payload[:_TRACE_BYTES].hex(" "))
         return payload
 
-    def _read_block(self, deadline: float) -> bytes:
+    def _read_block(self, deadline: float) -> bytes | bytearray:
         read = self.transport.read_exact_raw
         header_bytes = read(2, deadline)
         while (header := ieee488.parse_block_header(header_bytes, self.block_cap)) is None:

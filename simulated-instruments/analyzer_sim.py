@@ -23,6 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from lineproof.simulators import physics
+from lineproof.simulators.drift import BenchEnvironment, Conditions, DriftSettings, drifted
 from lineproof.simulators.error_model import (
     MODEL_DIRECTIONS,
     MODEL_PARAMETERS,
@@ -30,6 +31,8 @@ from lineproof.simulators.error_model import (
     DirectionTerms,
     OnePortTerms,
     PortErrorSettings,
+    correct_one_port,
+    correct_two_port,
     freeze,
 )
 from lineproof.simulators.objects import BenchObject
@@ -62,6 +65,12 @@ class AnalyzerSimulationSettings:
     time_scale: float = 0.0
     seed: int = 1
     port_settings: tuple[PortErrorSettings, ...] = (PortErrorSettings(),)
+    drift: DriftSettings = DriftSettings()
+    #: Serve TRACe:DATA? CORRected from a calibration the instrument holds (made at bench
+    #: start; reflection and full models only), with these residual errors.
+    internal_correction: bool = False
+    residual_directivity_db: float = -46.0
+    residual_source_match_db: float = -40.0
 
     @property
     def parameters(self) -> tuple[str, ...]:
@@ -75,10 +84,16 @@ class AnalyzerSimulationSettings:
 class SimulatedAnalyzer:
     """An analyzer model of any of the three kinds."""
 
-    def __init__(self, settings: AnalyzerSimulationSettings) -> None:
+    def __init__(self, settings: AnalyzerSimulationSettings, environment: BenchEnvironment | None = None) -> None:
         if settings.ports != (1 if settings.model == "reflection" else 2):
             raise ValueError(f"a {settings.model!r} analyzer cannot have {settings.ports} ports")
+        if settings.internal_correction and settings.model == "forward":
+            raise ValueError("a one-path analyzer cannot correct its own data (it never sees the reverse terms)")
         self.settings = settings
+        self.environment = environment or BenchEnvironment()
+        #: The conditions of the instrument's own calibration (internal correction).
+        self.calibrated_at = self.environment.now()
+        self.last_conditions = self.calibrated_at
         self.lock = threading.RLock()
         self._rng = np.random.default_rng(settings.seed)
         self._connection_rng = np.random.default_rng(settings.seed + 1)
@@ -88,6 +103,8 @@ class SimulatedAnalyzer:
         self.sweeps_done = 0
         self.busy_seconds = 0.0
         self._terms_cache: dict[tuple[float, float, int], dict[str, DirectionTerms]] = {}
+        self._correction_cache: dict[tuple[float, float, int], dict[str, DirectionTerms]] = {}
+        self._cable_delays = [m.settings.cable_delay_s for m in self.error_model.port_models]
         self.reset()
 
     # -- state ------------------------------------------------------------------------
@@ -187,17 +204,21 @@ class SimulatedAnalyzer:
             self._terms_cache[key] = terms
         return terms
 
-    def direction_terms(self, frequencies_hz: np.ndarray) -> dict[str, DirectionTerms]:
-        """The current hidden terms of every direction the model sweeps."""
+    def direction_terms(self, frequencies_hz: np.ndarray,
+                        conditions: Conditions | None = None) -> dict[str, DirectionTerms]:
+        """The hidden terms of every direction the model sweeps, under ``conditions`` (bench
+        time and temperature; default: now)."""
         f = np.asarray(frequencies_hz, dtype=float)
         with self.lock:
-            return self._base_terms(f)
+            return drifted(self._base_terms(f), f, self.settings.drift, self._cable_delays,
+                           conditions or self.environment.now())
 
-    def port_terms(self, port: int, frequencies_hz: np.ndarray) -> OnePortTerms:
+    def port_terms(self, port: int, frequencies_hz: np.ndarray,
+                   conditions: Conditions | None = None) -> OnePortTerms:
         """The three one-port terms of ``port`` (those of the direction it drives)."""
         self._check_port(port)
         direction = "forward" if port == 1 else "reverse"
-        terms = self.direction_terms(frequencies_hz)
+        terms = self.direction_terms(frequencies_hz, conditions)
         if direction not in terms:
             raise ValueError(f"port {port} of a {self.settings.model!r} analyzer never drives: it has no "
                              f"one-port terms (turn the device around and measure at port 1)")
@@ -214,9 +235,9 @@ class SimulatedAnalyzer:
         noise = self._rng.standard_normal((2, raw.size))
         return raw + sigma * (noise[0] + 1j * noise[1])
 
-    def raw_traces(self, f: np.ndarray) -> dict[str, np.ndarray]:
+    def raw_traces(self, f: np.ndarray, conditions: Conditions | None = None) -> dict[str, np.ndarray]:
         """Noise-free raw traces of every parameter the model measures, on ``f``."""
-        terms = self.direction_terms(f)
+        terms = self.direction_terms(f, conditions)
         if self.settings.model == "reflection":
             network = physics.diagonal_s(self.wiring.reflection(1, f), np.zeros(f.shape, dtype=complex))
         else:
@@ -232,7 +253,10 @@ class SimulatedAnalyzer:
         """Take one sweep of every parameter; returns its simulated duration (s)."""
         with self.lock:
             f = self.frequencies()
-            self.traces = {name: self._noise(raw) for name, raw in self.raw_traces(f).items()}
+            if self.start_hz > self.stop_hz:
+                raise ValueError("the start frequency is above the stop frequency")
+            self.last_conditions = self.environment.now()
+            self.traces = {name: self._noise(raw) for name, raw in self.raw_traces(f, self.last_conditions).items()}
             self.trace_frequencies = f
             duration = self.sweep_duration_s()
             self.last_sweep_s = duration
@@ -240,6 +264,41 @@ class SimulatedAnalyzer:
             self.sweeps_done += 1
             self.busy_seconds += duration * self.settings.time_scale
             return duration
+
+    def corrected_trace(self, parameter: str) -> np.ndarray | None:
+        """The last sweep of ``parameter`` corrected with the instrument's own calibration
+        (None: no data yet).  ValueError when the model holds no calibration."""
+        if not self.settings.internal_correction:
+            raise ValueError("this analyzer holds no calibration of its own")
+        with self.lock:
+            if parameter not in self.traces:
+                return None
+            f = self.trace_frequencies
+            terms = self._held_calibration(f)
+            if self.settings.model == "reflection":
+                return correct_one_port(self.traces["S11"], terms["forward"])
+            return correct_two_port(self.traces, terms["forward"], terms["reverse"])[parameter]
+
+    def _held_calibration(self, f: np.ndarray) -> dict[str, DirectionTerms]:
+        """The terms the instrument measured when it was calibrated, off by its residuals."""
+        key = (float(f[0]), float(f[-1]), f.size)
+        held = self._correction_cache.get(key)
+        if held is None:
+            s = self.settings
+            rng = np.random.default_rng(s.seed + 77)
+            held = {}
+            for direction, t in self.direction_terms(f, self.calibrated_at).items():
+                turns = rng.uniform(0, 2 * np.pi, size=3)
+                wobble = 2 * np.pi * f / rng.uniform(200e6, 600e6)
+                held[direction] = freeze(DirectionTerms(
+                    t.directivity + 10 ** (s.residual_directivity_db / 20) * np.exp(1j * (turns[0] + wobble)),
+                    t.source_match + 10 ** (s.residual_source_match_db / 20) * np.exp(1j * (turns[1] - wobble)),
+                    t.reflection_tracking, t.load_match + 10 ** (s.residual_source_match_db / 20)
+                    * np.exp(1j * (turns[2] + 0.7 * wobble)), t.transmission_tracking, t.isolation))
+            if len(self._correction_cache) >= _CACHE_LIMIT:
+                self._correction_cache.clear()
+            self._correction_cache[key] = held
+        return held
 
     def wait_idle(self) -> None:
         """Block until the current sweep would have finished on real hardware."""

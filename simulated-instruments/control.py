@@ -16,17 +16,22 @@ JSON object back.  Every request has ``"op"``; requests about an analyzer may na
 - ``truth_s {object | port, grid}`` -> ``{"s": {"s11": {"re", "im"}, ...}}``: an object's own
   S-parameters, or (``port``) the true network between the analyzer's reference planes
   (``s11`` only on a reflection analyzer).
-- ``error_terms {port | direction, grid}`` -> ``{"model", "terms": {name: {"re", "im"}}}``:
+- ``error_terms {port | direction, grid, at}`` -> ``{"model", "terms": {name: {"re", "im"}}}``:
   ``port`` gives the three one-port terms of the direction that port drives; ``direction``
   (``"forward"``: port 1 drives, ``"reverse"``: port 2 drives) gives all six of the
-  twelve-term model (three on a reflection analyzer).
-- ``set {noise: bool}``
+  twelve-term model (three on a reflection analyzer).  ``at``: ``"now"`` (default) or
+  ``"last_sweep"`` (the terms as they were when the last sweep was taken; they drift).
+- ``set {noise: bool, temperature_c: float}``: trace noise on or off; hold the bench at a
+  temperature from now on (the scenario's profile no longer applies)
+- ``advance {seconds}`` -> ``{"bench_seconds", "temperature_c"}``: move the bench clock on
 - ``fault {instrument, kind, count, after, match, ...}`` -> ``{"armed": {...}}``: arm a fault
   (kinds and fields in :mod:`.faults`; ``instrument`` is ``analyzer``, ``switch``, ...)
 - ``faults {instrument}`` -> ``{"faults": {name: {"armed", "spent", "fired"}}}``: what is armed
   and every firing so far, with the command that triggered it
 - ``clear_faults {instrument}``: disarm (and forget) the faults of one or every instrument
-- ``status`` -> sweeps done and summed busy time per analyzer
+- ``switch`` -> ``{"closed": ["1!3", ...], "channels": [{"channel", "analyzer", "port",
+  "object", "output", "reversed"}, ...]}``: the switch matrix's state and wiring
+- ``status`` -> sweeps done, summed busy time, bench clock and temperature
 
 Errors come back as ``{"ok": false, "error": "<what was wrong and how to fix it>"}``; the
 connection stays open.  Unknown fields are refused, so a misspelt field is never ignored.
@@ -43,10 +48,12 @@ from typing import Any
 import numpy as np
 
 from lineproof.simulators.analyzer_sim import SimulatedAnalyzer
+from lineproof.simulators.drift import BenchEnvironment
 from lineproof.simulators.faults import FaultPlan, FaultSpecError
 from lineproof.simulators.local_server import LocalServer
 from lineproof.simulators.objects import BenchObject
 from lineproof.simulators.scenario import Scenario
+from lineproof.simulators.switch_sim import SimulatedSwitch
 
 _LINE_LIMIT = 1 << 20
 _GRID_FIELDS = frozenset({"start_hz", "stop_hz", "points"})
@@ -76,12 +83,14 @@ _OP_FIELDS: dict[str, frozenset[str]] = {
     "disconnect": frozenset({"port"}),
     "truth": frozenset({"port"}) | _GRID_FIELDS,
     "truth_s": frozenset({"port", "object"}) | _GRID_FIELDS,
-    "error_terms": frozenset({"port", "direction"}) | _GRID_FIELDS,
-    "set": frozenset({"noise"}),
+    "error_terms": frozenset({"port", "direction", "at"}) | _GRID_FIELDS,
+    "set": frozenset({"noise", "temperature_c"}),
+    "advance": frozenset({"seconds"}),
     # fault: the fields of the fault kind (see faults.py), checked there
     "fault": frozenset({"kind", "count", "after", "match", "seconds", "bytes", "code", "text"}),
     "faults": frozenset(),
     "clear_faults": frozenset(),
+    "switch": frozenset(),
 }
 
 
@@ -89,10 +98,13 @@ class BenchController:
     """Executes control requests against a bench's analyzers and objects."""
 
     def __init__(self, scenario: Scenario, analyzers: dict[str, SimulatedAnalyzer] | SimulatedAnalyzer,
-                 faults: dict[str, FaultPlan] | None = None) -> None:
+                 faults: dict[str, FaultPlan] | None = None, switch: SimulatedSwitch | None = None,
+                 environment: BenchEnvironment | None = None) -> None:
         self.scenario = scenario
+        self.switch = switch
         self.analyzers = analyzers if isinstance(analyzers, dict) else {"analyzer": analyzers}
         self.faults = faults or {}
+        self.environment = environment or self.analyzer.environment
         self._ops: dict[str, Callable[[dict[str, Any]], dict[str, Any]]] = {
             name: getattr(self, f"_op_{name}") for name in _OP_FIELDS
         }
@@ -216,20 +228,22 @@ class BenchController:
     def _op_error_terms(self, request: dict[str, Any]) -> dict[str, Any]:
         analyzer = self._instrument(request)
         model = analyzer.settings.model
+        at = request.get("at", "now")
+        if at not in ("now", "last_sweep"):
+            raise ControlRequestError(f'at must be "now" or "last_sweep", got {at!r}')
+        conditions = analyzer.last_conditions if at == "last_sweep" else None
+        grid = self._grid(request, analyzer)
         if "direction" in request:
             if "port" in request:
                 raise ControlRequestError("error_terms takes port or direction, not both")
             direction = request["direction"]
-            terms = analyzer.direction_terms(self._grid(request, analyzer))
+            terms = analyzer.direction_terms(grid, conditions)
             if direction not in terms:
                 raise ControlRequestError(f"direction must be one of {', '.join(terms)} on a {model!r} analyzer, "
                                           f"got {direction!r}")
             named = terms[direction].as_dict(one_port=model == "reflection")
         else:
-            try:
-                named = analyzer.port_terms(self._port(request, analyzer), self._grid(request, analyzer)).as_dict()
-            except ValueError as exc:
-                raise ControlRequestError(str(exc)) from exc
+            named = analyzer.port_terms(self._port(request, analyzer), grid, conditions).as_dict()
         return {"model": model, "terms": {name: _complex_payload(value) for name, value in named.items()}}
 
     def _op_set(self, request: dict[str, Any]) -> dict[str, Any]:
@@ -237,7 +251,23 @@ class BenchController:
             if not isinstance(request["noise"], bool):
                 raise ControlRequestError("noise must be true or false")
             self._instrument(request).noise_enabled = request["noise"]
+        if "temperature_c" in request:
+            value = request["temperature_c"]
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not -40 <= value <= 85:
+                raise ControlRequestError(f"temperature_c must be a number from -40 to 85, got {value!r}")
+            self.environment.set_temperature(float(value))
         return {}
+
+    def _op_advance(self, request: dict[str, Any]) -> dict[str, Any]:
+        seconds = request.get("seconds")
+        if isinstance(seconds, bool) or not isinstance(seconds, (int, float)) or not 0 <= seconds <= 1e7:
+            raise ControlRequestError(f"seconds must be a number from 0 to 1e7, got {seconds!r}")
+        self.environment.advance(float(seconds))
+        return self._conditions()
+
+    def _conditions(self) -> dict[str, Any]:
+        now = self.environment.now()
+        return {"bench_seconds": now.seconds, "temperature_c": now.temperature_c}
 
     def _fault_plan(self, request: dict[str, Any]) -> FaultPlan:
         name = request.get("instrument", "analyzer")
@@ -265,11 +295,16 @@ class BenchController:
             plan.clear()
         return {}
 
+    def _op_switch(self, request: dict[str, Any]) -> dict[str, Any]:
+        if self.switch is None:
+            raise ControlRequestError("this bench has no switch matrix")
+        return self.switch.describe()
+
     def _op_status(self, request: dict[str, Any]) -> dict[str, Any]:
         analyzer = self._instrument(request)
-        return {"sweeps": analyzer.sweeps_done, "busy_seconds": analyzer.busy_seconds,
-                "analyzers": {name: {"model": a.settings.model, "sweeps": a.sweeps_done}
-                              for name, a in self.analyzers.items()}}
+        return {"sweeps": analyzer.sweeps_done, "busy_seconds": analyzer.busy_seconds, **self._conditions(),
+                "analyzers": {name: {"model": a.settings.model, "sweeps": a.sweeps_done,
+                                     "last_sweep_s": a.last_sweep_s} for name, a in self.analyzers.items()}}
 
 
 class _ControlHandler(socketserver.StreamRequestHandler):
@@ -282,6 +317,12 @@ class _ControlHandler(socketserver.StreamRequestHandler):
                 return
             if not line:
                 return
+            if len(line) >= _LINE_LIMIT and not line.endswith(b"\n"):
+                self._skip_rest_of_line()
+                reply = {"ok": False, "error": f"request longer than {_LINE_LIMIT} bytes; send one short JSON "
+                                               "object per line"}
+                self._reply(reply)
+                continue
             try:
                 reply = controller.handle(json.loads(line))
             except json.JSONDecodeError as exc:
@@ -291,10 +332,21 @@ class _ControlHandler(socketserver.StreamRequestHandler):
                 reply = {"ok": False, "error": "not UTF-8 text; send one JSON object per line"}
             except ControlRequestError as exc:
                 reply = {"ok": False, "error": str(exc)}
-            try:
-                self.wfile.write(json.dumps(reply).encode() + b"\n")
-            except OSError:
+            if not self._reply(reply):
                 return
+
+    def _skip_rest_of_line(self) -> None:
+        while True:
+            chunk = self.rfile.readline(_LINE_LIMIT)
+            if not chunk or chunk.endswith(b"\n"):
+                return
+
+    def _reply(self, reply: dict[str, Any]) -> bool:
+        try:
+            self.wfile.write(json.dumps(reply).encode() + b"\n")
+        except OSError:
+            return False
+        return True
 
 
 class ControlServer(LocalServer):

@@ -224,3 +224,26 @@ def freeze(terms: DirectionTerms) -> DirectionTerms:
     for item in fields(terms):
         getattr(terms, item.name).setflags(write=False)
     return terms
+
+
+def correct_one_port(measured: np.ndarray, terms: DirectionTerms) -> np.ndarray:
+    """Invert the three-term model: Γ = (m - e00) / (e10e01 + e11 (m - e00))."""
+    offset = measured - terms.directivity
+    return offset / (terms.reflection_tracking + terms.source_match * offset)
+
+
+def correct_two_port(raw: dict[str, np.ndarray], forward: DirectionTerms,
+                     reverse: DirectionTerms) -> dict[str, np.ndarray]:
+    """Invert the twelve-term model (the closed form of Agilent AN 1287-3, from memory)."""
+    n11 = (raw["S11"] - forward.directivity) / forward.reflection_tracking
+    n21 = (raw["S21"] - forward.isolation) / forward.transmission_tracking
+    n12 = (raw["S12"] - reverse.isolation) / reverse.transmission_tracking
+    n22 = (raw["S22"] - reverse.directivity) / reverse.reflection_tracking
+    esf, elf, esr, elr = forward.source_match, forward.load_match, reverse.source_match, reverse.load_match
+    denominator = (1 + n11 * esf) * (1 + n22 * esr) - n21 * n12 * elf * elr
+    return {
+        "S11": (n11 * (1 + n22 * esr) - elf * n21 * n12) / denominator,
+        "S21": n21 * (1 + n22 * (esr - elf)) / denominator,
+        "S12": n12 * (1 + n11 * (esf - elr)) / denominator,
+        "S22": (n22 * (1 + n11 * esf) - elr * n21 * n12) / denominator,
+    }

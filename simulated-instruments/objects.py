@@ -128,7 +128,16 @@ def reflection_from_polar(name: str, magnitude: float, phase_rad: float, delay_s
     )
 
 
-def touchstone_object(name: str, path: str, kind: str = "object") -> BenchObject:
+def terminated(two_port: BenchObject, resistance_ohm: float) -> BenchObject:
+    """A two-port ended in a resistor, seen as a one-port (e.g. a mismatched line section
+    on a load: a check standard)."""
+    gamma_end = complex(physics.load_reflection(resistance_ohm))
+    return BenchObject(two_port.name, 1,
+                       lambda f: physics.terminated_input(two_port.response(f), np.full(f.shape, gamma_end)),
+                       two_port.kind, two_port.description)
+
+
+def touchstone_object(name: str, path: str, kind: str = "object", description: str = "") -> BenchObject:
     """Any 1-port or 2-port from a Touchstone file, interpolated (linear in real and
     imaginary parts) onto the swept grid; frequencies outside the file are refused."""
     import skrf
@@ -153,4 +162,4 @@ def touchstone_object(name: str, path: str, kind: str = "object") -> BenchObject
                 )
         return out[:, 0, 0] if network.nports == 1 else out
 
-    return BenchObject(name, network.nports, response, kind, f"Touchstone file {path}")
+    return BenchObject(name, network.nports, response, kind, description or f"Touchstone file {path}")

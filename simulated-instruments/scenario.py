@@ -1,5 +1,22 @@
-"""Scenario files: a TOML description of a simulated bench -- its analyzer, the actual
-calibration standards, terminations and check standards, and a population of devices.
+"""Scenario files: a TOML description of a simulated bench -- its analyzers and how each is
+served, the actual calibration standards, terminations and check standards, a population of
+devices, and faults armed at start.
+
+The layout (every key optional unless said; see the shipped scenarios for worked examples):
+
+- ``[bench]`` ``name``, ``seed``, ``time_scale`` (0: sweeps finish at once, 1: real time),
+  ``temperature_c``, ``temperature_profile`` (``[[seconds, °C], ...]``) and ``clock_rate``
+  (bench seconds per real second; see :mod:`.drift`);
+- ``[analyzer]`` -- or ``[[analyzer]]`` tables for several, named ``analyzer``,
+  ``analyzer2``, ... -- with the fields of :class:`AnalyzerSimulationSettings` (``model``:
+  ``reflection`` | ``forward`` | ``full``), ``transport`` (``scpi`` over TCP, or ``serial``
+  on a pseudo-terminal) and ``baud_rate`` (serial), ``[[analyzer.port]]`` tables of
+  :class:`PortErrorSettings` and an ``[analyzer.drift]`` table of :class:`DriftSettings`;
+- ``[standards]`` ``kit`` (required), ``deviation``, ``seed``;
+- ``[objects.<name>]`` and ``[[populations]]`` (see :mod:`.scenario_objects`);
+- ``[switch]`` with the fields of :class:`SwitchSettings` and ``[[switch.channel]]`` tables
+  (``channel = "1!3"``, ``analyzer``, ``port``, ``object``, ``output``, ``reversed``);
+- ``[[faults]]`` (see :mod:`.faults`; ``instrument = "switch"`` for the switch).
 
 The simulator reads the kit file itself, with its own code, and perturbs the standards so
 that they differ from the kit's nominal definitions the way real standards do.
@@ -18,7 +35,51 @@ import numpy as np
 from lineproof.errors import InputError
 from lineproof.simulators import objects as obj
 from lineproof.simulators.analyzer_sim import AnalyzerSimulationSettings
+from lineproof.simulators.drift import BenchEnvironment, DriftSettings, TemperatureProfile
 from lineproof.simulators.error_model import MODEL_DIRECTIONS, PortErrorSettings
+from lineproof.simulators.scenario_objects import (
+    actual_standards,
+    object_from_table,
+    optional,
+    population,
+    refuse_unknown,
+    require,
+    resolve,
+)
+from lineproof.simulators.scpi import ScpiCommandError
+from lineproof.simulators.switch_sim import (
+    SwitchChannelWiring,
+    SwitchSettings,
+    format_channel,
+    parse_channel_list,
+)
+
+TRANSPORTS = ("scpi", "serial")
+#: Serial rates a pseudo-terminal is paced at; anything else is refused as a likely typo.
+BAUD_RATES = (1200, 2400, 4800, 9600, 19200, 38400, 57600, 115200, 230400, 460800, 921600)
+
+
+@dataclass(frozen=True)
+class AnalyzerSpec:
+    """One analyzer of a bench: its model settings and how it is served."""
+
+    name: str
+    settings: AnalyzerSimulationSettings
+    transport: str = "scpi"
+    baud_rate: int = 115200
+
+
+@dataclass(frozen=True)
+class EnvironmentSettings:
+    """The bench clock and temperature a scenario asks for (see drift.py)."""
+
+    temperature_c: float = 23.0
+    temperature_profile: tuple[tuple[float, float], ...] | None = None
+    clock_rate: float = 1.0
+
+    def build(self) -> BenchEnvironment:
+        profile = TemperatureProfile(self.temperature_profile) if self.temperature_profile else None
+        return BenchEnvironment(self.temperature_c, profile, self.clock_rate)
 
 
 @dataclass
@@ -28,166 +89,103 @@ class Scenario:
     name: str
     source: str
     seed: int
-    analyzer: AnalyzerSimulationSettings
+    analyzers: list[AnalyzerSpec]
     objects: dict[str, obj.BenchObject] = field(default_factory=dict)
     devices: list[tuple[str, str]] = field(default_factory=list)  # (serial, model) in order
     #: Faults armed when the bench starts ([[faults]] tables; see faults.py).
     faults: list[dict[str, Any]] = field(default_factory=list)
+    #: The switch matrix and what its channels are wired to, if the bench has one.
+    switch: SwitchSettings | None = None
+    switch_wiring: list[SwitchChannelWiring] = field(default_factory=list)
+    environment: EnvironmentSettings = EnvironmentSettings()
+
+    @property
+    def analyzer(self) -> AnalyzerSimulationSettings:
+        """The first analyzer's settings (most benches have one)."""
+        return self.analyzers[0].settings
 
 
-def _require(table: dict[str, Any], key: str, kinds: type | tuple[type, ...], source: str, where: str) -> Any:
-    if key not in table:
-        raise InputError("missing key", path=source, key=f"{where}.{key}", fix=f"add {key} = ...")
-    value = table[key]
-    if isinstance(value, int) and not isinstance(value, bool) and float in (kinds if isinstance(kinds, tuple) else (kinds,)):
-        value = float(value)
-    if not isinstance(value, kinds):
-        raise InputError(f"wrong type {type(value).__name__}", path=source, key=f"{where}.{key}")
-    return value
-
-
-def _resolve(path_text: str, scenario_path: Path | None) -> Path:
-    """A path relative to the scenario's folder, else to the shipped sequences folder."""
-    candidate = Path(path_text)
-    if scenario_path is not None and not candidate.is_absolute():
-        local = scenario_path.parent / candidate
-        if local.exists():
-            return local
-    if candidate.exists():
-        return candidate
-    shipped = resources.files("lineproof.sequences") / path_text
-    return Path(str(shipped))
-
-
-def actual_standards(kit_path: Path, deviation: float, seed: int) -> dict[str, obj.BenchObject]:
-    """The kit's standards as they actually are: nominal values moved by seeded errors of
-    the size real standards show (a few % of fringing capacitance, ~0.5 ps of offset delay,
-    a load of 40-45 dB return loss), scaled by ``deviation`` (0 = exactly nominal)."""
-    try:
-        kit = tomllib.loads(kit_path.read_text(encoding="utf-8"))
-    except (OSError, tomllib.TOMLDecodeError) as exc:
-        raise InputError(f"cannot read cal kit ({exc})", path=str(kit_path)) from exc
-    z0 = float(kit.get("kit", {}).get("reference_impedance_ohm", 50.0))
-    rng = np.random.default_rng(seed)
-    made: dict[str, obj.BenchObject] = {}
-    for name, definition in kit.get("standards", {}).items():
-        kind = definition.get("kind")
-        delay = float(definition.get("offset_delay_s", 0.0)) + deviation * rng.normal(0, 0.5e-12)
-        loss = float(definition.get("offset_loss_ohm_per_s", 0.0))
-        z_offset = float(definition.get("offset_impedance_ohm", z0))
-        if kind == "open":
-            c = np.array(definition.get("capacitance", [0.0] * 4), dtype=float)
-            c = c * (1 + deviation * rng.normal(0, 0.03))
-
-            def open_end(f: np.ndarray, c: np.ndarray = c) -> np.ndarray:
-                cap = c[0] + c[1] * f + c[2] * f**2 + c[3] * f**3
-                return 1 / (1j * 2 * np.pi * f * cap) if np.any(cap) else None
-
-            made[name] = obj.offset_standard(name, open_end, z_offset, delay, loss, z0, "open")
-        elif kind == "short":
-            inductance = np.array(definition.get("inductance", [0.0] * 4), dtype=float)
-            inductance = inductance + deviation * np.array([rng.normal(0, 2e-12), 0, 0, 0])
-
-            def short_end(f: np.ndarray, l: np.ndarray = inductance) -> np.ndarray:
-                return 1j * 2 * np.pi * f * (l[0] + l[1] * f + l[2] * f**2 + l[3] * f**3)
-
-            made[name] = obj.offset_standard(name, short_end, z_offset, max(delay, 0.0), loss, z0, "short")
-        elif kind == "thru":
-            made[name] = obj.thru(name, max(delay, 0.0), loss, z_offset)
-        elif kind == "load":
-            return_loss_db = rng.uniform(40.0, 45.0)
-            magnitude = deviation * 10 ** (-return_loss_db / 20)
-            made[name] = obj.reflection_from_polar(name, magnitude, rng.uniform(0, 2 * np.pi), 40e-12, "load")
-    return made
-
-
-def _port_settings(table: dict[str, Any]) -> PortErrorSettings:
+def _port_settings(table: Any, source: str, where: str) -> PortErrorSettings:
+    if not isinstance(table, dict):
+        raise InputError("a port is a table", path=source, key=where, fix="write [[analyzer.port]] tables")
     allowed = set(PortErrorSettings.__dataclass_fields__)
-    return PortErrorSettings(**{k: float(v) for k, v in table.items() if k in allowed})
+    refuse_unknown(table, allowed, source, where)
+    return PortErrorSettings(**{k: optional(table, k, 0.0, float, source, where) for k in table})
 
 
-def _analyzer_settings(table: dict[str, Any], bench: dict[str, Any], source: str) -> AnalyzerSimulationSettings:
-    ports = [_port_settings(p) for p in table.get("port", [{}])]
+_SERVING_KEYS = {"port", "transport", "baud_rate", "drift"}
+
+
+def _analyzer_spec(table: Any, name: str, bench: dict[str, Any], source: str) -> AnalyzerSpec:
+    where = name if name == "analyzer" else f"analyzer[{int(name[8:]) - 1}]"
+    if not isinstance(table, dict):
+        raise InputError("an analyzer is a table", path=source, key=where, fix="write [analyzer] with its keys")
     allowed = set(AnalyzerSimulationSettings.__dataclass_fields__) - {"port_settings"}
-    unknown = set(table) - allowed - {"port", "transport"}
-    if unknown:
-        raise InputError("unknown key", path=source, key=f"analyzer.{sorted(unknown)[0]}",
-                         fix=f"use only: {', '.join(sorted(allowed | {'port', 'transport'}))}")
+    refuse_unknown(table, allowed | _SERVING_KEYS, source, where)
+    ports = [_port_settings(p, source, f"{where}.port[{i}]")
+             for i, p in enumerate(optional(table, "port", [{}], list, source, where))]
     values = {k: v for k, v in table.items() if k in allowed}
-    model = values.get("model", "reflection" if int(values.get("ports", 1)) == 1 else "full")
+    values["drift"] = _drift(optional(table, "drift", {}, dict, source, where), source, f"{where}.drift")
+    model = optional(values, "model", "reflection" if int(values.get("ports", 1)) == 1 else "full", str, source, where)
     if model not in MODEL_DIRECTIONS:
-        raise InputError(f"unknown analyzer model {model!r}", path=source, key="analyzer.model",
+        raise InputError(f"unknown analyzer model {model!r}", path=source, key=f"{where}.model",
                          fix=f"use one of {', '.join(MODEL_DIRECTIONS)}")
     needed_ports = 1 if model == "reflection" else 2
     if int(values.get("ports", needed_ports)) != needed_ports:
         raise InputError(f"a {model!r} analyzer has {needed_ports} port(s), not {values['ports']}",
-                         path=source, key="analyzer.ports", fix=f"set ports = {needed_ports} or leave it out")
+                         path=source, key=f"{where}.ports", fix=f"set ports = {needed_ports} or leave it out")
     values.update(model=model, ports=needed_ports)
     values.setdefault("time_scale", float(bench.get("time_scale", 0.0)))
-    values.setdefault("seed", int(bench.get("seed", 1)))
-    return AnalyzerSimulationSettings(port_settings=tuple(ports), **values)
+    values.setdefault("seed", int(bench.get("seed", 1)) + 1000 * (0 if name == "analyzer" else int(name[8:])))
+    transport = optional(table, "transport", "scpi", str, source, where)
+    if transport not in TRANSPORTS:
+        raise InputError(f"unknown transport {transport!r}", path=source, key=f"{where}.transport",
+                         fix=f"use one of {', '.join(TRANSPORTS)}")
+    baud_rate = optional(table, "baud_rate", 115200, int, source, where)
+    if baud_rate not in BAUD_RATES:
+        raise InputError(f"unusual baud rate {baud_rate}", path=source, key=f"{where}.baud_rate",
+                         fix=f"use one of {', '.join(map(str, BAUD_RATES))}")
+    if values.get("internal_correction") and model == "forward":
+        raise InputError("a one-path analyzer cannot correct its own data", path=source,
+                         key=f"{where}.internal_correction", fix='use model = "full" or leave it out')
+    try:
+        settings = AnalyzerSimulationSettings(port_settings=tuple(ports), **values)
+    except TypeError as exc:
+        raise InputError(f"bad analyzer settings ({exc})", path=source, key=where) from exc
+    return AnalyzerSpec(name, settings, transport, baud_rate)
 
 
-def _termination(name: str, table: dict[str, Any], source: str) -> obj.BenchObject:
-    return obj.termination(
-        name,
-        _require(table, "resistance_ohm", float, source, f"objects.{name}"),
-        float(table.get("series_inductance_h", 0.0)),
-        float(table.get("shunt_capacitance_f", 0.0)),
-        kind=table.get("kind", "termination"),
-        description=table.get("description", ""),
-    )
+def _drift(table: dict[str, Any], source: str, where: str) -> DriftSettings:
+    allowed = set(DriftSettings.__dataclass_fields__)
+    refuse_unknown(table, allowed, source, where)
+    return DriftSettings(**{k: optional(table, k, 0.0, float, source, where) for k in table})
 
 
-def _object(name: str, table: dict[str, Any], path: Path, source: str) -> obj.BenchObject:
-    """One entry of [objects]: a Touchstone file, a thru, a circuit, or a termination."""
-    where = f"objects.{name}"
-    kind = table.get("kind", "object")
-    description = table.get("description", "")
-    if table.get("touchstone"):
-        return obj.touchstone_object(name, str(_resolve(table["touchstone"], path)), kind)
-    if kind == "thru":
-        return obj.thru(name, float(table.get("delay_s", 0.0)), float(table.get("loss_ohm_per_s", 0.0)),
-                        float(table.get("impedance_ohm", 50.0)), description)
-    if "circuit" in table:
-        circuit = _require(table, "circuit", list, source, where)
+def _environment(bench: dict[str, Any], source: str) -> EnvironmentSettings:
+    profile = optional(bench, "temperature_profile", None, list, source, "bench")
+    points = None
+    if profile is not None:
         try:
-            made = obj.two_port_from_elements(name, circuit, kind, description)
-            made.response(np.array([1e8, 2e8]))
-        except (KeyError, TypeError, ValueError) as exc:
-            raise InputError(f"bad circuit ({exc})", path=source, key=f"{where}.circuit") from exc
-        return made
-    return _termination(name, table, source)
+            points = tuple((float(t), float(c)) for t, c in profile)
+            TemperatureProfile(points)
+        except (TypeError, ValueError) as exc:
+            raise InputError(f"bad temperature profile ({exc})", path=source, key="bench.temperature_profile",
+                             fix="write [[seconds, celsius], ...] with increasing seconds, e.g. [[0, 23], [3600, 26]]"
+                             ) from exc
+    clock_rate = optional(bench, "clock_rate", 1.0, float, source, "bench")
+    if clock_rate < 0:
+        raise InputError("the bench clock cannot run backwards", path=source, key="bench.clock_rate",
+                         fix="use 0 (moves only when advanced), 1 (real time) or more")
+    return EnvironmentSettings(optional(bench, "temperature_c", 23.0, float, source, "bench"), points, clock_rate)
 
 
-def _population(table: dict[str, Any], rng: np.random.Generator, source: str, index: int) -> list[tuple[str, str, obj.BenchObject]]:
-    where = f"populations[{index}]"
-    model = _require(table, "model", str, source, where)
-    prefix = _require(table, "serial_prefix", str, source, where)
-    count = _require(table, "count", int, source, where)
-    spread = float(table.get("spread", 0.0))
-    circuit = _require(table, "circuit", list, source, where)
-    defects = table.get("defects", {})
-    made = []
-    for number in range(int(table.get("first_serial", 1)), int(table.get("first_serial", 1)) + count):
-        serial = f"{prefix}{number:04d}"
-        elements = []
-        for element in circuit:
-            varied = dict(element)
-            for key, value in element.items():
-                if isinstance(value, (int, float)) and not isinstance(value, bool) and key != "element":
-                    varied[key] = value * (1 + spread * rng.normal())
-            elements.append(varied)
-        for change in defects.get(serial, []):
-            position = int(change["index"])
-            elements[position] = {**elements[position], **{k: v for k, v in change.items() if k != "index"}}
-        try:
-            device = obj.two_port_from_elements(serial, elements, "device", model)
-            device.response(np.array([1e8, 2e8]))
-        except (KeyError, ValueError) as exc:
-            raise InputError(f"bad circuit ({exc})", path=source, key=f"{where}.circuit") from exc
-        made.append((serial, model, device))
-    return made
+def _analyzers(data: dict[str, Any], bench: dict[str, Any], source: str) -> list[AnalyzerSpec]:
+    tables = data.get("analyzer", {})
+    tables = tables if isinstance(tables, list) else [tables]
+    if not tables:
+        raise InputError("a bench needs an analyzer", path=source, key="analyzer", fix="add an [analyzer] table")
+    names = ["analyzer"] + [f"analyzer{i}" for i in range(2, len(tables) + 1)]
+    return [_analyzer_spec(table, name, bench, source) for name, table in zip(names, tables, strict=True)]
 
 
 def _faults(tables: Any, source: str) -> list[dict[str, Any]]:
@@ -197,38 +195,130 @@ def _faults(tables: Any, source: str) -> list[dict[str, Any]]:
     return [dict(t) for t in tables]
 
 
+def _switch(table: Any, scenario: Scenario, bench: dict[str, Any]) -> None:
+    source = scenario.source
+    if not isinstance(table, dict):
+        raise InputError("the switch is a table", path=source, key="switch", fix="write [switch] with its keys")
+    allowed = set(SwitchSettings.__dataclass_fields__)
+    refuse_unknown(table, allowed | {"channel"}, source, "switch")
+    values = {k: v for k, v in table.items() if k in allowed}
+    values.setdefault("time_scale", float(bench.get("time_scale", 0.0)))
+    values.setdefault("seed", scenario.seed + 31)
+    try:
+        scenario.switch = SwitchSettings(**values)
+    except TypeError as exc:
+        raise InputError(f"bad switch settings ({exc})", path=source, key="switch") from exc
+    seen: set[tuple[int, int]] = set()
+    for index, wiring in enumerate(optional(table, "channel", [], list, source, "switch")):
+        made = _channel_wiring(wiring, scenario, f"switch.channel[{index}]")
+        if made.channel in seen:
+            raise InputError(f"channel {format_channel(made.channel)} is wired twice", path=source,
+                             key=f"switch.channel[{index}].channel", fix="wire each channel once")
+        seen.add(made.channel)
+        scenario.switch_wiring.append(made)
+
+
+_CHANNEL_KEYS = {"channel", "analyzer", "port", "object", "output", "reversed"}
+
+
+def _channel_wiring(table: Any, scenario: Scenario, where: str) -> SwitchChannelWiring:
+    source = scenario.source
+    if not isinstance(table, dict) or set(table) - _CHANNEL_KEYS:
+        raise InputError("a channel is a table of: " + ", ".join(sorted(_CHANNEL_KEYS)), path=source, key=where,
+                         fix='e.g. { channel = "1!3", port = 1, object = "open" }')
+    text = require(table, "channel", str, source, where)
+    try:
+        channels = parse_channel_list(f"(@{text})")
+    except ScpiCommandError:
+        channels = []
+    settings = scenario.switch
+    if len(channels) != 1 or not (1 <= channels[0][0] <= settings.modules
+                                  and 1 <= channels[0][1] <= settings.channels_per_module):
+        raise InputError(f"not a channel of this switch: {text!r}", path=source, key=f"{where}.channel",
+                         fix=f'write "<module>!<channel>" within {settings.modules} modules of '
+                             f"{settings.channels_per_module} channels, e.g. \"1!3\"")
+    analyzers = {spec.name: spec.settings for spec in scenario.analyzers}
+    analyzer = optional(table, "analyzer", "analyzer", str, source, where)
+    if analyzer not in analyzers:
+        raise InputError(f"no analyzer named {analyzer!r}", path=source, key=f"{where}.analyzer",
+                         fix=f"use one of {', '.join(analyzers)}")
+    ports = analyzers[analyzer].ports
+    port = optional(table, "port", 1, int, source, where)
+    thing = require(table, "object", str, source, where)
+    output = optional(table, "output", None, str, source, where)
+    output_port = None
+    if output is not None and output.lower().startswith("port:"):
+        output_port, output = int(output[5:]) if output[5:].isdigit() else -1, None
+    for name, key in ((thing, "object"), (output, "output")):
+        if name is not None and name not in scenario.objects:
+            raise InputError(f"no object named {name!r}", path=source, key=f"{where}.{key}",
+                             fix="name an object of [objects], a standard of the kit or a device serial")
+    problem = _wiring_problem(scenario.objects[thing], output and scenario.objects[output], port, output_port, ports)
+    if problem:
+        raise InputError(problem, path=source, key=where, fix="see PROTOCOLS.md §4")
+    return SwitchChannelWiring(channels[0], analyzer, port, thing, output, output_port,
+                               optional(table, "reversed", False, bool, source, where))
+
+
+def _wiring_problem(thing: obj.BenchObject, output: obj.BenchObject | None, port: int, output_port: int | None,
+                    ports: int) -> str | None:
+    if not 1 <= port <= ports:
+        return f"port {port} does not exist on a {ports}-port analyzer"
+    if thing.ports == 1 and (output is not None or output_port is not None):
+        return f"{thing.name} is a one-port: it has no output"
+    if thing.ports == 2 and (output is None) == (output_port is None):
+        return f"{thing.name} is a two-port: wire its output to a one-port or to port:<n>"
+    if output is not None and output.ports != 1:
+        return f"{output.name} cannot terminate an output: it is not a one-port"
+    if output_port is not None and (not 1 <= output_port <= ports or output_port == port):
+        return f"output port:{output_port} is not another port of this analyzer"
+    return None
+
+
+def find_scenario(path_or_name: str | Path) -> Path:
+    """A scenario file by path, or a shipped one by name (``demo-bench``)."""
+    path = Path(path_or_name)
+    if path.exists():
+        return path
+    shipped = resources.files("lineproof.simulators") / "scenarios" / f"{path_or_name}.toml"
+    if not shipped.is_file():
+        raise InputError(f"no scenario file or shipped scenario named {path_or_name!r}", path=str(path_or_name),
+                         fix=f"give a .toml path or one of: {', '.join(shipped_scenarios())}")
+    return Path(str(shipped))
+
+
+def shipped_scenarios() -> list[str]:
+    folder = resources.files("lineproof.simulators") / "scenarios"
+    return sorted(item.name[:-5] for item in folder.iterdir() if item.name.endswith(".toml"))
+
+
 def load_scenario(path_or_name: str | Path) -> Scenario:
     """Load a scenario file by path, or a shipped one by name (``demo-bench``)."""
-    path = Path(path_or_name)
-    if not path.exists():
-        shipped = resources.files("lineproof.simulators") / "scenarios" / f"{path_or_name}.toml"
-        if not shipped.is_file():
-            raise InputError(f"no scenario file or shipped scenario named {path_or_name!r}", path=str(path_or_name))
-        path = Path(str(shipped))
+    path = find_scenario(path_or_name)
     source = str(path)
     try:
         data = tomllib.loads(path.read_text(encoding="utf-8"))
     except tomllib.TOMLDecodeError as exc:
         raise InputError(f"not valid TOML ({exc})", path=source) from exc
-    bench = data.get("bench", {})
-    seed = int(bench.get("seed", 1))
-    scenario = Scenario(
-        name=str(bench.get("name", path.stem)),
-        source=source,
-        seed=seed,
-        analyzer=_analyzer_settings(data.get("analyzer", {}), bench, source),
-    )
-    standards = data.get("standards")
+    except OSError as exc:
+        raise InputError(f"cannot read the scenario ({exc})", path=source) from exc
+    bench = optional(data, "bench", {}, dict, source, "")
+    seed = optional(bench, "seed", 1, int, source, "bench")
+    scenario = Scenario(name=str(bench.get("name", path.stem)), source=source, seed=seed,
+                        analyzers=_analyzers(data, bench, source), environment=_environment(bench, source))
+    standards = optional(data, "standards", None, dict, source, "")
     if standards:
-        kit_path = _resolve(_require(standards, "kit", str, source, "standards"), path)
-        scenario.objects.update(actual_standards(kit_path, float(standards.get("deviation", 1.0)),
-                                                 int(standards.get("seed", seed + 7))))
-    for name, table in data.get("objects", {}).items():
-        scenario.objects[name] = _object(name, table, path, source)
+        kit_path = resolve(require(standards, "kit", str, source, "standards"), path)
+        scenario.objects.update(actual_standards(kit_path, optional(standards, "deviation", 1.0, float, source, "standards"),
+                                                 optional(standards, "seed", seed + 7, int, source, "standards")))
+    for name, table in optional(data, "objects", {}, dict, source, "").items():
+        scenario.objects[name] = object_from_table(name, table, path, source)
     scenario.faults = _faults(data.get("faults", []), source)
     rng = np.random.default_rng(seed + 13)
-    for index, table in enumerate(data.get("populations", [])):
-        for serial, model, device in _population(table, rng, source, index):
+    for index, table in enumerate(optional(data, "populations", [], list, source, "")):
+        for serial, model, device in population(table, rng, source, index):
             scenario.objects[serial] = device
             scenario.devices.append((serial, model))
+    if "switch" in data:
+        _switch(data["switch"], scenario, bench)
     return scenario

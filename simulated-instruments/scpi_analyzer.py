@@ -57,6 +57,7 @@ class AnalyzerScpiFront(ScpiFront):
         add("FORMat[:DATA]?", lambda args, sfx: self.data_format)
         add("FORMat:BORDer", lambda args, sfx: self._set_byte_order(args))
         add("TRACe[:DATA]?", lambda args, sfx: self._trace(args))
+        add("[SENSe]:SWEep:TIME?", lambda args, sfx: f"{a.sweep_duration_s():.6g}")
 
     def reset(self) -> None:
         self.analyzer.reset()
@@ -133,12 +134,17 @@ class AnalyzerScpiFront(ScpiFront):
 
     def _trace(self, args: str) -> bytes | str:
         name = args.strip().upper()
-        if name not in ("RAW",):
+        if name not in ("RAW", "CORR", "CORRECTED"):
             raise ScpiCommandError(-224, "Illegal parameter value")
         a = self.analyzer
         a.wait_idle()
         with a.lock:
-            trace = a.traces.get(a.parameter)
+            if name == "RAW":
+                trace = a.traces.get(a.parameter)
+            elif not a.settings.internal_correction:
+                raise ScpiCommandError(-224, "Illegal parameter value")
+            else:
+                trace = a.corrected_trace(a.parameter)
         if trace is None:
             raise ScpiCommandError(-230, "Data corrupt or stale")
         return self._encode(trace, complex_data=True)

@@ -43,27 +43,33 @@ def test_a_missing_visa_library_says_what_to_do(tmp_path) -> None:
         VisaTransport("TCPIP::127.0.0.1::1::SOCKET", VisaOptions(library=str(tmp_path / "libvisa.so")))
 
 
-def test_pyvisa_py_socket_workarounds_are_applied(link: DriverBench) -> None:
+def test_pyvisa_py_socket_workarounds_are_applied(visa_link: DriverBench) -> None:
+    link = visa_link
     transport = link.analyzer().session.transport
     backend = visa_backend._socket_session(transport._handle)
     assert backend is not None, "the resource is a pyvisa-py SOCKET session"
     assert backend.max_recv_size == visa_backend.WIDE_RECV_SIZE
     assert backend.interface.getsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY)
-    assert transport._shortcut is not None
+    assert (transport._direct is not None) == (link.name == "scpi-tcp")
 
 
 def _wait_for_bytes(sock: socket.socket, count: int, timeout_s: float = 5.0) -> None:
     deadline = time.monotonic() + timeout_s
-    while len(sock.recv(count, socket.MSG_PEEK | socket.MSG_DONTWAIT)) < count:
+    while True:
+        try:
+            if len(sock.recv(count, socket.MSG_PEEK | socket.MSG_DONTWAIT)) >= count:
+                return
+        except BlockingIOError:
+            pass
         left = deadline - time.monotonic()
         assert left > 0, "the simulator did not answer"
-        select.select([sock], [], [], left)
+        select.select([sock], [], [], min(left, 0.01))
 
 
-def test_block_reads_take_bytes_pyvisa_py_already_holds_first(link: DriverBench) -> None:
-    """Two responses back to back: the line read through pyvisa-py pulls the start of the
-    block into its pending buffer; the direct block read must take those bytes first."""
-    analyzer = link.analyzer()
+def test_block_reads_take_bytes_pyvisa_py_already_holds_first(visa_link: DriverBench) -> None:
+    """Two responses back to back: the line read pulls the start of the block into
+    pyvisa-py's pending buffer; the block read must take those bytes first."""
+    analyzer = visa_link.analyzer()
     analyzer.configure(SweepPlan(1e8, 2e8, 101))
     expected = analyzer.measure(["S11"])["S11"]
     transport = analyzer.session.transport
@@ -80,3 +86,12 @@ def test_block_reads_take_bytes_pyvisa_py_already_holds_first(link: DriverBench)
     assert transport.read_exact_raw(1, deadline) == b"\n"
     values = ieee488.decode_real_payload(payload, "REAL,64", "little")
     np.testing.assert_array_equal(ieee488.interleaved_to_complex(values), expected)
+
+
+def test_closing_one_instrument_leaves_the_others_open(link: DriverBench) -> None:
+    # pyvisa hands out one resource manager per VISA library; closing it would close the
+    # resources of every other instrument of the station too.
+    analyzer = link.analyzer()
+    other = link.analyzer()
+    other.close()
+    assert analyzer.identify().serial == "SIM0099"

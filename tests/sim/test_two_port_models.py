@@ -10,35 +10,13 @@ from contextlib import closing
 import numpy as np
 import pytest
 import skrf
+from error_model_reference import twelve_term_raw
 
 from lineproof.drivers import open_analyzer
 from lineproof.simulators.control import BenchControlClient, ControlRequestError
 from lineproof.values import SweepPlan
 
 PLAN = SweepPlan(50e6, 900e6, 301)
-
-
-def twelve_term_raw(s: dict[str, np.ndarray], fwd: dict[str, np.ndarray],
-                    rev: dict[str, np.ndarray] | None) -> dict[str, np.ndarray]:
-    """The forward and reverse twelve-term models as printed in Agilent Application Note
-    1287-3, "Applying Error Correction to Network Analyzer Measurements" (2002), figure of the
-    full two-port error model (from memory):
-
-        S11m = EDF + ERF (S11 - ELF ΔS) / D_F          S21m = EXF + ETF S21 / D_F
-        D_F  = 1 - ESF S11 - ELF S22 + ESF ELF ΔS,     ΔS = S11 S22 - S21 S12
-    and the reverse model with the roles of the ports (and of ESR, ELR) exchanged."""
-    s11, s12, s21, s22 = s["s11"], s["s12"], s["s21"], s["s22"]
-    delta = s11 * s22 - s21 * s12
-    d_f = 1 - fwd["source_match"] * s11 - fwd["load_match"] * s22 + fwd["source_match"] * fwd["load_match"] * delta
-    raw = {
-        "S11": fwd["directivity"] + fwd["reflection_tracking"] * (s11 - fwd["load_match"] * delta) / d_f,
-        "S21": fwd["isolation"] + fwd["transmission_tracking"] * s21 / d_f,
-    }
-    if rev is not None:
-        d_r = 1 - rev["source_match"] * s22 - rev["load_match"] * s11 + rev["source_match"] * rev["load_match"] * delta
-        raw["S22"] = rev["directivity"] + rev["reflection_tracking"] * (s22 - rev["load_match"] * delta) / d_r
-        raw["S12"] = rev["isolation"] + rev["transmission_tracking"] * s12 / d_r
-    return raw
 
 
 def _network(s: dict[str, np.ndarray], f: np.ndarray) -> skrf.Network:

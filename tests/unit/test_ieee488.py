@@ -119,3 +119,19 @@ def test_channel_lists() -> None:
     for bad in ("3", "1!", "a!b", "1!2!3"):
         with pytest.raises(CodecError):
             ieee488.parse_channel(bad)
+
+
+@pytest.mark.parametrize("fmt", ["REAL,32", "REAL,64"])
+@pytest.mark.parametrize("order", ["big", "little"])
+def test_complex_payload_in_every_format_and_byte_order(fmt: str, order: str) -> None:
+    # SCPI-1999 Vol 2 FORMat:DATA REAL,32|64 with FORMat:BORDer NORMal (big) or SWAPped.
+    pairs = np.array([1.5, -2.0, 3e-3, 4.25, -0.5, 0.0])
+    payload = ieee488.encode_real_payload(pairs, fmt, order)
+    expected = np.array([1.5 - 2.0j, 3e-3 + 4.25j, -0.5 + 0j])
+    decoded = ieee488.decode_complex_payload(payload, fmt, order)
+    assert decoded.dtype == np.complex128
+    np.testing.assert_allclose(decoded, expected, rtol=1e-7 if fmt == "REAL,32" else 0)
+    np.testing.assert_array_equal(ieee488.interleaved_to_complex(ieee488.decode_real_payload(payload, fmt, order)),
+                                  decoded)
+    with pytest.raises(CodecError, match="pairs"):
+        ieee488.decode_complex_payload(payload[:-4], fmt, order)

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import re
+from pathlib import Path
+
 import pytest
 
 from lineproof.drivers.profiles import (
@@ -172,3 +175,28 @@ def test_a_block_reply_cannot_come_over_a_prompted_line() -> None:
         'data_format = "ASCII"', 'data_format = "REAL,64"')
     with pytest.raises(InputError, match=r"\[operations.read_raw.reply\].*message framing"):
         parse_analyzer_profile(text, "line.toml")
+
+
+def _guide_examples() -> list[str]:
+    """The TOML examples of DEVELOPERS.md's "Adding an instrument profile" section."""
+    text = (Path(__file__).parents[2] / "DEVELOPERS.md").read_text(encoding="utf-8")
+    section = text.split("## Adding an instrument profile", 1)[1].split("\n## ", 1)[0]
+    return re.findall(r"```toml\n(.*?)```", section, re.DOTALL)
+
+
+def test_the_contributor_guide_examples_load(tmp_path: Path) -> None:
+    examples = _guide_examples()
+    assert len(examples) == 3
+    for index, text in enumerate(examples):
+        path = tmp_path / f"example-{index}.toml"
+        path.write_text(text, encoding="utf-8")
+        if profile_kind(path) == "switch":
+            assert load_switch_profile(path).capabilities.modules == 2
+        else:
+            profile = load_analyzer_profile(path)
+            assert profile.operation("read_raw") is not None and profile.operation("identify") is not None
+    line = load_analyzer_profile(tmp_path / "example-1.toml")
+    assert line.link.needs_serial and line.operation("read_raw").render(parameter="refl") == "dump refl"
+    misspelt = examples[0].replace('reply = "block"', 'reply = "blok"')
+    with pytest.raises(InputError, match=re.escape("[operations.read_raw.reply]: unknown value 'blok'")):
+        parse_analyzer_profile(misspelt, "my-analyzer.toml")

@@ -27,7 +27,7 @@ def test_workarounds_leave_other_backends_alone() -> None:
     handle = _handle(other)
     assert visa_backend.widen_socket_reads(handle) is False and other.max_recv_size == 4096
     assert visa_backend.disable_nagle(handle) is False
-    assert visa_backend.SocketShortcut.attach(handle) is None
+    assert visa_backend.DirectSocketIO.attach(handle) is None
     assert visa_backend.connect_error(handle) is None
     assert visa_backend.peer_closed(handle) is False
 

@@ -1,0 +1,131 @@
+"""Slow change of the hidden error terms: with the bench temperature and with elapsed time.
+
+The bench has one clock and one temperature (:class:`BenchEnvironment`), shared by its
+instruments.  The clock runs at ``clock_rate`` bench seconds per real second (0: it moves only
+when the control channel advances it, so that a test is repeatable); the temperature follows
+the scenario's profile (bench seconds, °C; linear between points, held outside them) until the
+control channel sets it.
+
+What drifts (:class:`DriftSettings`, all zero unless a scenario sets them): the magnitude of
+the tracking terms (receiver gain, cable loss), the magnitude of the directivity and match
+terms, and the electrical length of each test-port cable (its phase), per kelvin away from the
+reference temperature and per hour of bench time.  The phase effect of a cable's length is a
+fact of the trade (a flexible test-port cable changes its electrical length with temperature
+by some tens of ppm per kelvin; from memory).
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from lineproof.simulators.error_model import DirectionTerms
+
+
+@dataclass(frozen=True)
+class DriftSettings:
+    """How an analyzer's terms drift (zero: they do not)."""
+
+    reference_temperature_c: float = 23.0
+    #: Relative change of the tracking terms' magnitude per kelvin.
+    tracking_per_k: float = 0.0
+    #: Relative change of the directivity and match terms' magnitude per kelvin.
+    match_per_k: float = 0.0
+    #: Change of each test-port cable's electrical length per kelvin (ppm of its delay).
+    cable_delay_ppm_per_k: float = 0.0
+    #: Relative change of the tracking terms' magnitude per hour of bench time.
+    tracking_per_hour: float = 0.0
+    #: Change of each test-port cable's delay per hour of bench time (s).
+    delay_per_hour_s: float = 0.0
+
+    def is_still(self) -> bool:
+        return not any((self.tracking_per_k, self.match_per_k, self.cable_delay_ppm_per_k,
+                        self.tracking_per_hour, self.delay_per_hour_s))
+
+
+@dataclass(frozen=True)
+class Conditions:
+    """The bench's clock and temperature at one moment."""
+
+    seconds: float
+    temperature_c: float
+
+
+class TemperatureProfile:
+    """Temperature over bench time: linear between (seconds, °C) points, held outside."""
+
+    def __init__(self, points: Sequence[tuple[float, float]]) -> None:
+        if not points:
+            raise ValueError("a temperature profile needs at least one (seconds, °C) point")
+        times = [float(t) for t, _ in points]
+        if any(later <= earlier for earlier, later in zip(times, times[1:], strict=False)):
+            raise ValueError("the profile's times must increase")
+        self.times = np.array(times)
+        self.temperatures = np.array([float(c) for _, c in points])
+
+    def at(self, seconds: float) -> float:
+        return float(np.interp(seconds, self.times, self.temperatures))
+
+
+class BenchEnvironment:
+    """The bench clock and temperature (thread-safe)."""
+
+    def __init__(self, temperature_c: float = 23.0, profile: TemperatureProfile | None = None,
+                 clock_rate: float = 1.0) -> None:
+        self._lock = threading.Lock()
+        self._started = time.monotonic()
+        self._advanced = 0.0
+        self.clock_rate = clock_rate
+        self.profile = profile
+        self._held: float | None = None if profile is not None else temperature_c
+
+    def seconds(self) -> float:
+        with self._lock:
+            return (time.monotonic() - self._started) * self.clock_rate + self._advanced
+
+    def advance(self, seconds: float) -> None:
+        """Move the bench clock forward (the temperature profile and time drift follow)."""
+        with self._lock:
+            self._advanced += seconds
+
+    def set_temperature(self, temperature_c: float) -> None:
+        """Hold the bench at ``temperature_c`` from now on (the profile no longer applies)."""
+        with self._lock:
+            self._held = temperature_c
+
+    def now(self) -> Conditions:
+        seconds = self.seconds()
+        with self._lock:
+            held = self._held
+        return Conditions(seconds, held if held is not None else self.profile.at(seconds))
+
+
+def drifted(terms: dict[str, DirectionTerms], frequencies_hz: np.ndarray, settings: DriftSettings,
+            cable_delays_s: Sequence[float], conditions: Conditions) -> dict[str, DirectionTerms]:
+    """``terms`` as they are under ``conditions``."""
+    if settings.is_still():
+        return terms
+    delta_k = conditions.temperature_c - settings.reference_temperature_c
+    hours = conditions.seconds / 3600.0
+    gain = 1.0 + settings.tracking_per_k * delta_k + settings.tracking_per_hour * hours
+    match = 1.0 + settings.match_per_k * delta_k
+    w = 2 * np.pi * np.asarray(frequencies_hz, dtype=float)
+    # Extra one-way delay of each port's cable.
+    extra = [d * settings.cable_delay_ppm_per_k * 1e-6 * delta_k + settings.delay_per_hour_s * hours
+             for d in cable_delays_s]
+    result = {}
+    for direction, t in terms.items():
+        drive, receive = (0, -1) if direction == "forward" else (-1, 0)
+        round_trip = np.exp(-1j * w * 2 * extra[drive])
+        result[direction] = t.scaled(
+            directivity=match,
+            source_match=match * round_trip,
+            reflection_tracking=gain * round_trip,
+            load_match=match * np.exp(-1j * w * 2 * extra[receive]),
+            transmission_tracking=gain * np.exp(-1j * w * (extra[drive] + extra[receive])),
+        )
+    return result
