@@ -26,6 +26,7 @@ COMMAND_MODULES = (
     "lineproof.report_command",
     "lineproof.results_command",
     "lineproof.instruments_command",
+    "lineproof.sim_command",
 )
 
 

@@ -35,6 +35,7 @@ from lineproof.simulators.error_model import (
     correct_two_port,
     freeze,
 )
+from lineproof.simulators.noise import NoiseTable
 from lineproof.simulators.objects import BenchObject
 from lineproof.simulators.wiring import Attachment, PortWiring
 
@@ -95,7 +96,6 @@ class SimulatedAnalyzer:
         self.calibrated_at = self.environment.now()
         self.last_conditions = self.calibrated_at
         self.lock = threading.RLock()
-        self._rng = np.random.default_rng(settings.seed)
         self._connection_rng = np.random.default_rng(settings.seed + 1)
         self.error_model = AnalyzerErrorModel(settings.model, settings.port_settings, settings.seed)
         self.wiring = PortWiring(settings.ports)
@@ -104,6 +104,11 @@ class SimulatedAnalyzer:
         self.busy_seconds = 0.0
         self._terms_cache: dict[tuple[float, float, int], dict[str, DirectionTerms]] = {}
         self._correction_cache: dict[tuple[float, float, int], dict[str, DirectionTerms]] = {}
+        self._raw_cache: dict[tuple[object, ...], dict[str, tuple[np.ndarray, dict]]] = {}
+        self._network_cache: dict[tuple[object, ...], np.ndarray] = {}
+        self._noise_table = NoiseTable(settings.seed)
+        self._grid_key: tuple[float, float, int] | None = None
+        self._grid = np.empty(0)
         self._cable_delays = [m.settings.cable_delay_s for m in self.error_model.port_models]
         self.reset()
 
@@ -124,8 +129,14 @@ class SimulatedAnalyzer:
             self.last_sweep_s = 0.0
 
     def frequencies(self) -> np.ndarray:
+        """The current sweep's grid (read-only; kept while the sweep settings stand)."""
         with self.lock:
-            return np.linspace(self.start_hz, self.stop_hz, self.points)
+            key = (self.start_hz, self.stop_hz, self.points)
+            if self._grid_key != key:
+                grid = np.linspace(self.start_hz, self.stop_hz, self.points)
+                grid.setflags(write=False)
+                self._grid, self._grid_key = grid, key
+            return self._grid
 
     def sweep_duration_s(self) -> float:
         """Simulated duration of one sweep of every direction the model measures."""
@@ -188,9 +199,7 @@ class SimulatedAnalyzer:
         analyzer, (N,) for a reflection analyzer."""
         f = np.asarray(frequencies_hz, dtype=float)
         with self.lock:
-            if self.settings.ports == 1:
-                return self.wiring.reflection(1, f)
-            return self.wiring.between_planes(f)
+            return self._network(f)
 
     # -- error terms --------------------------------------------------------------------
 
@@ -226,22 +235,64 @@ class SimulatedAnalyzer:
 
     # -- sweeping -------------------------------------------------------------------------
 
-    def _noise(self, raw: np.ndarray) -> np.ndarray:
+    def _noise(self, raw: np.ndarray, entry: dict[object, np.ndarray]) -> np.ndarray:
+        """``raw`` plus receiver noise: a floor that grows as the square root of the IF
+        bandwidth and falls with the source power, and a part proportional to the signal.
+        The noise's standard deviation per point is kept in ``entry`` (with the raw trace)."""
         if not self.noise_enabled:
             return raw
         s = self.settings
         floor = 10 ** (s.noise_floor_db / 20) * np.sqrt(self.if_bandwidth_hz / 1e3) * 10 ** (-self.power_dbm / 20)
-        sigma = np.hypot(floor, s.trace_noise * np.abs(raw)) / np.sqrt(2)
-        noise = self._rng.standard_normal((2, raw.size))
-        return raw + sigma * (noise[0] + 1j * noise[1])
+        sigma = entry.get(floor)
+        if sigma is None:
+            # half the noise power in each of the real and imaginary parts
+            sigma = np.sqrt(0.5 * floor * floor + (0.5 * s.trace_noise**2) * (raw.real**2 + raw.imag**2))
+            if len(entry) > 4:
+                entry.clear()
+            entry[floor] = sigma
+        noisy = np.multiply(sigma, self._noise_table.draw(raw.size))
+        return np.add(noisy, raw, out=noisy)
 
     def raw_traces(self, f: np.ndarray, conditions: Conditions | None = None) -> dict[str, np.ndarray]:
-        """Noise-free raw traces of every parameter the model measures, on ``f``."""
+        """Noise-free raw traces of every parameter the model measures, on ``f`` under
+        ``conditions`` (default: now)."""
+        return {name: raw for name, (raw, _) in self._raw_entry(f, conditions or self.environment.now()).items()}
+
+    def _raw_entry(self, f: np.ndarray, conditions: Conditions) -> dict[str, tuple[np.ndarray, dict]]:
+        """Raw traces (each with a small cache of its noise levels), kept per grid while nothing is reconnected and the
+        conditions hold (the bench clock ticks in whole seconds), so a repeated sweep
+        costs only its noise."""
+        still = self.settings.drift.is_still()
+        key = (float(f[0]), float(f[-1]), f.size, self.wiring.generation, None if still else conditions)
+        entry = self._raw_cache.get(key)
+        if entry is None:
+            entry = {}
+            for name, raw in self._compute_raw(f, conditions).items():
+                raw.setflags(write=False)
+                entry[name] = (raw, {})
+            if len(self._raw_cache) >= _CACHE_LIMIT:
+                self._raw_cache.clear()
+            self._raw_cache[key] = entry
+        return entry
+
+    def _network(self, f: np.ndarray) -> np.ndarray:
+        """The true network between the planes ((N,) for a reflection analyzer), kept per grid
+        until something is reconnected."""
+        key = (float(f[0]), float(f[-1]), f.size, self.wiring.generation)
+        network = self._network_cache.get(key)
+        if network is None:
+            network = self.wiring.reflection(1, f) if self.settings.ports == 1 else self.wiring.between_planes(f)
+            network.setflags(write=False)
+            if len(self._network_cache) >= _CACHE_LIMIT:
+                self._network_cache.clear()
+            self._network_cache[key] = network
+        return network
+
+    def _compute_raw(self, f: np.ndarray, conditions: Conditions) -> dict[str, np.ndarray]:
         terms = self.direction_terms(f, conditions)
+        network = self._network(f)
         if self.settings.model == "reflection":
-            network = physics.diagonal_s(self.wiring.reflection(1, f), np.zeros(f.shape, dtype=complex))
-        else:
-            network = self.wiring.between_planes(f)
+            return {"S11": terms["forward"].measure_reflection(network)}
         s11, s21 = terms["forward"].measure(network)
         traces = {"S11": s11, "S21": s21}
         if "reverse" in terms:
@@ -256,7 +307,8 @@ class SimulatedAnalyzer:
             if self.start_hz > self.stop_hz:
                 raise ValueError("the start frequency is above the stop frequency")
             self.last_conditions = self.environment.now()
-            self.traces = {name: self._noise(raw) for name, raw in self.raw_traces(f, self.last_conditions).items()}
+            entry = self._raw_entry(f, self.last_conditions)
+            self.traces = {name: self._noise(raw, levels) for name, (raw, levels) in entry.items()}
             self.trace_frequencies = f
             duration = self.sweep_duration_s()
             self.last_sweep_s = duration

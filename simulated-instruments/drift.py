@@ -72,7 +72,12 @@ class TemperatureProfile:
 
 
 class BenchEnvironment:
-    """The bench clock and temperature (thread-safe)."""
+    """The bench clock and temperature (thread-safe).  The clock reads in whole seconds
+    (``TICKS_PER_SECOND``): the terms drift far too slowly to change within one (parts in
+    10^7 at the drift rates of real analyzers), and a bench whose conditions hold can keep
+    what it computed."""
+
+    TICKS_PER_SECOND = 1
 
     def __init__(self, temperature_c: float = 23.0, profile: TemperatureProfile | None = None,
                  clock_rate: float = 1.0) -> None:
@@ -85,7 +90,8 @@ class BenchEnvironment:
 
     def seconds(self) -> float:
         with self._lock:
-            return (time.monotonic() - self._started) * self.clock_rate + self._advanced
+            exact = (time.monotonic() - self._started) * self.clock_rate + self._advanced
+        return round(exact * self.TICKS_PER_SECOND) / self.TICKS_PER_SECOND
 
     def advance(self, seconds: float) -> None:
         """Move the bench clock forward (the temperature profile and time drift follow)."""
@@ -114,18 +120,18 @@ def drifted(terms: dict[str, DirectionTerms], frequencies_hz: np.ndarray, settin
     gain = 1.0 + settings.tracking_per_k * delta_k + settings.tracking_per_hour * hours
     match = 1.0 + settings.match_per_k * delta_k
     w = 2 * np.pi * np.asarray(frequencies_hz, dtype=float)
-    # Extra one-way delay of each port's cable.
-    extra = [d * settings.cable_delay_ppm_per_k * 1e-6 * delta_k + settings.delay_per_hour_s * hours
-             for d in cable_delays_s]
+    # Each port's cable one way longer: a phase factor per port (two exponentials in all).
+    one_way = [np.exp(-1j * w * (d * settings.cable_delay_ppm_per_k * 1e-6 * delta_k + settings.delay_per_hour_s * hours))
+               for d in cable_delays_s]
     result = {}
     for direction, t in terms.items():
-        drive, receive = (0, -1) if direction == "forward" else (-1, 0)
-        round_trip = np.exp(-1j * w * 2 * extra[drive])
+        drive, receive = (one_way[0], one_way[-1]) if direction == "forward" else (one_way[-1], one_way[0])
+        round_trip = drive * drive
         result[direction] = t.scaled(
             directivity=match,
             source_match=match * round_trip,
             reflection_tracking=gain * round_trip,
-            load_match=match * np.exp(-1j * w * 2 * extra[receive]),
-            transmission_tracking=gain * np.exp(-1j * w * (extra[drive] + extra[receive])),
+            load_match=match * receive * receive,
+            transmission_tracking=gain * drive * receive,
         )
     return result

@@ -122,6 +122,12 @@ class DirectionTerms:
         return reflection, transmission
 
 
+    def measure_reflection(self, gamma: np.ndarray) -> np.ndarray:
+        """Raw reflection ratio of a lone one-port ``gamma``: the same flow graph with nothing
+        transmitted, a = 1 + e11 Γ a, so b1 = Γ / (1 - e11 Γ)."""
+        return self.directivity + self.reflection_tracking * gamma / (1.0 - self.source_match * gamma)
+
+
 @dataclass(frozen=True)
 class PortTerms:
     """What one port contributes: its own three terms split into the one-way source and

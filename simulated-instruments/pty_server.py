@@ -26,6 +26,7 @@ import struct
 import threading
 import time
 
+from lineproof.errors import InputError
 from lineproof.simulators.faults import GARBAGE, FaultPlan
 from lineproof.simulators.serial_analyzer import SerialAnalyzerFront, SerialCommandError, SerialReply
 
@@ -51,9 +52,13 @@ class PtySerialServer:
 
     def __init__(self, front: SerialAnalyzerFront, baud_rate: int, faults: FaultPlan | None = None,
                  name: str = "serial-analyzer") -> None:
-        import termios
-        import tty
-        from fcntl import ioctl
+        try:
+            import termios
+            import tty
+            from fcntl import ioctl
+        except ImportError as exc:
+            raise InputError("a serial analyzer is served on a pseudo-terminal, which this system lacks",
+                             key="analyzer.transport", fix='use transport = "scpi" here (POSIX systems only)') from exc
 
         if baud_rate <= 0:
             raise ValueError("baud_rate must be positive")

@@ -22,8 +22,14 @@ _MESSAGE_LIMIT = 1 << 20
 POWER_ON_BIT = 128
 
 
-class DataReply(bytes):
-    """A reply carrying measurement data (a block or an ASCII list): what ``truncate`` cuts."""
+class DataReply:
+    """A reply carrying measurement data (a block or an ASCII list): what ``truncate`` cuts.
+    Held as pieces (a block's header and payload) so the response is copied only once."""
+
+    __slots__ = ("pieces",)
+
+    def __init__(self, *pieces: bytes) -> None:
+        self.pieces = pieces
 
 
 class ScpiFront:
@@ -94,7 +100,7 @@ class ScpiFront:
 
     # -- one program message, with its faults -----------------------------------------------
 
-    def execute(self, message: str) -> list[bytes | str]:
+    def execute(self, message: str) -> list[bytes | str | DataReply]:
         with self.message_lock:
             if self.faults.take(("reset",), message):
                 self.power_cycle()
@@ -105,9 +111,17 @@ class ScpiFront:
         return replies
 
 
-def _response(replies: list[bytes | str]) -> tuple[bytes, bool]:
-    parts = [r.encode("ascii") if isinstance(r, str) else bytes(r) for r in replies]
-    return b";".join(parts) + b"\n", any(isinstance(r, DataReply) for r in replies)
+def _response(replies: list[bytes | str | DataReply]) -> tuple[bytes, bool]:
+    parts: list[bytes] = []
+    for index, reply in enumerate(replies):
+        if index:
+            parts.append(b";")
+        if isinstance(reply, DataReply):
+            parts.extend(reply.pieces)
+        else:
+            parts.append(reply.encode("ascii") if isinstance(reply, str) else reply)
+    parts.append(b"\n")
+    return b"".join(parts), any(isinstance(r, DataReply) for r in replies)
 
 
 class _ScpiConnectionHandler(socketserver.StreamRequestHandler):

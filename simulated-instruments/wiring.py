@@ -2,9 +2,10 @@
 analyzer's reference planes.
 
 A one-port sits on one port.  A two-port sits on one port with its output on a one-port
-termination, or joins two ports (its output on the other port).  Each mating of a connector
-adds a small random reflection (connector repeatability); an object reached through a switch
-channel sits behind that channel's own fixed path.
+termination, or joins two ports (its output on the other port).  Each mating at an analyzer
+port adds a small random reflection (connector repeatability; the joint between a device's
+output and its termination is taken as perfect); an object reached through a switch channel
+sits behind that channel's own fixed path.
 """
 
 from __future__ import annotations
@@ -68,6 +69,8 @@ class PortWiring:
     def __init__(self, ports: int) -> None:
         self.ports = ports
         self._by_port: dict[int, Attachment] = {}
+        #: Counts changes, so that what is computed from the wiring can be cached.
+        self.generation = 0
 
     def attachment(self, port: int) -> Attachment | None:
         return self._by_port.get(port)
@@ -83,6 +86,7 @@ class PortWiring:
             self.detach(old.input_port)
         for port in attachment.ports():
             self._by_port[port] = attachment
+        self.generation += 1
         return removed
 
     def detach(self, port: int) -> Attachment | None:
@@ -90,6 +94,7 @@ class PortWiring:
         if old is not None:
             for p in old.ports():
                 self._by_port.pop(p, None)
+            self.generation += 1
         return old
 
     def oriented_object(self, attachment: Attachment, f: np.ndarray) -> np.ndarray:

@@ -4,6 +4,7 @@ raw data that is the error model of the truth (PROTOCOLS.md §2)."""
 
 from __future__ import annotations
 
+import os
 import time
 
 import numpy as np
@@ -14,6 +15,8 @@ from error_model_reference import twelve_term_raw
 from lineproof.simulators.bench import SimulatedBench
 from lineproof.simulators.control import BenchControlClient
 from lineproof.simulators.faults import GARBAGE
+
+pytestmark = pytest.mark.skipif(os.name != "posix", reason="pseudo-terminals are POSIX only")
 
 PROMPT = b"S2> "
 BAUD = 57600  # tests/scenarios/serial-bench.toml
