@@ -37,7 +37,6 @@ DEFAULT_INTERPOLATION_TOLERANCE = 1e-3
 #: Default age limit of a calibration (common practice, no published source: recalibrate at
 #: least once per working shift, and whenever the temperature moves).
 DEFAULT_MAX_AGE_S = 8 * 3600.0
-_REFLECTION_TERMS = ("directivity", "source_match", "load_match", "isolation")
 
 
 def _atomic_write(path: Path, data: bytes) -> None:

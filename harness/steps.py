@@ -16,6 +16,7 @@ import numpy as np
 from lineproof import calibration, metrics
 from lineproof.calkit import CalKit
 from lineproof.decision import RULE_TEXT, DecisionRule, judge_upper_limit
+from lineproof.deembed import Adapter, remove_from_reflection
 from lineproof.errors import InputError, RunHalted
 from lineproof.interfaces import Analyzer, Operator
 from lineproof.uncertainty import (
@@ -237,9 +238,13 @@ def measure_device(
     bands: Sequence[BandLimit],
     rule: DecisionRule,
     markers: Mapping[str, float] | None = None,
+    adapter: Adapter | None = None,
 ) -> tuple[DeviceResult, np.ndarray, np.ndarray]:
     """Connect the device with its output on the qualified termination, measure, judge with
-    the uncertainty of every point (the termination's own mismatch included)."""
+    the uncertainty of every point (the termination's own mismatch included).  An
+    ``adapter`` between the reference plane and the device is removed (de-embedded); the
+    uncertainty is that of the reading at the reference plane, carried through unchanged (a
+    first-order view that holds for a low-loss, well-matched adapter)."""
     name = termination if isinstance(termination, str) else termination.name
     station.operator.connect(
         station.port, device.serial, name,
@@ -247,9 +252,13 @@ def measure_device(
     )
     frequencies, corrected = measure_corrected(station, cal)
     spread = device_uncertainty(station, cal, frequencies, corrected, termination)
+    extra = {}
+    if adapter is not None:
+        corrected = remove_from_reflection(adapter, frequencies, corrected)
+        extra["reference_plane.adapter_removed"] = adapter.name
     qualification = termination.qualification if isinstance(termination, QualifiedTermination) else None
     result = judge(device, frequencies, corrected, bands, rule, spread.expanded, markers=markers,
-                   termination=qualification)
+                   termination=qualification, extra=extra)
     return result, frequencies, corrected
 
 

@@ -154,12 +154,15 @@ def correct_two_port(calibration: CalibrationRecord, frequencies_hz: np.ndarray,
     n12 = (raw[:, 0, 1] - exr) / etr
     n22 = (raw[:, 1, 1] - edr) / err
     product = n21 * n12
-    d = (1 + n11 * esf) * (1 + n22 * esr) - product * elf * elr
+    forward = 1 + n11 * esf   # 1 + N11 ESF
+    reverse = 1 + n22 * esr   # 1 + N22 ESR
+    through_load = product * elf
+    inverse = 1 / (forward * reverse - through_load * elr)
     return s_matrix(
-        (n11 * (1 + n22 * esr) - elf * product) / d,
-        n21 * (1 + n22 * (esr - elf)) / d,
-        n12 * (1 + n11 * (esf - elr)) / d,
-        (n22 * (1 + n11 * esf) - elr * product) / d,
+        (n11 * reverse - through_load) * inverse,
+        n21 * (reverse - n22 * elf) * inverse,
+        n12 * (forward - n11 * elr) * inverse,
+        (n22 * forward - elr * product) * inverse,
     )
 
 

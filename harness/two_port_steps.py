@@ -16,6 +16,7 @@ import numpy as np
 from lineproof import calibration, metrics, two_port
 from lineproof.calkit import CalKit
 from lineproof.decision import DecisionRule
+from lineproof.deembed import Adapter, remove_from_two_port
 from lineproof.errors import CalibrationError
 from lineproof.steps import QualifiedTermination, Station, judge
 from lineproof.uncertainty import (
@@ -130,10 +131,16 @@ def measure_two_port_device(
     rule: DecisionRule,
     termination: QualifiedTermination | None = None,
     markers: Mapping[str, float] | None = None,
+    adapters: tuple[Adapter | None, Adapter | None] = (None, None),
 ) -> tuple[DeviceResult, np.ndarray, np.ndarray]:
     """Measure full S-parameters; judge S11 with an ideal termination (and insertion loss
-    where a band limits it), and record output match and the as-terminated figure beside it."""
+    where a band limits it), and record output match and the as-terminated figure beside it.
+    ``adapters`` (input side, output side -- the latter with its port 1 at analyzer port 2)
+    are removed from the data; the uncertainty is carried through unchanged (first order,
+    for low-loss well-matched adapters)."""
     f, s = measure_s(station, cal, device)
+    if any(adapter is not None for adapter in adapters):
+        s = remove_from_two_port(f, s, *adapters)
     product = s[:, 1, 0] * s[:, 0, 1]
     spread = reflection_uncertainty(cal.residuals, s[:, 0, 0], f, station.uncertainty,
                                     interpolation_error=cal.interpolation_error,
@@ -141,6 +148,8 @@ def measure_two_port_device(
     loss = metrics.insertion_loss_db(s[:, 1, 0])
     loss_u = transmission_uncertainty_db(cal.residuals, s, station.uncertainty)
     extra = side_figures(f, s, bands, termination)
+    extra.update({f"reference_plane.{side}_adapter_removed": adapter.name
+                  for side, adapter in zip(("input", "output"), adapters, strict=True) if adapter is not None})
     result = judge(device, f, s[:, 0, 0], bands, rule, spread.expanded, insertion_loss_db=loss,
                    insertion_loss_uncertainty_db=loss_u, markers=markers,
                    termination=None if termination is None else termination.qualification,

@@ -27,7 +27,9 @@ Supplement 2, JCGM 102:2011, for the two-dimensional output, projected).  Inputs
 phase and known magnitude a are U-shaped in projection, u = a/√2 (I. A. Harris and F. L.
 Warner, "Re-examination of mismatch uncertainty when measuring microwave power and
 attenuation", IEE Proc. H 128(1), 1981); worst-case limits of a real quantity are
-rectangular, u = a/√3 (GUM 4.3.7).  The expanded uncertainty is U = k u with k = 2.
+rectangular, u = a/√3 (GUM 4.3.7).  The expanded uncertainty is U = k u with k = 2, except
+where one contribution of unknown phase and bounded magnitude dominates: its short-tailed
+distribution sets k (GUM G.6.5-G.6.6; EA-4/02 M:2013 §5), see :func:`coverage_factor`.
 """
 
 from __future__ import annotations
@@ -39,6 +41,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from lineproof.calkit import CalKit, StandardDefinition, ideal_reflection, varied
+from lineproof.metrics import vswr_from_reflection
 
 LOAD_INPUT = "load reflection"
 #: Step for the numerical sensitivity of a standard's model to one of its values.
@@ -130,7 +133,8 @@ def standard_inputs(kit: CalKit, kind: str, frequencies_hz: np.ndarray, settings
             inputs.append(InputQuantity("short inductance", step, statement.short_inductance_uncertainty_h**2, True))
     if settings.connection_repeatability:
         # A connector interface as a small impedance step: S11 = c, S22 = -c, S21 S12 = 1 - c²
-        # (Pozar, Microwave Engineering, §4.3), which moves a reflection Γ by c (1 - Γ²).
+        # (the scattering matrix of a step between two lines; D. M. Pozar, Microwave
+        # Engineering, from memory), which moves a reflection Γ by c (1 - Γ²) to first order.
         inputs.append(InputQuantity(f"{kind} connection", 1 - model**2, settings.repeatability(f) ** 2, False))
     if settings.trace_noise:
         inputs.append(InputQuantity(f"{kind} noise", np.ones(f.shape, complex), 2 * settings.trace_noise**2, False))
@@ -167,8 +171,10 @@ def residual_model(kit: CalKit, kinds: tuple[str, ...], frequencies_hz: np.ndarr
                 load += term
             if quantity.real:
                 pseudo += outer * c[:, :, None] * c[:, None, :]
-    return {f"{prefix}.variance": variance, f"{prefix}.pseudo_variance": pseudo,
-            f"{prefix}.load_variance": load, f"{prefix}.load_spread": np.full(f.shape, load_spread(kit), complex)}
+    # Column-major: each (j, k) entry contiguous over frequency, for the speed of _form.
+    return {f"{prefix}.variance": np.asfortranarray(variance), f"{prefix}.pseudo_variance": np.asfortranarray(pseudo),
+            f"{prefix}.load_variance": np.asfortranarray(load),
+            f"{prefix}.load_spread": np.full(f.shape, load_spread(kit), complex)}
 
 
 def transmission_model(kit: CalKit, frequencies_hz: np.ndarray, settings: UncertaintySettings) -> dict[str, np.ndarray]:
@@ -196,37 +202,64 @@ def add_specified_residuals(residuals: Mapping[str, np.ndarray], prefix: str, di
 
 
 def residuals_from_check_standard(known: np.ndarray, measured: np.ndarray, expected_u: np.ndarray,
-                                  coverage_factor: float = 2.0) -> np.ndarray:
-    """The part of a check standard's observed deviation |Γm - Γknown| that the model does
-    not explain (beyond k·u of its own prediction), spread over D, T, M as a bound
-    D = T = M = excess / (1 + |Γ| + |Γ|²); returns that common bound per point."""
-    g = np.abs(known)
-    excess = np.maximum(0.0, np.abs(measured - known) - coverage_factor * expected_u)
-    return excess / (1 + g + g * g)
+                                  coverage: float = 2.0) -> np.ndarray:
+    """The residual bound a check standard calls for: where its observed deviation
+    |Γm - Γknown| exceeds k times the model's standard uncertainty u there, the missing
+    standard uncertainty u_x = sqrt((|ΔΓ|/k)² - u²) is put on D, T and M alike (bounds of
+    unknown phase, |ΔΓ| <= D + T|Γ| + M|Γ|² style): D = T = M = √2 u_x / sqrt(1 + |Γ|² + |Γ|⁴),
+    so that the widened interval reaches the observed deviation at the check standard (|Γ|
+    taken as the smaller of its known and read values, where the widening is least).
+    Returns that common bound per point (zero where the model already explains the check)."""
+    g = np.minimum(np.abs(known), np.abs(measured))
+    needed = (np.abs(measured - known) / coverage) ** 2
+    missing = np.sqrt(np.maximum(needed - np.asarray(expected_u) ** 2, 0.0))
+    return math.sqrt(2) * missing / np.sqrt(1 + g**2 + g**4)
 
 
-def _quadratic_forms(residuals: Mapping[str, np.ndarray], prefix: str, vector: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+_PAIRS = ((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))
+
+
+def _pair_products(vector: np.ndarray, conjugate: bool) -> list[np.ndarray]:
+    left = np.conj(vector) if conjugate else vector
+    return [left[:, j] * vector[:, k] for j, k in _PAIRS]
+
+
+def _form(matrix: np.ndarray, products: list[np.ndarray], hermitian: bool) -> np.ndarray:
+    """Σ_jk v̄_j M_jk v_k (Hermitian M, real result) or Σ_jk v_j M_jk v_k (symmetric M) from
+    the six pair products: the diagonal once, each off-diagonal pair twice."""
+    diagonal = sum(matrix[:, j, j] * products[i] for i, (j, _) in enumerate(_PAIRS[:3]))
+    off = sum(matrix[:, j, k] * products[i + 3] for i, (j, k) in enumerate(_PAIRS[3:]))
+    if hermitian:
+        return diagonal.real + 2 * off.real
+    return diagonal + 2 * off
+
+
+def _quadratic_forms(residuals: Mapping[str, np.ndarray], prefix: str,
+                     vector: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Variance, pseudo-variance and the load standard's variance of the residual error at
+    each point (zeros when the calibration has no residual model)."""
     variance = residuals.get(f"{prefix}.variance")
     if variance is None:
         zero = np.zeros(vector.shape[0])
-        return zero, zero.astype(complex)
-    pseudo = residuals[f"{prefix}.pseudo_variance"]
-    v = np.einsum("nj,njk,nk->n", np.conj(vector), variance, vector).real
-    w = np.einsum("nj,njk,nk->n", vector, pseudo, vector)
-    return v, w
+        return zero, zero.astype(complex), zero
+    mixed = _pair_products(vector, conjugate=True)
+    load = residuals.get(f"{prefix}.load_variance")
+    return (_form(variance, mixed, True),
+            _form(residuals[f"{prefix}.pseudo_variance"], _pair_products(vector, conjugate=False), False),
+            np.zeros(vector.shape[0]) if load is None else _form(load, mixed, True))
 
 
 def estimate_trace_noise(trace: np.ndarray) -> float:
     """Standard deviation of each part (real, imaginary) of white noise on a smooth trace,
     from its second differences (Var(x[i-1] - 2x[i] + x[i+1]) = 6σ²), robustly (median
-    absolute deviation, 1.4826 for a normal distribution).  A trace that is not smooth at
-    the point spacing makes it larger, never smaller."""
+    of |second difference|, whose distribution is Rayleigh for complex normal noise).  A trace
+    that is not smooth at the point spacing makes it larger, never smaller."""
     values = np.asarray(trace, dtype=complex)
     if values.size < 5:
         return 0.0
     second = values[:-2] - 2 * values[1:-1] + values[2:]
-    parts = np.concatenate([second.real, second.imag])
-    return float(1.4826 * np.median(np.abs(parts - np.median(parts))) / math.sqrt(6))
+    # |second| is Rayleigh with scale sqrt(6)σ; its median is that scale times sqrt(2 ln 2).
+    return float(np.median(np.abs(second)) / (math.sqrt(6) * math.sqrt(2 * math.log(2))))
 
 
 #: Coverage factor for the coverage probability of k = 2 under a normal distribution
@@ -249,18 +282,10 @@ _COVERAGE_TABLE = np.array([
 ])  # fmt: skip
 
 
-def coverage_factor(share: np.ndarray, spread: np.ndarray | float) -> np.ndarray:
+def coverage_factor(share: np.ndarray, spread: float) -> np.ndarray:
     """Coverage factor for a dominant contribution of unknown phase with standard-uncertainty
-    ``share`` r of the total and magnitude spread m (bilinear in the table above)."""
-    r = np.clip(np.asarray(share, dtype=float), 0.0, 1.0) * (_SHARES.size - 1)
-    m = np.clip(np.broadcast_to(np.asarray(spread, dtype=float), r.shape), 0.0, 1.0) * (_SPREADS.size - 1)
-    r0 = np.minimum(r.astype(int), _SHARES.size - 2)
-    m0 = np.minimum(m.astype(int), _SPREADS.size - 2)
-    dr, dm = r - r0, m - m0
-    table = _COVERAGE_TABLE
-    low = table[m0, r0] * (1 - dr) + table[m0, r0 + 1] * dr
-    high = table[m0 + 1, r0] * (1 - dr) + table[m0 + 1, r0 + 1] * dr
-    return low * (1 - dm) + high * dm
+    ``share`` r of the total and magnitude spread m (linear in the table above)."""
+    return np.interp(np.clip(np.asarray(share, dtype=float), 0.0, 1.0), _SHARES, _coverage_row(spread))
 
 
 @dataclass(frozen=True, eq=False)
@@ -286,8 +311,6 @@ class ReflectionUncertainty:
         return np.minimum(self.magnitude + self.expanded, 1.0)
 
     def vswr_interval(self) -> tuple[np.ndarray, np.ndarray]:
-        from lineproof.metrics import vswr_from_reflection
-
         return vswr_from_reflection(self.lower), vswr_from_reflection(self.upper)
 
 
@@ -333,12 +356,11 @@ def reflection_uncertainty(
     if transmission is not None:
         product, load_match = transmission
         vector = vector + product[:, None] * np.stack([np.ones_like(g), load_match, load_match**2], axis=-1)
-    turn = np.exp(-2j * np.angle(g))
-    v, w = _quadratic_forms(residuals, prefix, vector)
+    power = np.abs(g) ** 2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        turn = np.where(power > 0, np.conj(g) ** 2 / power, 1.0)  # e^(-2j arg Γ)
+    v, w, load_v = _quadratic_forms(residuals, prefix, vector)
     calibration = _radial(v, w, turn)
-    load_v = np.zeros(f.shape)
-    if f"{prefix}.load_variance" in residuals:
-        load_v = np.einsum("nj,njk,nk->n", np.conj(vector), residuals[f"{prefix}.load_variance"], vector).real
     load = np.minimum(np.sqrt(np.maximum(load_v, 0.0) / 2), calibration)
     budget = {"calibration (load standard)": load,
               "calibration (other standards)": np.sqrt(np.maximum(calibration**2 - load**2, 0.0))}
@@ -347,30 +369,43 @@ def reflection_uncertainty(
     if settings.connection_repeatability:
         reach = np.abs(1 - g * g) if transmission is None else np.abs(1 - g * g) + np.abs(transmission[0])
         budget["connection"] = settings.repeatability(f) * reach / math.sqrt(2)
-    bounded = [(load, residuals.get(f"{prefix}.load_spread", np.ones(f.shape)).real)]
+    spread = residuals.get(f"{prefix}.load_spread")
+    bounded = [(load, 1.0 if spread is None else float(spread[0].real))]
     if termination_reach is not None:
         budget["termination"] = termination_bound(g, termination_reach) / math.sqrt(2)
-        bounded.append((budget["termination"], np.ones(f.shape)))
+        bounded.append((budget["termination"], 1.0))
     if interpolation_error:
         budget["interpolation"] = np.full(f.shape, interpolation_error / math.sqrt(2))
-        bounded.append((budget["interpolation"], np.ones(f.shape)))
+        bounded.append((budget["interpolation"], 1.0))
     total = np.sqrt(sum(part**2 for part in budget.values()))
     return ReflectionUncertainty(np.abs(g), total, _coverage(bounded, total, settings), budget)
 
 
-def _coverage(bounded: list[tuple[np.ndarray, np.ndarray]], total: np.ndarray,
+def _coverage(bounded: list[tuple[np.ndarray, float]], total: np.ndarray,
               settings: UncertaintySettings) -> np.ndarray:
     """Per point: the stated coverage factor, or that of the largest contribution of unknown
-    phase (the others counted as normal, which errs on the wide side)."""
+    phase (each with its magnitude spread; the others counted as normal, which errs on the
+    wide side)."""
     if settings.coverage_factor is not None:
         return np.full(total.shape, settings.coverage_factor)
     parts = np.stack([part for part, _ in bounded])
-    spreads = np.stack([spread for _, spread in bounded])
     largest = np.argmax(parts, axis=0)
-    columns = np.arange(total.size)
     with np.errstate(divide="ignore", invalid="ignore"):
-        share = np.where(total > 0, parts[largest, columns] / total, 0.0)
-    return coverage_factor(share, spreads[largest, columns])
+        share = np.where(total > 0, np.max(parts, axis=0) / total, 0.0)
+    factor = np.empty(total.shape)
+    for index, (_, spread) in enumerate(bounded):
+        chosen = largest == index
+        if np.any(chosen):
+            factor[chosen] = np.interp(share[chosen], _SHARES, _coverage_row(spread))
+    return factor
+
+
+def _coverage_row(spread: float) -> np.ndarray:
+    """The table's row for a magnitude spread (linear between the tabulated spreads)."""
+    position = min(max(spread, 0.0), 1.0) * (_SPREADS.size - 1)
+    low = min(int(position), _SPREADS.size - 2)
+    weight = position - low
+    return _COVERAGE_TABLE[low] * (1 - weight) + _COVERAGE_TABLE[low + 1] * weight
 
 
 def transmission_uncertainty_db(

@@ -174,3 +174,29 @@ def test_budget_parts_and_a_fixed_coverage_factor() -> None:
     # left to the distribution, k falls below 2 where the load's bounded reflection dominates
     free = reflection_uncertainty(model, gamma, F, UncertaintySettings())
     assert np.all(free.coverage_factor <= 2.0) and np.min(free.coverage_factor) < 1.9
+
+
+def test_a_check_standard_widens_an_understated_model() -> None:
+    # Truth-based: the actual load is far worse (26 dB return loss) than the kit states
+    # (40-45 dB).  A check standard of known reflection shows a deviation the model does not
+    # explain; the excess, added as D, T, M bounds, makes the interval cover it again.
+    from lineproof.uncertainty import add_specified_residuals, residuals_from_check_standard
+
+    kit = load_kit("kits/n50-illustrative.toml")
+    actual = {kind: kit.ideal(kind, F) for kind in ("open", "short", "load")}
+    actual["load"] = actual["load"] + 0.05 * np.exp(1j * F / 2e8)
+    solved = _calibrate(kit, actual)
+    e00, e11, e01 = solved["raw"]
+    t = solved["terms"]
+    check = 0.3 * np.exp(-2j * np.pi * F * 0.2e-9)  # a known mismatch (its data from elsewhere)
+    read = calibration.correct_reflection(t["directivity"], t["source_match"], t["reflection_tracking"],
+                                          calibration.embed_reflection(e00, e11, e01, check))
+    settings = UncertaintySettings(trace_noise=0.0, coverage_factor=2.0)
+    model = residual_model(kit, ("open", "short", "load"), F, settings)
+    before = reflection_uncertainty(model, read, F, settings)
+    assert np.any(np.abs(np.abs(read) - np.abs(check)) > before.expanded)  # the model is caught out
+    bound = residuals_from_check_standard(check, read, before.standard_uncertainty)
+    widened = add_specified_residuals(model, "port1", bound, bound, bound)
+    after = reflection_uncertainty(widened, read, F, settings)
+    assert np.all(after.lower <= np.abs(check)) and np.all(np.abs(check) <= after.upper)
+    assert np.all(after.standard_uncertainty >= before.standard_uncertainty)
