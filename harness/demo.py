@@ -1,9 +1,10 @@
-"""``lineproof demo``: the whole job once, on a simulated bench, with nothing to install.
+"""``lineproof demo``: the whole job once, unattended, on a simulated bench with a switch matrix.
 
-It runs the shipped demo sequence through the same runner as ``lineproof run``: a simulated
-analyzer served as a SCPI instrument on 127.0.0.1 and reached through pyvisa/pyvisa-py
-exactly like hardware, calibrated, its termination qualified, a batch of invented meter heads
-measured and recorded, then a table of the results.
+It runs the shipped sequence ``demo-switch.toml`` through the same runner as ``lineproof run``:
+a simulated two-port analyzer and switch matrix served as SCPI instruments on 127.0.0.1 and
+reached through pyvisa/pyvisa-py exactly like hardware; the switch routes the standards, the
+termination, the check standard and twelve device slots to port 1.  Calibrate, qualify the
+termination, verify, measure the twelve invented meter heads, re-verify, then the report.
 """
 
 from __future__ import annotations
@@ -23,7 +24,7 @@ from lineproof.run_view import ConsoleRunView
 from lineproof.runner import RunOptions, RunOutcome, start_run
 from lineproof.sequence import SequenceSpec, check_sequence_text, load_sequence, read_text
 
-DEMO_SEQUENCE = "demo-bench.toml"
+DEMO_SEQUENCE = "demo-switch.toml"
 
 
 @dataclass

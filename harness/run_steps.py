@@ -134,6 +134,7 @@ class StepRunner:
         self.state = state
         self.recorded: list[RecordedDevice] = []
         self._record_lock = threading.Lock()
+        self._pipeline: _RecordingPipeline | None = None
         self._reference: np.ndarray | None = None
         self.measuring = steps.Station(station.analyzer, _ProgressOperator(station.operator, view),  # type: ignore[arg-type]
                                        station.identity, spec.plan, station.spec.analyzer.port,
@@ -237,6 +238,8 @@ class StepRunner:
         self.view.step_started(f"verifying with check standard {check.name}", total=1)
         result = verify_with_check_standard(self.measuring, state.calibration, check.name, self._reference,
                                             check.tolerance, self.spec.bands, state.measured)
+        if self._pipeline is not None:
+            self._pipeline.drain()  # recorded during the check's sweep: the lines stay in order
         row = self.store.record_verification(self.facts.run_id, result, self.facts.station,
                                              self.station.identity.describe())
         self.journal.write("verified", verification_id=row, passed=result.passed, devices_before=state.measured)
@@ -275,7 +278,7 @@ class StepRunner:
         devices, termination = self.spec.devices, self.spec.termination
         assert devices is not None and termination is not None
         overlap = not isinstance(self.station.operator, ConsoleOperator)
-        pipeline = _RecordingPipeline(overlap)
+        pipeline = self._pipeline = _RecordingPipeline(overlap)
         self.measuring.operator.after_connect = pipeline.start  # type: ignore[attr-defined]
         try:
             for unit in self._units():
@@ -288,6 +291,7 @@ class StepRunner:
                 self.verify()
         finally:
             self.measuring.operator.after_connect = None  # type: ignore[attr-defined]
+            self._pipeline = None
             pipeline.close()
 
     def _units(self):  # -> Iterator[DeviceUnit]
