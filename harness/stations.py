@@ -13,7 +13,8 @@ from typing import Any
 from lineproof.errors import InputError, LineproofError
 from lineproof.interfaces import Analyzer, Operator, Switch
 from lineproof.operators import ConsoleOperator, SimulatedOperator, SwitchOperator
-from lineproof.sequence import SequenceSpec, StationSpec
+from lineproof.sequence import SequenceSpec
+from lineproof.station_file import StationSpec
 from lineproof.values import InstrumentIdentity
 
 

@@ -11,23 +11,29 @@ import re
 import sqlite3
 from pathlib import Path
 
+import pytest
 from record_checks import run_cli
+
+from lineproof.cli import main
 
 SHORT_BATCH = {'"TM150-0006", "TM150-0007", "TM150-0008", "TM150-0009", "TM150-0010"': "",
                'model = "TM-150 inline meter head"': 'model = "=TM-150 <b>head</b>"'}
 
 
-def recorded_run(tmp_path: Path, sequence_variant) -> tuple[Path, str]:  # noqa: ANN001
-    sequence = sequence_variant(replace=SHORT_BATCH)
+@pytest.fixture(scope="module")
+def recorded_run(tmp_path_factory: pytest.TempPathFactory, sequence_writer) -> tuple[Path, str]:  # noqa: ANN001
+    """One short batch for every test here (reports and queries only read it)."""
+    folder = tmp_path_factory.mktemp("report")
+    sequence = sequence_writer(folder, replace=SHORT_BATCH)
     completed = run_cli("run", str(sequence), "--records", "rec", "--operator", "<script>alert(1)</script>",
-                        cwd=tmp_path)
+                        cwd=folder)
     assert completed.returncode == 1, completed.stderr
-    with sqlite3.connect(tmp_path / "rec" / "results.sqlite") as db:
-        return tmp_path / "rec", db.execute("SELECT run_id FROM runs").fetchone()[0]
+    with sqlite3.connect(folder / "rec" / "results.sqlite") as db:
+        return folder / "rec", db.execute("SELECT run_id FROM runs").fetchone()[0]
 
 
-def test_the_report_shows_the_records(tmp_path: Path, sequence_variant) -> None:
-    records, run_id = recorded_run(tmp_path, sequence_variant)
+def test_the_report_shows_the_records(tmp_path: Path, recorded_run: tuple[Path, str]) -> None:
+    records, run_id = recorded_run
     completed = run_cli("report", run_id, "--records", str(records), cwd=tmp_path)
     assert completed.returncode == 0, completed.stderr
     folder = records / "runs" / run_id
@@ -63,13 +69,13 @@ def test_the_report_shows_the_records(tmp_path: Path, sequence_variant) -> None:
     assert len(summary["verifications"]) == checks and summary["run"]["run_id"] == run_id
 
 
-def test_results_are_found_by_run_serial_verdict_and_date(tmp_path: Path, sequence_variant) -> None:
-    records, run_id = recorded_run(tmp_path, sequence_variant)
+def test_results_are_found_by_run_serial_verdict_and_date(recorded_run: tuple[Path, str], tmp_path: Path,
+                                                          capsys: pytest.CaptureFixture[str]) -> None:
+    records, run_id = recorded_run
 
-    def results(*args: str) -> list[dict]:
-        completed = run_cli("results", "--records", str(records), "--json", *args, cwd=tmp_path)
-        assert completed.returncode == 0, completed.stderr
-        return json.loads(completed.stdout)
+    def results(*args: str) -> list[dict]:  # the command itself, in this process
+        assert main(["results", "--records", str(records), "--json", *args]) == 0
+        return json.loads(capsys.readouterr().out)
 
     assert [r["serial"] for r in results("--verdict", "fail")] == ["TM150-0004"]
     assert len(results("--run", run_id)) == 5
@@ -79,9 +85,8 @@ def test_results_are_found_by_run_serial_verdict_and_date(tmp_path: Path, sequen
     assert results("--until", "2000-01-01") == []
     runs = results("--runs")
     assert runs[0]["run_id"] == run_id and runs[0]["devices"] == 5 and runs[0]["failed"] == 1
-    bad = run_cli("results", "--records", str(records), "--since", "last tuesday", cwd=tmp_path)
-    assert bad.returncode == 3 and "is not a date" in bad.stderr
-    missing = run_cli("report", "run-20260101T000000Z-000000", "--records", str(records), cwd=tmp_path)
-    assert missing.returncode == 3 and "no run" in missing.stderr
-    nowhere = run_cli("results", "--records", str(tmp_path / "empty"), cwd=tmp_path)
-    assert nowhere.returncode == 3 and not (tmp_path / "empty").exists()
+    assert main(["results", "--records", str(records), "--since", "last tuesday"]) == 3
+    assert "is not a date" in capsys.readouterr().err
+    assert main(["report", "run-20260101T000000Z-000000", "--records", str(records)]) == 3
+    assert "no run" in capsys.readouterr().err
+    assert main(["results", "--records", str(tmp_path / "empty")]) == 3 and not (tmp_path / "empty").exists()

@@ -9,9 +9,11 @@ import sqlite3
 from pathlib import Path
 
 import numpy as np
+import pytest
 import skrf
 from record_checks import check_records_agree, device_rows, run_cli
 
+from lineproof.cli import main
 from lineproof.simulators.bench import SimulatedBench
 from lineproof.simulators.control import BenchControlClient
 
@@ -101,12 +103,39 @@ def test_a_database_that_is_not_ours_loses_nothing(tmp_path: Path, sequence_vari
     assert foreign.read_bytes() == before and sorted(p.name for p in records.iterdir()) == ["results.sqlite"]
 
 
-def test_resume_refuses_what_it_cannot_continue(tmp_path: Path, sequence_variant) -> None:
+def test_resume_refuses_what_it_cannot_continue(tmp_path: Path, sequence_variant,
+                                               capsys: pytest.CaptureFixture[str]) -> None:
     sequence = sequence_variant(replace={'"TM150-0006", "TM150-0007", "TM150-0008", "TM150-0009", "TM150-0010"': ""})
     assert run_cli("run", str(sequence), "--records", "rec", cwd=tmp_path).returncode == 1
     run_id = run_id_of(tmp_path / "rec")
+    records = str(tmp_path / "rec")
     for bad, message in (("../../x", "is not a run id"), ("run-20260101T000000Z-000000", "no run"),
                          (run_id, "nothing to resume")):
-        completed = run_cli("run", "--resume", bad, "--records", "rec", cwd=tmp_path)
-        assert completed.returncode == 3 and message in completed.stderr, completed.stderr
+        assert main(["run", "--resume", bad, "--records", records]) == 3
+        assert message in capsys.readouterr().err
     assert len(device_rows(tmp_path / "rec" / "results.sqlite")) == 5
+
+
+def test_a_station_file_replaces_the_sequences_station(tmp_path: Path, sequence_variant) -> None:
+    sequence = sequence_variant(replace={'"TM150-0004", "TM150-0005",': "", '"TM150-0006", "TM150-0007", "TM150-0008", '
+                                         '"TM150-0009", "TM150-0010"': ""})
+    station = tmp_path / "bench-b.toml"
+    station.write_text(f'name = "bench B (simulated)"\nsimulated_bench = "{SCENARIO.as_posix()}"\n'
+                       'connected_by = "simulated-operator"\nreference_plane = "bench B, port 1 connector"\n\n'
+                       '[analyzer]\nprofile = "generic-scpi-reflectometer"\n', encoding="utf-8")
+    completed = run_cli("run", str(sequence), "--station", str(station), "--records", "rec", cwd=tmp_path)
+    assert completed.returncode == 0, completed.stderr
+    run_id = run_id_of(tmp_path / "rec")
+    metadata = check_records_agree(tmp_path / "rec", run_id)
+    assert {m["station"] for m in metadata.values()} == {"bench B (simulated)"}
+    assert {m["reference_plane"] for m in metadata.values()} == {"bench B, port 1 connector"}
+    assert (tmp_path / "rec" / "runs" / run_id / "station.toml").read_text(encoding="utf-8") == station.read_text()
+
+    station.write_text(station.read_text().replace('[analyzer]', 'colour = "red"\n\n[analyzer]'), encoding="utf-8")
+    refused = run_cli("run", str(sequence), "--station", str(station), "--records", "rec", "--json", cwd=tmp_path)
+    assert refused.returncode == 3
+    error = json.loads(refused.stdout)
+    assert error["event"] == "error" and error["kind"] == "invalid-input"
+    line = station.read_text().splitlines().index('colour = "red"') + 1
+    assert error["problems"] == [{"file": str(station), "line": line, "key": "colour", "problem": "unknown key",
+                                  "fix": error["problems"][0]["fix"]}]
