@@ -318,11 +318,13 @@ class StepRunner:
     def _measure_one(self, unit: DeviceUnit, termination: str, pipeline: _RecordingPipeline) -> None:
         device = DeviceIdentity(unit.serial, unit.model)
         basis = self._basis()
+        self.view.step_started(f"{unit.serial}: connect and sweep", total=2)
         if self.spec.devices is not None and self.spec.devices.entry == "listed":
             self.measuring.operator.connect(
                 self.measuring.port, unit.serial, termination,
                 f"Connect {unit.model} s/n {unit.serial} to port {self.measuring.port}, its output on {termination}")
         frequencies, raw = self.measuring.measure_raw()
+        self.view.step_advanced("swept")
         self.state.measured += 1
         self.state.taken.add(unit.serial.lower())
         position = self.state.measured

@@ -70,7 +70,7 @@ class ConsoleRunView:
     def run_started(self, run_id: str, sequence: str, station: str, planned: int | None, resumed: bool) -> None:
         self._print(f"{'resuming' if resumed else 'run'} {run_id}: {sequence} on {station}", "bold")
         with self._lock:
-            self._run_task = self._progress.add_task("devices", total=planned)
+            self._run_task = self._progress.add_task("devices recorded", total=planned)
             self._progress.start()
             self._started = True
 

@@ -139,3 +139,18 @@ def test_a_station_file_replaces_the_sequences_station(tmp_path: Path, sequence_
     line = station.read_text().splitlines().index('colour = "red"') + 1
     assert error["problems"] == [{"file": str(station), "line": line, "key": "colour", "problem": "unknown key",
                                   "fix": error["problems"][0]["fix"]}]
+
+
+def test_checks_fall_due_by_time_and_the_analyzer_is_identified_again(tmp_path: Path, sequence_variant) -> None:
+    # Sweeps of about 30 ms (time scale 1) and a check due every 50 ms: several checks by time.
+    sequence = sequence_variant(time_scale=1.0, replace={
+        "every_devices = 4": "every_minutes = 0.00083",
+        '[[step]]\ndo = "measure-batch"': '[[step]]\ndo = "measure-batch"\n\n[[step]]\ndo = "identify"'})
+    completed = run_cli("run", str(sequence), "--records", "rec", "--json", cwd=tmp_path)
+    assert completed.returncode == 1, completed.stderr
+    events = [json.loads(line) for line in completed.stdout.splitlines()]
+    checks = [e["devices_before"] for e in events if e["event"] == "verification"]
+    assert checks[0] == 0 and checks[-1] == 10 and 4 <= len(checks) <= 11
+    assert checks == sorted(set(checks))  # never two checks without a device between them
+    assert any(e["event"] == "step-finished" and e["text"].startswith("identified: Tarnmoor Instruments")
+               for e in events)
