@@ -116,6 +116,7 @@ class ProfiledAnalyzer(ProfiledInstrument):
             pieces = self._measure_segments(parameters, read)
             self._check_errors()
         except InstrumentError as exc:
+            self._configured_segment = None  # its settings may not have arrived: send them again
             self._raise_if_reset(exc)
             raise
         self._raise_if_reset(None)

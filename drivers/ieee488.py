@@ -1,7 +1,8 @@
 """Pure codecs for IEEE 488.2 / SCPI replies: bytes in, values out, no I/O.
 
 Clauses cited are those of IEEE Std 488.2-1992 ("Codes, Formats, Protocols and Common
-Commands") and SCPI-1999 Volume 1 ("Syntax and Style") / Volume 2 ("Command Reference").
+Commands") and SCPI-1999 Volume 1 ("Syntax and Style") / Volume 2 ("Command Reference"),
+cited from memory.
 """
 
 from __future__ import annotations

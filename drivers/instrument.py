@@ -9,7 +9,7 @@ from lineproof.drivers.session import MessageSession
 from lineproof.errors import InputError, ReplyError
 from lineproof.values import InstrumentIdentity
 
-#: IEEE 488.2 §11.5.1.1.2: bit 7 of the standard event status register, Power On.
+#: IEEE 488.2 §11.5.1.1.2 (from memory): bit 7 of the standard event status register, Power On.
 POWER_ON_BIT = 128
 
 

@@ -93,6 +93,10 @@ class MessageSession:
         self.recoveries: list[str] = []
         #: Commands written since the error queue was last read (the suspects of an entry).
         self._since_check: list[str] = []
+        #: (command, idempotent) written without a reply since the last reply on this link,
+        #: and those of a lost link, to be sent again before anything else on the new one.
+        self._unconfirmed: list[tuple[str, bool]] = []
+        self._lost: list[tuple[str, bool]] = []
         self._stale = False
         #: How long a resynchronisation waits for a late reply (the failed exchange's timeout).
         self._resync_timeout_s = default_timeout_s
@@ -196,35 +200,81 @@ class MessageSession:
     # -- transactions with retries ----------------------------------------------------------
 
     def _transact(self, command: str, exchange: Callable[[float], Result], timeout_s: float | None,
-                  idempotent: bool, expected: str) -> Result:
-        """Run one write-and-read exchange; repeat it on a fresh link when it may be repeated."""
+                  idempotent: bool, expected: str, confirms: bool = True, replay: bool = True) -> Result:
+        """Run one write-and-read exchange; repeat it on a fresh link when it may be repeated.
+
+        ``confirms``: the exchange reads a reply, which proves the instrument took every
+        command written before it (SCPI executes in order).  Commands written without a reply
+        since then may be lost with a link; ``replay`` sends the idempotent ones again on the
+        fresh link first, and refuses to go on past a lost non-idempotent one.
+        """
         attempts = 1 + (self.retries if idempotent else 0)
+        failure: LinkError | None = None
         for attempt in range(1, attempts + 1):
+            if replay:
+                self._refuse_lost_actions(command, failure)
             try:
                 if self._stale:
                     self._resynchronise()
                 deadline = self._deadline(timeout_s)
+                if replay and self._lost:
+                    self._replay_lost(deadline)
                 self._write(command, deadline)
-                return exchange(deadline)
+                result = exchange(deadline)
             except LinkError as exc:
                 self._stale = True
+                self._lost += self._unconfirmed
+                self._unconfirmed = []
                 self._resync_timeout_s = self.default_timeout_s if timeout_s is None else timeout_s
                 failure = exc
             except ReplyError:
                 # Garbage in the middle of a response leaves the rest of it on the wire.
                 self._stale = self._stale or self._in_response
                 raise
+            else:
+                if confirms:
+                    self._unconfirmed = []
+                else:
+                    self._unconfirmed.append((command, idempotent))
+                return result
             self._raise_if_refused(command, failure)
             if attempt < attempts:
                 note = f"{failure.problem}; repeated {command!r} on a fresh link (attempt {attempt + 1} of {attempts})"
                 self.recoveries.append(note)
                 log.warning("%s: %s", self.resource, note)
-        if not idempotent:
-            why = "not repeated: it is not idempotent"
-        else:
-            why = f"gave up after {attempts} attempt{'s' if attempts > 1 else ''}"
-        raise LinkError(f"{failure.problem} ({why})", resource=self.resource, command=command,
-                        expected=expected) from failure
+        raise self._final_failure(command, failure, idempotent, attempts, expected) from failure
+
+    def _final_failure(self, command: str, failure: LinkError, idempotent: bool, attempts: int,
+                       expected: str) -> LinkError:
+        why = "not repeated: it is not idempotent" if not idempotent else \
+            f"gave up after {attempts} attempt{'s' if attempts > 1 else ''}"
+        if self._lost:
+            why += "; sent before it without a reply, maybe lost: " + "; ".join(c for c, _ in self._lost)
+            self._lost = []
+        return LinkError(f"{failure.problem} ({why})", resource=self.resource, command=command, expected=expected)
+
+    def _refuse_lost_actions(self, command: str, failure: LinkError | None) -> None:
+        """A command that is not idempotent (a trigger) and was sent without a reply before the
+        link was lost may or may not have run: going on could read stale data as new."""
+        actions = [c for c, idempotent in self._lost if not idempotent]
+        if actions:
+            self._lost = []
+            why = f"{failure.problem} during {command!r}; " if failure else ""
+            raise LinkError(
+                f"{why}the link was lost after {actions[0]!r} was sent without a reply: it may not have "
+                "arrived, and it is not repeated", resource=self.resource, command=actions[0],
+                expected="a reply confirming it",
+            ) from failure
+
+    def _replay_lost(self, deadline: float) -> None:
+        """Send again, on the fresh link, the settings written since the last reply on the old one."""
+        lost, self._lost = self._lost, []
+        for command, _ in lost:
+            self._write(command, deadline)
+            self._unconfirmed.append((command, True))
+        note = f"re-sent {len(lost)} setting(s) that may have been lost with the link: " + "; ".join(c for c, _ in lost)
+        self.recoveries.append(note)
+        log.warning("%s: %s", self.resource, note)
 
     def _resynchronise(self) -> None:
         """Start the next exchange on a clean stream.
@@ -261,7 +311,7 @@ class MessageSession:
 
     def _raise_if_refused(self, command: str, failure: LinkError) -> None:
         """An instrument does not answer a query it refused (IEEE 488.2 §6.5.7 query error
-        handling): after an unanswered query, its error queue says why."""
+        handling, from memory): after an unanswered query, its error queue says why."""
         if self.error_query is None or command == self.error_query:
             return
         try:
@@ -283,12 +333,14 @@ class MessageSession:
         """A command without a reply.  With prompted framing the (empty) response is read,
         so an error line surfaces here."""
         def exchange(deadline: float) -> None:
-            if self.framing.prompted:
-                lines = self._read_response(deadline)
-                if lines:
-                    raise ReplyError(f"unexpected reply {lines[:3]!r}", resource=self.resource,
-                                     command=command, expected="no reply")
-        self._transact(command, exchange, timeout_s, idempotent, "no reply")
+            if not self.framing.prompted:
+                self._in_response = False
+                return
+            lines = self._read_response(deadline)
+            if lines:
+                raise ReplyError(f"unexpected reply {lines[:3]!r}", resource=self.resource,
+                                 command=command, expected="no reply")
+        self._transact(command, exchange, timeout_s, idempotent, "no reply", confirms=self.framing.prompted)
 
     def read_line(self, timeout_s: float | None = None) -> str:
         """One response line, without its termination (message framing)."""
@@ -396,7 +448,7 @@ class MessageSession:
     def _next_error_entry(self, command: str | None = None) -> tuple[int, str]:
         command = command or self.error_query or "SYSTem:ERRor?"
         reply = self._transact(command, lambda deadline: self._one_line(deadline, "an error entry"),
-                               None, False, "an error-queue entry")
+                               None, False, "an error-queue entry", replay=False)
         try:
             return ieee488.parse_error_entry(reply)
         except ieee488.CodecError as exc:

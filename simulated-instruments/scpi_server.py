@@ -18,7 +18,7 @@ from lineproof.simulators.scpi import ScpiDispatcher
 
 #: Longest program message accepted (a line without LF beyond this is cut off).
 _MESSAGE_LIMIT = 1 << 20
-#: IEEE 488.2 §11.5.1.1.2: bit 7 of the standard event status register, Power On.
+#: IEEE 488.2 §11.5.1.1.2 (from memory): bit 7 of the standard event status register, Power On.
 POWER_ON_BIT = 128
 
 

@@ -206,11 +206,12 @@ SERIAL_BAUD = 115200
 SERIAL_PLAN = SweepPlan(100e6, 500e6, 201)
 
 
-def _raw_serial_exchange(port: serial.Serial, command: bytes, prompt: bytes = b"S2> ") -> bytes:
-    """The floor on a serial line: write a command, read until the prompt, nothing else."""
+def _raw_serial_exchange(port: serial.Serial, command: bytes, end: bytes = b"\r\nS2> ") -> bytes:
+    """The floor on a serial line: write a command, read until a line end and the prompt
+    (a lone prompt may be the one sent when the port opened), nothing else."""
     port.write(command + b"\r")
     received = bytearray()
-    while not received.endswith(prompt):
+    while not received.endswith(end):
         received += port.read(max(1, port.in_waiting))
     return bytes(received)
 

@@ -2,7 +2,7 @@
 profiled analyzer returns is checked against the simulated bench's hidden truth.
 
 The one-port error model used as the check is the three-term model (Agilent AN 1287-3,
-from memory): Γm = e00 + e10e01·Γ / (1 − e11·Γ).
+from memory): Γm = e00 + e10e01·Γ / (1 − e11·Γ).  SCPI-1999 command names are cited from memory.
 """
 
 from __future__ import annotations

@@ -21,7 +21,7 @@ def test_a_given_resource_is_identified(link: DriverBench, capsys: pytest.Captur
     report = _run(capsys, "--identify", "--no-search", "--resource", link.resource, "--timeout", "2")
     (item,) = report["found"]
     assert item["resource"] == link.resource and item["transport"] == link.kind.transport
-    # IEEE 488.2 §10.14 fields of ideal-bench.toml's identity line
+    # IEEE 488.2 §10.14 (from memory) fields of ideal-bench.toml's identity line
     assert item["identity"]["manufacturer"] == "Tarnmoor Instruments" and item["identity"]["serial"] == "SIM0099"
 
 

@@ -76,7 +76,7 @@ def test_block_reads_take_bytes_pyvisa_py_already_holds_first(visa_link: DriverB
     deadline = time.monotonic() + 5
     transport.write_raw(b"*OPC?\n", deadline)
     transport.write_raw(b"TRACe:DATA? RAW\n", deadline)
-    # "1\n", then "#41616" (IEEE 488.2 §8.7.9: 101 points x 2 values x 8 bytes), payload, "\n"
+    # "1\n", then "#41616" (IEEE 488.2 §8.7.9, from memory: 101 points x 2 values x 8 bytes), payload, "\n"
     _wait_for_bytes(visa_backend._socket_session(transport._handle).interface, 2 + 6 + 1616 + 1)
     assert transport.read_line_raw((b"\n",), deadline, 100) == b"1\n"
     assert len(visa_backend._socket_session(transport._handle)._pending_buffer) > 0

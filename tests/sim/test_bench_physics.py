@@ -168,7 +168,8 @@ def test_range_and_points_refused_through_the_error_queue(bench, command: str, q
     manager, link = _scpi(bench)
     try:
         link.write(command)
-        # SCPI-1999 Vol 2 §21.8.6: -222 "Data out of range"; the setting is unchanged.
+        # SCPI-1999 Vol 2, error queue, execution errors: -222 "Data out of range" (from memory);
+        # the setting is unchanged.
         assert link.query("SYSTem:ERRor?") == '-222,"Data out of range"'
         assert link.query(query) == kept
     finally:

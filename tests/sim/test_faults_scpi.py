@@ -123,7 +123,7 @@ def test_error_enters_the_queue_as_if_the_command_caused_it(bench: SimulatedBenc
 
 def test_reset_restores_power_on_settings_and_sets_power_on_bit(bench: SimulatedBench) -> None:
     with scpi_link(bench) as link:
-        assert link.query("*ESR?") == "128"  # IEEE 488.2 §11.5.1.1.2: PON after power-on
+        assert link.query("*ESR?") == "128"  # IEEE 488.2 §11.5.1.1.2 (from memory): PON after power-on
         link.write("SENSe:SWEep:POINts 51;:FORMat:DATA REAL,32")
         assert link.query("*ESR?") == "0"
         _arm(bench, kind="reset")

@@ -44,7 +44,7 @@ GRID = {"start_hz": 1e9, "stop_hz": 1e9, "points": 1}
 
 
 def route(switch, command: str) -> None:
-    """Send a routing command and wait until the switch has done it (*OPC?, IEEE 488.2 §10.18)."""
+    """Send a routing command and wait until the switch has done it (*OPC?, IEEE 488.2 §10.18, from memory)."""
     assert switch.query(f"{command};*OPC?") == "1"
 
 

@@ -150,7 +150,7 @@ def test_reverse_parameter_refused_over_scpi(start_bench) -> None:
         with closing(rm.open_resource(bench.visa_resource, read_termination="\n", write_termination="\n",
                                       timeout=5000)) as link:
             link.write('SENSe:FUNCtion "XFRequency:S12"')
-            # SCPI-1999 Vol 2 §21.8.6: -224 "Illegal parameter value".
+            # SCPI-1999 Vol 2, error queue, execution errors: -224 "Illegal parameter value" (from memory).
             assert link.query("SYSTem:ERRor?") == '-224,"Illegal parameter value"'
             link.write('SENSe:FUNCtion "XFRequency:S21"')
             assert link.query("SYSTem:ERRor?") == '0,"No error"'

@@ -3,7 +3,8 @@ error-queue draining that names the command, retries only of idempotent queries,
 line framing (echo, prompt, error lines, number rows), size-limited tracing.
 
 Framing rules checked here are IEEE 488.2 §8.7.9/§8.7.10 (blocks), §8.5 (response message
-terminator after a block), SCPI-1999 Vol 2 §21.8 (error queue), and PROTOCOLS.md §2.
+terminator after a block), SCPI-1999 Vol 2 §21.8 (error queue), and PROTOCOLS.md §2.  The
+clause numbers of IEEE 488.2 and SCPI-1999 in this module are cited from memory.
 """
 
 from __future__ import annotations
@@ -252,3 +253,57 @@ def test_tracing_is_size_limited(caplog: pytest.LogCaptureFixture) -> None:
     assert any("TRAC? RAW" in line for line in lines)
     assert all(len(line) < TRACE_LIMIT + 120 for line in lines)
     assert any(f"({len(long_reply)} chars)" in line for line in lines)
+
+
+class _LosesWritesOnce:
+    """A link that loses everything written after ``FREQ`` settings until the next reopen,
+    the way a TCP connection the peer has closed swallows writes; then answers normally."""
+
+    def __init__(self, transport_holder: list) -> None:
+        self.holder = transport_holder
+        self.dead = False
+        self.log: list[bytes] = []
+
+    def __call__(self, cmd: bytes) -> bytes | None:
+        transport = self.holder[0]
+        if transport.reopened and self.dead:
+            self.dead = False
+        if cmd.startswith(b"FREQ") and not transport.reopened:
+            self.dead = True
+        if self.dead:
+            return None
+        self.log.append(cmd)
+        if cmd.startswith(b"*OPC?") or cmd.startswith(b"TRAC?"):
+            return b"1\n"
+        return None
+
+
+def _losing(retries: int) -> tuple[MessageSession, _LosesWritesOnce]:
+    holder: list = []
+    instrument = _LosesWritesOnce(holder)
+    session, transport = _session(instrument, retries=retries)
+    holder.append(transport)
+    return session, instrument
+
+
+def test_settings_written_to_a_lost_link_are_sent_again_before_the_retry() -> None:
+    session, instrument = _losing(retries=1)
+    session.send("FREQ:STAR 1e8", idempotent=True)
+    session.send("FREQ:STOP 2e8", idempotent=True)
+    assert session.query("TRAC?") == "1"
+    # On the fresh link the instrument got both settings again, in order, before the query.
+    assert instrument.log == [b"FREQ:STAR 1e8\n", b"FREQ:STOP 2e8\n", b"TRAC?\n"]
+    assert any("re-sent 2 setting(s)" in note for note in session.recoveries)
+
+
+def test_a_trigger_written_to_a_lost_link_stops_the_run() -> None:
+    # INIT then *OPC?: if the link died under INIT, a repeated *OPC? on a fresh link would
+    # say "complete" for a sweep that never ran, and the next read would return old data.
+    session, instrument = _losing(retries=2)
+    session.send("FREQ:STAR 1e8", idempotent=True)
+    session.send("INIT")
+    with pytest.raises(LinkError, match="after 'INIT' was sent without a reply: it may not have arrived") as caught:
+        session.wait_complete("*OPC?")
+    assert caught.value.command == "INIT"
+    assert b"INIT\n" not in instrument.log and b"*OPC?\n" not in instrument.log
+    assert session.query("*OPC?") == "1"  # the next operation starts clean
