@@ -5,7 +5,8 @@ to a one-port analyzer whose sweeps take their real time (401 points at 10 kHz I
 about 53 ms; the switch settles in 12 ms).  Prints the wall time of the run (calibrate,
 qualify, verify, 50 devices with a check every 10 and at the end) divided by the simulator's
 summed busy time (its sweeps -- with the model's computing of each, which on hardware is part
-of the sweep -- and the switch's settling).  Goal <= 1.05: recording each device
+of the sweep -- and the switch's settling).  For reference it then sweeps the same devices with
+the drivers alone (route, sweep, read; nothing recorded): the floor the instrument dialogue sets.  Goal <= 1.05: recording each device
 (correction, uncertainty, judging, Touchstone file with fsync, database commit, journal) runs
 while the next device is routed and swept.
 
@@ -204,8 +205,25 @@ class QuietView:
         self.devices += 1
 
 
+def drivers_alone(station: object, spec: object, busy: object) -> tuple[float, float, int]:
+    """The same devices swept by the drivers alone -- route, sweep, read, nothing recorded: the
+    floor that the instrument dialogue sets (wall, busy, sweeps)."""
+    operator = station.operator  # type: ignore[attr-defined]
+    port = station.spec.analyzer.port  # type: ignore[attr-defined]
+    units = spec.devices.units  # type: ignore[attr-defined]
+    sweeps_before, busy_before = busy()  # type: ignore[operator]
+    start = time.perf_counter()
+    for unit in units:
+        operator.connect(port, unit.serial, "good-termination", "")
+        station.analyzer.measure([f"S{port}{port}"])  # type: ignore[attr-defined]
+    wall = time.perf_counter() - start
+    sweeps_after, busy_after = busy()  # type: ignore[operator]
+    return wall, busy_after - busy_before, sweeps_after - sweeps_before
+
+
 def run_batch(work: Path, busy: object) -> dict[str, float]:
-    """Run the sequence in ``work`` in this process; wall and busy times of the run and the batch."""
+    """Run the sequence in ``work`` in this process; wall and busy times of the run and the batch,
+    then the drivers alone on the same devices for reference."""
     spec = load_sequence(work / "batch.toml")
     view = QuietView(busy)
     with open_station(spec, view.ask) as station, ResultStore(work / "results.sqlite") as store:
@@ -223,8 +241,9 @@ def run_batch(work: Path, busy: object) -> dict[str, float]:
         end = time.perf_counter()
         sweeps_after, busy_after = busy()  # type: ignore[operator]
         journal.close()
+        reference = drivers_alone(station, spec, busy)
     assert view.batch_start is not None
-    return {"wall": end - start, "busy": busy_after - busy_before, "sweeps": sweeps_after - sweeps_before,
+    return {"reference": reference, "wall": end - start, "busy": busy_after - busy_before, "sweeps": sweeps_after - sweeps_before,
             "devices": view.devices, "batch_wall": end - view.batch_start[0],
             "batch_busy": busy_after - view.batch_start[1]}
 
@@ -269,6 +288,10 @@ def main() -> int:
     print(f"overhead per sweep          {(figures['wall'] - figures['busy']) / figures['sweeps'] * 1e3:8.2f} ms")
     print(f"the batch alone (after the first check): wall {figures['batch_wall']:.3f} s, busy "
           f"{figures['batch_busy']:.3f} s, ratio {figures['batch_wall'] / figures['batch_busy']:.3f}")
+    wall, busy, sweeps = figures["reference"]
+    print(f"for reference, the drivers alone (route, sweep, read each device; nothing recorded): "
+          f"wall {wall:.3f} s, busy {busy:.3f} s, ratio {wall / busy:.3f}, overhead {(wall - busy) / sweeps * 1e3:.2f} ms "
+          "per sweep")
     return 0
 
 
