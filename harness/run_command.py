@@ -62,6 +62,9 @@ def _command(arguments: argparse.Namespace) -> int:
                              fix="lineproof run SEQUENCE.toml, or lineproof run --resume RUN_ID")
         with stop_on_ctrl_c(stop, view):
             if arguments.resume is not None:
+                if arguments.station:
+                    raise InputError("--station cannot change the station of a run being resumed", key="--station",
+                                     fix="resume without --station: the run continues on the station it began on")
                 hint = load_sequence(arguments.sequence, options.station_file) if arguments.sequence else None
                 outcome = resume_run(arguments.resume, options, view, stop, hint)
             else:

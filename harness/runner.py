@@ -216,6 +216,7 @@ def start_run(spec: SequenceSpec, options: RunOptions, view: RunView, stop: Stop
                 "software_version": __version__, "analyzer": station.identity.describe(),
                 "resource": station.identity.resource, "sweep_plan": spec.plan.describe(),
                 "sequence_file": str(Path(spec.source).resolve()), "sequence_sha256": spec.sha256,
+                "station_file": None if station.spec.source == spec.source else str(Path(station.spec.source).resolve()),
                 "analyzer_profile": station.profile_name, "decision_rule": spec.decision_rule,
                 "reference_plane": station.spec.reference_plane, "run_folder": folder.relative(folder.path, database),
                 "planned_devices": planned,
@@ -251,7 +252,10 @@ def _kept_sequence(folder: RunFolder, row: dict[str, object]) -> SequenceSpec:
         raise InputError("the run's copy of its sequence differs from the one it started with", path=str(copy),
                          fix="restore the file; a run continues only with the sequence it began")
     station_copy = folder.path / STATION_COPY
-    station_text = (station_copy.read_text(encoding="utf-8"), str(station_copy)) if station_copy.is_file() else None
+    station_text = None
+    if station_copy.is_file():
+        # Anchored, like the sequence, at the original file's folder for its relative paths.
+        station_text = (station_copy.read_text(encoding="utf-8"), str(row.get("station_file") or station_copy))
     return check_sequence_text(text, str(row["sequence_file"]), station_text)
 
 

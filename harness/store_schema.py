@@ -102,6 +102,7 @@ SCHEMA_1 = (
 MIGRATION_2 = (
     "ALTER TABLE runs ADD COLUMN sequence_file TEXT",
     "ALTER TABLE runs ADD COLUMN sequence_sha256 TEXT",
+    "ALTER TABLE runs ADD COLUMN station_file TEXT",
     "ALTER TABLE runs ADD COLUMN status_reason TEXT",
     "ALTER TABLE runs ADD COLUMN analyzer_profile TEXT",
     "ALTER TABLE runs ADD COLUMN decision_rule TEXT",

@@ -22,7 +22,7 @@ SCENARIO = Path(__file__).parent.parent / "scenarios" / "batch-bench.toml"
 
 def run_id_of(records: Path) -> str:
     with sqlite3.connect(records / "results.sqlite") as db:
-        return db.execute("SELECT run_id FROM runs ORDER BY started_utc DESC LIMIT 1").fetchone()[0]
+        return db.execute("SELECT run_id FROM runs ORDER BY rowid DESC LIMIT 1").fetchone()[0]
 
 
 def test_a_batch_is_recorded_completely_and_matches_the_truth(tmp_path: Path, sequence_variant) -> None:
@@ -119,8 +119,11 @@ def test_resume_refuses_what_it_cannot_continue(tmp_path: Path, sequence_variant
 def test_a_station_file_replaces_the_sequences_station(tmp_path: Path, sequence_variant) -> None:
     sequence = sequence_variant(replace={'"TM150-0004", "TM150-0005",': "", '"TM150-0006", "TM150-0007", "TM150-0008", '
                                          '"TM150-0009", "TM150-0010"': ""})
-    station = tmp_path / "bench-b.toml"
-    station.write_text(f'name = "bench B (simulated)"\nsimulated_bench = "{SCENARIO.as_posix()}"\n'
+    stations = tmp_path / "stations"
+    stations.mkdir()
+    (stations / "bench.toml").write_text(SCENARIO.read_text(encoding="utf-8"), encoding="utf-8")
+    station = stations / "bench-b.toml"
+    station.write_text('name = "bench B (simulated)"\nsimulated_bench = "bench.toml"\n'  # beside the station file
                        'connected_by = "simulated-operator"\nreference_plane = "bench B, port 1 connector"\n\n'
                        '[analyzer]\nprofile = "generic-scpi-reflectometer"\n', encoding="utf-8")
     completed = run_cli("run", str(sequence), "--station", str(station), "--records", "rec", cwd=tmp_path)
@@ -130,6 +133,18 @@ def test_a_station_file_replaces_the_sequences_station(tmp_path: Path, sequence_
     assert {m["station"] for m in metadata.values()} == {"bench B (simulated)"}
     assert {m["reference_plane"] for m in metadata.values()} == {"bench B, port 1 connector"}
     assert (tmp_path / "rec" / "runs" / run_id / "station.toml").read_text(encoding="utf-8") == station.read_text()
+
+    # A run that halts on this station resumes on it: the kept copy finds its bench beside the original.
+    worn = sequence.read_text(encoding="utf-8").replace('name = "good-termination"', 'name = "poor-termination"')
+    sequence.write_text(worn, encoding="utf-8")
+    halted = run_cli("run", str(sequence), "--station", str(station), "--records", "rec", cwd=tmp_path)
+    assert halted.returncode == 2 and "poor-termination failed qualification" in halted.stderr
+    run_id = run_id_of(tmp_path / "rec")
+    again = run_cli("run", "--resume", run_id, "--records", "rec", cwd=tmp_path)
+    assert again.returncode == 2 and "poor-termination failed qualification" in again.stderr
+    assert "bench B (simulated)" in again.stdout
+    moved = run_cli("run", "--resume", run_id, "--records", "rec", "--station", str(station), cwd=tmp_path)
+    assert moved.returncode == 3 and "--station cannot change the station" in moved.stderr
 
     station.write_text(station.read_text().replace('[analyzer]', 'colour = "red"\n\n[analyzer]'), encoding="utf-8")
     refused = run_cli("run", str(sequence), "--station", str(station), "--records", "rec", "--json", cwd=tmp_path)
