@@ -127,3 +127,33 @@ def test_sigkill_at_random_moments_loses_and_repeats_nothing(tmp_path: Path, seq
     events = read_journal(records / "runs" / run_id / "journal.jsonl")
     assert events.count("resumed") == kills
     print(json.dumps({"kills": kills, "attempts": attempts}))
+
+
+def test_a_calibration_too_old_or_disproven_is_made_again_on_resume(tmp_path: Path, sequence_variant) -> None:
+    sequence = sequence_variant(time_scale=1.0, replace={"valid_for_minutes = 60": "valid_for_minutes = 0.01"})
+    records = tmp_path / "rec"
+    process = start(["run", str(sequence), "--records", str(records)], tmp_path)
+    wait_for(lambda: sum(e["event"] == "device-committed" for e in journal_events(records)) >= 2, what="two devices")
+    process.send_signal(signal.SIGINT)
+    process.communicate(timeout=60)
+    time.sleep(0.7)  # the calibration is now older than its 0.6 s
+    run_id = next((records / "runs").iterdir()).name
+    resumed = run_cli("run", "--resume", run_id, "--records", str(records), cwd=tmp_path)
+    assert resumed.returncode == 1, resumed.stderr
+    assert "the calibration cannot be kept" in resumed.stdout and "old" in resumed.stdout
+    metadata = check_records_agree(records, run_id)
+    assert sorted(metadata) == ALL_SERIALS
+    with sqlite3.connect(records / "results.sqlite") as db:
+        calibrations = [c for (c,) in db.execute("SELECT calibration_id FROM calibrations ORDER BY created_utc")]
+        used = dict(db.execute("SELECT serial, calibration_id FROM devices"))
+    assert len(calibrations) == 2 and set(used.values()) == set(calibrations)
+    assert used["TM150-0010"] == calibrations[1]
+
+    # A check standard that fails: the run halts, and a resumed run does not trust that calibration.
+    strict = sequence_variant(replace={"tolerance = 0.015": "tolerance = 0.0001"})
+    halted = run_cli("run", str(strict), "--records", "strict", cwd=tmp_path)
+    assert halted.returncode == 2 and "failed verification after 0 device(s)" in halted.stderr
+    strict_run = next((tmp_path / "strict" / "runs").iterdir()).name
+    again = run_cli("run", "--resume", strict_run, "--records", "strict", cwd=tmp_path)
+    assert again.returncode == 2 and "its last check-standard verification failed" in again.stdout
+    assert not list((tmp_path / "strict" / "runs" / strict_run).glob("*.s1p"))
