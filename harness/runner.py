@@ -320,6 +320,32 @@ def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dic
     return state, None
 
 
+def _resumable(store: ResultStore, run_id: str, records: Path) -> tuple[dict[str, Any], RunFolder]:
+    """The run's row and folder, or InputError saying why it cannot be resumed."""
+    row = store.run(run_id)
+    if row is None:
+        raise InputError(f"no run {run_id} in this database", path=str(store.path),
+                         fix="check the run id (lineproof results lists runs) and --records")
+    if row["status"] == "complete":
+        raise InputError(f"run {run_id} is complete: there is nothing to resume", path=str(store.path),
+                         fix="start a new run with lineproof run SEQUENCE")
+    folder = RunFolder(records, run_id)
+    if not (folder.path / SEQUENCE_COPY).is_file():
+        raise InputError("the run's folder or its copy of the sequence is missing", path=str(folder.path),
+                         fix="give the records folder the run wrote to with --records DIR")
+    return row, folder
+
+
+def _tell_resumption(view: RunView, state: RunState, set_aside: list[str], folder: RunFolder, problem: str | None,
+                     spec: SequenceSpec) -> None:
+    view.note(f"{state.measured} device(s) already recorded; they will not be measured again")
+    if set_aside:
+        view.note(f"set aside {len(set_aside)} file(s) written but never committed: "
+                  f"{', '.join(set_aside)} (in {folder.path / 'uncommitted'})")
+    if problem is not None and spec.has_step("calibrate"):
+        view.note(f"the calibration cannot be kept ({problem}): calibrating again")
+
+
 def resume_run(run_id: str, options: RunOptions, view: RunView, stop: StopSignal,
                spec_hint: SequenceSpec | None = None) -> RunOutcome:
     """Continue run ``run_id`` from where it stopped."""
@@ -329,17 +355,7 @@ def resume_run(run_id: str, options: RunOptions, view: RunView, stop: StopSignal
         raise InputError("no results database here", path=str(database),
                          fix="give the records folder the run wrote to with --records DIR")
     with open_store(database) as store:
-        row = store.run(run_id)
-        if row is None:
-            raise InputError(f"no run {run_id} in this database", path=str(database),
-                             fix="check the run id (lineproof results lists runs) and --records")
-        if row["status"] == "complete":
-            raise InputError(f"run {run_id} is complete: there is nothing to resume", path=str(database),
-                             fix="start a new run with lineproof run SEQUENCE")
-        folder = RunFolder(records, run_id)
-        if not (folder.path / SEQUENCE_COPY).is_file():
-            raise InputError("the run's folder or its copy of the sequence is missing", path=str(folder.path),
-                             fix="give the records folder the run wrote to with --records DIR")
+        row, folder = _resumable(store, run_id, records)
         with _run_lock(folder.path):
             spec = _kept_sequence(folder, row)
             journal_state = read_journal(folder.path / JOURNAL_NAME)
@@ -353,19 +369,13 @@ def resume_run(run_id: str, options: RunOptions, view: RunView, stop: StopSignal
                 try:
                     journal.write("resumed", attempt=journal_state.count("resumed") + 1, set_aside=set_aside,
                                   calibration_kept=problem is None)
-                    planned = row.get("planned_devices")
-                    view.run_started(run_id, spec.name, station.spec.name, planned, resumed=True)  # type: ignore[arg-type]
-                    view.note(f"{state.measured} device(s) already recorded; they will not be measured again")
-                    if set_aside:
-                        view.note(f"set aside {len(set_aside)} file(s) written but never committed: "
-                                  f"{', '.join(set_aside)} (in {folder.path / 'uncommitted'})")
-                    if problem is not None and spec.has_step("calibrate"):
-                        view.note(f"the calibration cannot be kept ({problem}): calibrating again")
+                    view.run_started(run_id, spec.name, station.spec.name, row.get("planned_devices"), resumed=True)
+                    _tell_resumption(view, state, set_aside, folder, problem, spec)
                     operator = str(row["operator"])
                     if options.operator.strip():
                         operator = f"{operator}; resumed by {_operator_name(options.operator)}"
-                    facts = _facts(spec, run_id, station, operator)
-                    runner = StepRunner(spec, station, store, journal, folder, facts, view, stop, state)
+                    runner = StepRunner(spec, station, store, journal, folder, _facts(spec, run_id, station, operator),
+                                        view, stop, state)
                     outcome = RunOutcome(run_id, "running", None, records, database, folder.path)
                     return _execute(runner, store, journal, outcome)
                 finally:
