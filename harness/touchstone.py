@@ -132,7 +132,7 @@ def write_new_file(folder: Path, stem: str, suffix: str, text: str, encoding: st
             name = f"{stem}{suffix}" if attempt == 1 else f"{stem}~{attempt}{suffix}"
             target = folder / name
             try:
-                os.link(temporary, target)
+                _place_without_replacing(temporary, target)
             except FileExistsError:
                 continue
             _fsync_folder(folder)
@@ -143,6 +143,28 @@ def write_new_file(folder: Path, stem: str, suffix: str, text: str, encoding: st
             os.unlink(temporary)
         except FileNotFoundError:
             pass
+
+
+def _place_without_replacing(temporary: str, target: Path) -> None:
+    """Give the finished temporary file its final name; FileExistsError if the name is taken.
+
+    A hard link does it atomically.  Where the file system has no hard links (FAT, some network
+    shares), Windows' rename refuses an existing name by itself; elsewhere the name is first
+    reserved with an exclusive create and then replaced -- a kill between the two leaves an
+    empty file that no database row names, which a resumed run sets aside.
+    """
+    try:
+        os.link(temporary, target)
+        return
+    except FileExistsError:
+        raise
+    except OSError:
+        if os.name == "nt":
+            os.rename(temporary, target)
+            return
+    descriptor = os.open(target, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o666)
+    os.close(descriptor)
+    os.replace(temporary, target)
 
 
 def _fsync_folder(folder: Path) -> None:
