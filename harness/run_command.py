@@ -77,11 +77,15 @@ def _command(arguments: argparse.Namespace) -> int:
         print(json.dumps({"event": "error", "kind": "invalid-input", "exit_code": 3,
                           "problems": problems_as_json(exc)}), flush=True)
         return 3
-    except LineproofError as exc:
+    except (LineproofError, OSError) as exc:
+        # An OSError here is the records' disk or folder (full, read-only, gone): the run is
+        # marked failed where it could still be written, and it can be resumed.
         view.close()
+        reason = str(exc) if isinstance(exc, LineproofError) else f"cannot write the records ({exc})"
         if not arguments.json:
-            raise
-        print(json.dumps({"event": "error", "kind": "could-not-complete", "exit_code": 2, "reason": str(exc)}),
+            print(f"lineproof: run could not complete: {reason}", file=sys.stderr)
+            return 2
+        print(json.dumps({"event": "error", "kind": "could-not-complete", "exit_code": 2, "reason": reason}),
               flush=True)
         return 2
     summary = outcome.summary()

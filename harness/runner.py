@@ -102,6 +102,9 @@ def records_location(spec: SequenceSpec | None, option: Path | None) -> tuple[Pa
         folder = spec.folder / spec.records_folder
     else:
         folder = DEFAULT_RECORDS
+    if folder.exists() and not folder.is_dir():
+        raise InputError("the records folder is a file", path=str(folder),
+                         fix="give a folder (new or one lineproof wrote to) with --records DIR")
     database = spec.database if spec is not None and spec.database else DATABASE_NAME
     if "://" in database:
         open_store(database)  # refuses a URL this version cannot use, with the reason

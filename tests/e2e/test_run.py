@@ -101,6 +101,9 @@ def test_a_database_that_is_not_ours_loses_nothing(tmp_path: Path, sequence_vari
     completed = run_cli("run", str(sequence_variant()), "--records", "rec", cwd=tmp_path)
     assert completed.returncode == 3 and "not one lineproof created" in completed.stderr
     assert foreign.read_bytes() == before and sorted(p.name for p in records.iterdir()) == ["results.sqlite"]
+    (tmp_path / "notes").write_text("a file, not a folder")
+    misplaced = run_cli("run", str(sequence_variant()), "--records", "notes", cwd=tmp_path)
+    assert misplaced.returncode == 3 and "the records folder is a file" in misplaced.stderr
 
 
 def test_resume_refuses_what_it_cannot_continue(tmp_path: Path, sequence_variant,
