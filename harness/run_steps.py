@@ -10,6 +10,7 @@ device is routed and swept, so the analyzer is never idle waiting for the disk.
 from __future__ import annotations
 
 import threading
+import time
 from collections.abc import Callable
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
@@ -76,6 +77,10 @@ class _ProgressOperator:
             self.after_connect()
 
 
+#: How long a recording waits after the next connection before it starts (see ``_after_trigger``).
+_TRIGGER_HEAD_START_S = 0.001
+
+
 class _RecordingPipeline:
     """Records one device while the next is swept.
 
@@ -101,7 +106,14 @@ class _RecordingPipeline:
         """Start the waiting recording (called once the next connection is made)."""
         waiting, self._waiting = self._waiting, None
         if waiting is not None and self._executor is not None:
-            self._pending = self._executor.submit(waiting)
+            self._pending = self._executor.submit(self._after_trigger, waiting)
+
+    @staticmethod
+    def _after_trigger(work: Callable[[], None]) -> None:
+        # Let the main thread trigger the sweep first: recording is mostly Python and would hold
+        # the interpreter for up to its switch interval (5 ms) while the sweep waits to start.
+        time.sleep(_TRIGGER_HEAD_START_S)
+        work()
 
     def drain(self) -> None:
         """Wait until every recording handed over is done (and raise what it raised)."""
