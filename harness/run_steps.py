@@ -15,7 +15,6 @@ from collections.abc import Callable
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from typing import Any
 
 import numpy as np
 
@@ -356,9 +355,3 @@ class StepRunner:
         with self._record_lock:
             self.recorded.append(recorded)
         self.view.device_recorded(recorded)
-
-
-def describe_state(state: RunState) -> dict[str, Any]:
-    """A short account of a resumed run's standing (for the view)."""
-    return {"calibration": state.calibration.calibration_id if state.calibration else None,
-            "reuse_calibration": state.reuse_calibration, "devices_measured": state.measured}

@@ -13,10 +13,8 @@ from __future__ import annotations
 
 import hashlib
 import re
-from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
-from types import MappingProxyType
 
 from lineproof.errors import InputError
 from lineproof.station_file import StationSpec, parse_station
@@ -129,7 +127,6 @@ class SequenceSpec:
     records_folder: str | None = None
     database: str | None = None
     notes: str = ""
-    extra: Mapping[str, str] = field(default_factory=lambda: MappingProxyType({}))
 
     @property
     def folder(self) -> Path:
