@@ -21,6 +21,10 @@ EXIT_OK, EXIT_DEVICE_FAILED, EXIT_INCOMPLETE, EXIT_INPUT = 0, 1, 2, 3
 #: by being imported.
 COMMAND_MODULES = (
     "lineproof.demo",
+    "lineproof.run_command",
+    "lineproof.check_command",
+    "lineproof.report_command",
+    "lineproof.results_command",
     "lineproof.instruments_command",
     "lineproof.sim_command",
 )

@@ -1,213 +1,100 @@
-"""``lineproof demo``: the whole job once, on a simulated bench, with nothing to install.
+"""``lineproof demo``: the whole job once, unattended, on a simulated bench with a switch matrix.
 
-A simulated one-port analyzer is served as a SCPI instrument on 127.0.0.1 and reached
-through pyvisa/pyvisa-py exactly like hardware; a simulated operator connects standards,
-the termination and each device through the bench's control channel.
+It runs the shipped sequence ``demo-switch.toml`` through the same runner as ``lineproof run``:
+a simulated two-port analyzer and switch matrix served as SCPI instruments on 127.0.0.1 and
+reached through pyvisa/pyvisa-py exactly like hardware; the switch routes the standards, the
+termination, the check standard and twelve device slots to port 1.  Calibrate, qualify the
+termination, verify, measure the twelve invented meter heads, re-verify, then the report.
 """
 
 from __future__ import annotations
 
 import argparse
-import hashlib
 import sys
-import uuid
 from dataclasses import dataclass
-from datetime import UTC, datetime
+from importlib import resources
 from pathlib import Path
 from typing import TextIO
 
-from lineproof import __version__, steps
-from lineproof.calkit import load_kit
-from lineproof.errors import LineproofError
+from lineproof import __version__
 from lineproof.metrics import vswr_from_reflection
-from lineproof.store import ResultStore
-from lineproof.touchstone import check_serial, format_one_port, write_new_file
-from lineproof.uncertainty import UncertaintySettings
-from lineproof.values import (
-    BandLimit,
-    CalibrationRecord,
-    DeviceIdentity,
-    DeviceResult,
-    SweepPlan,
-    TerminationQualification,
-)
+from lineproof.recording import RecordedDevice
+from lineproof.run_steps import StopSignal
+from lineproof.run_view import ConsoleRunView
+from lineproof.runner import RunOptions, RunOutcome, start_run
+from lineproof.sequence import SequenceSpec, check_sequence_text, load_sequence, read_text
 
-DEMO_SCENARIO = "demo-bench"
-DEMO_PROFILE = "generic-scpi-reflectometer"
-DEMO_KIT = "kits/n50-illustrative.toml"
-DEMO_PLAN = SweepPlan(100e6, 500e6, 401, if_bandwidth_hz=1000.0)
-# Invented limits for an invented product: 2 m and 70 cm amateur bands.
-DEMO_BANDS = (
-    BandLimit("2m", 144e6, 148e6, max_vswr=1.10),
-    BandLimit("70cm", 420e6, 450e6, max_vswr=1.20),
-)
-REFERENCE_PLANE = "analyzer port 1 connector (end of the test-port cable)"
-DEMO_RULE = "guard-banded"
-# What the invented workshop knows of its own bench: connector repeatability from a
-# repeatability study (RMS |Γ| a reconnection adds at 1 GHz); trace noise is estimated from
-# the data.  Invented for the demo.
-DEMO_UNCERTAINTY = UncertaintySettings(connection_repeatability=0.0003)
-UNCERTAINTY_METHOD = ("GUM (JCGM 100:2008) propagation of the kit's stated standard deviations, connector "
-                      "repeatability, trace noise and the termination's mismatch; EURAMET cg-12 v3.0 residual-error model")
+DEMO_SEQUENCE = "demo-switch.toml"
 
 
 @dataclass
 class DemoOutcome:
     run_id: str
-    results: list[DeviceResult]
+    outcome: RunOutcome
     files: list[Path]
     database: Path
     folder: Path
 
 
-def _run_id() -> str:
-    return f"run-{datetime.now(UTC):%Y%m%dT%H%M%SZ}-{uuid.uuid4().hex[:6]}"
-
-
-def _metadata(run_id: str, bench_name: str, station: steps.Station, profile: str, cal: CalibrationRecord,
-              qualification: TerminationQualification, result: DeviceResult, sequence_hash: str) -> list[tuple[str, object]]:
-    plan = station.plan
-    items: list[tuple[str, object]] = [
-        ("software", f"lineproof {__version__}"),
-        ("run.id", run_id),
-        ("sequence", "built-in demo"),
-        ("sequence.sha256", sequence_hash),
-        ("station", bench_name),
-        ("operator", "simulated operator"),
-        ("device.serial", result.device.serial),
-        ("device.model", result.device.model),
-        ("measured_utc", result.measured_utc),
-        ("data", f"as-terminated input reflection, device output on {qualification.name}"),
-        ("reference_plane", REFERENCE_PLANE),
-        ("analyzer.identity", station.identity.describe()),
-        ("analyzer.resource", station.identity.resource),
-        ("analyzer.profile", profile),
-        ("sweep.start_hz", f"{plan.start_hz:.10g}"),
-        ("sweep.stop_hz", f"{plan.stop_hz:.10g}"),
-        ("sweep.points", plan.points),
-        ("sweep.if_bandwidth_hz", f"{plan.if_bandwidth_hz:g}"),
-        ("calibration.id", cal.calibration_id),
-        ("calibration.method", cal.method),
-        ("calibration.kit", cal.kit_name),
-        ("calibration.kit_sha256", cal.kit_hash),
-        ("calibration.created_utc", cal.created_utc),
-        ("termination.name", qualification.name),
-        ("termination.worst_vswr", f"{qualification.worst_vswr:.4f}"),
-        ("termination.limit_vswr", f"{qualification.limit_vswr:.3f}"),
-        ("termination.expanded_uncertainty", f"{qualification.expanded_uncertainty:.5f}"),
-        ("termination.result", "qualified" if qualification.passed else "rejected"),
-        ("uncertainty.method", UNCERTAINTY_METHOD),
-        ("uncertainty.coverage", "expanded, k = 2 (95.45 %), k from the distribution where a bounded term dominates"),
-    ]
-    for band in result.bands:
-        prefix = f"band.{band.limit.name}"
-        items += [
-            (f"{prefix}.range_hz", f"{band.limit.start_hz:.10g}..{band.limit.stop_hz:.10g}"),
-            (f"{prefix}.limit_vswr", f"{band.limit.max_vswr:.3f}"),
-            (f"{prefix}.worst_vswr", f"{band.worst_vswr:.4f}"),
-            (f"{prefix}.worst_frequency_hz", f"{band.worst_frequency_hz:.10g}"),
-            (f"{prefix}.expanded_uncertainty", f"{band.expanded_uncertainty:.5f}"),
-            (f"{prefix}.worst_upper_vswr", f"{_vswr(band.worst_upper_reflection):.4f}"),
-            (f"{prefix}.verdict", band.verdict.value),
-        ]
-    items += [("decision_rule", result.bands[0].decision_rule), ("verdict", result.verdict.value)]
-    return items
+def demo_sequence(termination: str | None = None) -> SequenceSpec:
+    """The shipped demo sequence; with ``termination``, the same sequence with another
+    termination on the devices' outputs (its text changed, so its record says so)."""
+    path = Path(str(resources.files("lineproof.sequences") / DEMO_SEQUENCE))
+    if termination is None:
+        return load_sequence(path)
+    text = read_text(path).replace('name = "good-termination"', f'name = "{termination}"', 1)
+    return check_sequence_text(text, str(path))
 
 
 def _vswr(reflection: float | None) -> float:
     return float("nan") if reflection is None else float(vswr_from_reflection(reflection))
 
 
-def _print_table(results: list[DeviceResult], out: TextIO) -> None:
+def print_table(recorded: list[RecordedDevice], out: TextIO) -> None:
+    """Worst VSWR per band, and with the expanded uncertainty added ('with U')."""
     header = (f"{'serial':<12} {'model':<26} {'band':<6} {'worst VSWR':>10} {'at MHz':>8} {'with U':>7} "
               f"{'limit':>6}  verdict")
     print(header, file=out)
     print("-" * len(header), file=out)
-    for result in results:
+    for device in sorted(recorded, key=lambda d: d.position):
+        result = device.result
         for index, band in enumerate(result.bands):
             serial = result.device.serial if index == 0 else ""
             model = result.device.model if index == 0 else ""
-            print(
-                f"{serial:<12} {model:<26} {band.limit.name:<6} {band.worst_vswr:>10.3f} "
-                f"{band.worst_frequency_hz / 1e6:>8.1f} {_vswr(band.worst_upper_reflection):>7.3f} "
-                f"{band.limit.max_vswr:>6.2f}  {band.verdict.value}",
-                file=out,
-            )
-    counts = {v: sum(1 for r in results if r.verdict.value == v) for v in ("pass", "fail", "indeterminate")}
-    print(f"\n{len(results)} devices: {counts['pass']} passed, {counts['fail']} failed, "
-          f"{counts['indeterminate']} indeterminate", file=out)
-    print("'with U': worst VSWR plus the expanded uncertainty (k = 2); decision: "
-          f"{results[0].bands[0].decision_rule if results else ''}", file=out)
+            print(f"{serial:<12} {model:<26} {band.limit.name:<6} {band.worst_vswr:>10.3f} "
+                  f"{band.worst_frequency_hz / 1e6:>8.1f} {_vswr(band.worst_upper_reflection):>7.3f} "
+                  f"{band.limit.max_vswr:>6.2f}  {band.verdict.value}", file=out)
+    if recorded:
+        print(f"'with U': worst VSWR with the expanded uncertainty (k = 2) added; decision: "
+              f"{recorded[0].result.bands[0].decision_rule}", file=out)
 
 
-def run_demo(out_dir: Path, termination: str = "good-termination", out: TextIO = sys.stdout) -> DemoOutcome:
-    """Run the demo; raises :class:`LineproofError` (e.g. RunHalted) when it cannot finish."""
-    from lineproof.drivers import open_analyzer
-    from lineproof.operators import SimulatedOperator
-    from lineproof.simulators.bench import SimulatedBench
+def run_demo(out_dir: Path, termination: str | None = None, out: TextIO = sys.stdout) -> DemoOutcome:
+    """Run the demo; a run that cannot complete is reported in the outcome's status."""
+    spec = demo_sequence(termination)
+    print(f"lineproof {__version__} demo: {spec.name}", file=out)
+    view = ConsoleRunView(out)
+    outcome = start_run(spec, RunOptions(records=Path(out_dir), operator="demo (simulated operator)"), view, StopSignal())
+    view.close()
+    if outcome.recorded:
+        print("", file=out)
+        print_table(outcome.recorded, out)
+    summary = outcome.summary()
+    if outcome.status == "complete":
+        from lineproof.report_command import make_report
 
-    out_dir = Path(out_dir)
-    run_id = _run_id()
-    kit = load_kit(DEMO_KIT)
-    sequence_hash = hashlib.sha256(repr((DEMO_SCENARIO, DEMO_PROFILE, DEMO_PLAN, DEMO_BANDS, termination)).encode()).hexdigest()
-    with SimulatedBench(DEMO_SCENARIO) as bench:
-        print(f"lineproof {__version__} demo -- {bench.scenario.name}", file=out)
-        print(f"simulated analyzer served at {bench.visa_resource}", file=out)
-        analyzer = open_analyzer(bench.visa_resource, DEMO_PROFILE)
-        operator = SimulatedOperator(bench.control_address)
-        store = ResultStore(out_dir / "results.sqlite")
-        try:
-            identity = analyzer.identify()
-            print(f"identified: {identity.describe()}", file=out)
-            analyzer.configure(DEMO_PLAN)
-            print(f"sweep: {DEMO_PLAN.describe()}", file=out)
-            station = steps.Station(analyzer, operator, identity, DEMO_PLAN, uncertainty=DEMO_UNCERTAINTY)
-            store.start_run({
-                "run_id": run_id, "started_utc": datetime.now(UTC).isoformat(timespec="seconds"),
-                "status": "running", "sequence_name": "built-in demo", "station": bench.scenario.name,
-                "operator": "simulated operator", "software_version": __version__,
-                "analyzer": identity.describe(), "resource": identity.resource, "sweep_plan": DEMO_PLAN.describe(),
-            })
-            cal = steps.calibrate_one_port(station, kit)
-            store.record_calibration(run_id, cal.calibration_id, cal.method, kit.name)
-            print(f"calibrated: {cal.method}, kit {kit.name} -> {cal.calibration_id}", file=out)
-            try:
-                qualified = steps.measure_termination(station, cal, termination)
-            except LineproofError:
-                store.finish_run(run_id, "halted: termination failed qualification",
-                                 datetime.now(UTC).isoformat(timespec="seconds"))
-                raise
-            qualification = qualified.qualification
-            store.record_termination(run_id, qualification)
-            print(f"termination {qualification.describe()}", file=out)
-            devices = [DeviceIdentity(check_serial(serial), model) for serial, model in bench.scenario.devices]
-            print(f"measuring {len(devices)} devices, each with its output on {termination}\n", file=out)
-            folder = out_dir / "runs" / run_id
-            results, files = [], []
-            for device in devices:
-                result, frequencies, corrected = steps.measure_device(
-                    station, cal, device, qualified, DEMO_BANDS, DEMO_RULE)
-                text = format_one_port(frequencies, corrected, kit.reference_impedance_ohm,
-                                       _metadata(run_id, bench.scenario.name, station, DEMO_PROFILE, cal,
-                                                 qualification, result, sequence_hash))
-                path = write_new_file(folder, device.serial, ".s1p", text)
-                store.record_device(run_id, result, path.relative_to(out_dir).as_posix())
-                results.append(result)
-                files.append(path)
-            store.finish_run(run_id, "complete", datetime.now(UTC).isoformat(timespec="seconds"))
-        finally:
-            store.close()
-            operator.close()
-            analyzer.close()
-    _print_table(results, out)
-    print(f"\nTouchstone files: {folder}", file=out)
-    print(f"Results database: {out_dir / 'results.sqlite'} (run {run_id})", file=out)
-    return DemoOutcome(run_id, results, files, out_dir / "results.sqlite", folder)
+        summary["report"] = str(make_report(outcome.run_id, outcome.records).html)
+    view.run_finished(summary)
+    files = sorted(d.file for d in outcome.recorded)
+    return DemoOutcome(outcome.run_id, outcome, files, outcome.database, outcome.run_folder)
 
 
 def _command(arguments: argparse.Namespace) -> int:
-    termination = "poor-termination" if arguments.worn_termination else "good-termination"
-    run_demo(Path(arguments.out), termination=termination)
+    termination = "poor-termination" if arguments.worn_termination else None
+    result = run_demo(Path(arguments.out), termination=termination)
+    if result.outcome.status != "complete":
+        print(f"lineproof: run stopped: {result.outcome.reason}", file=sys.stderr)
+        return 2
     return 0
 
 

@@ -1,165 +1,290 @@
 """The results database: an embedded SQLite file by default.
 
-Plain SQL through the DB-API, one table per record kind, so that the same schema can be
-created on PostgreSQL for a line of several stations.  A database that lineproof did not
-create is refused, never written to.
+Plain SQL through the DB-API, written once for the dialects of :mod:`lineproof.store_schema`,
+so that the same records can live in PostgreSQL for a line of several stations.  A database
+that lineproof did not create is refused, never written to; an older lineproof database is
+migrated in one transaction after a copy of it is kept beside it.  Every record kind is
+written in one transaction, so a run killed at any moment leaves whole records or none.
+One store may be shared by the run's threads (calls are serialised by a lock).
 """
 
 from __future__ import annotations
 
+import io
 import sqlite3
+import threading
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
 from pathlib import Path
+from typing import Any
 
+import numpy as np
+
+from lineproof import calstore
 from lineproof.errors import InputError
-from lineproof.values import DeviceResult, TerminationQualification
+from lineproof.store_schema import APPLICATION, MIGRATIONS, SCHEMA_1, SCHEMA_VERSION, SQLITE, Dialect
+from lineproof.values import (
+    CalibrationRecord,
+    DeviceResult,
+    TerminationQualification,
+    VerificationResult,
+)
 
-APPLICATION = "lineproof"
-SCHEMA_VERSION = 1
+#: Where saved calibrations live, beside the database.
+CALIBRATIONS_FOLDER = "calibrations"
+_NOT_OURS_FIX = "give a new file name or a results database that lineproof created"
 
-_SCHEMA = """
-CREATE TABLE IF NOT EXISTS lineproof_meta (
-    key   TEXT PRIMARY KEY,
-    value TEXT NOT NULL
-);
-CREATE TABLE IF NOT EXISTS runs (
-    run_id            TEXT PRIMARY KEY,
-    started_utc       TEXT NOT NULL,
-    finished_utc      TEXT,
-    status            TEXT NOT NULL,
-    sequence_name     TEXT NOT NULL,
-    station           TEXT NOT NULL,
-    operator          TEXT NOT NULL,
-    software_version  TEXT NOT NULL,
-    analyzer          TEXT NOT NULL,
-    resource          TEXT NOT NULL,
-    sweep_plan        TEXT NOT NULL,
-    calibration_id    TEXT,
-    calibration_method TEXT,
-    cal_kit           TEXT,
-    termination       TEXT,
-    termination_worst_vswr REAL,
-    termination_limit_vswr REAL,
-    termination_passed INTEGER
-);
-CREATE TABLE IF NOT EXISTS devices (
-    device_row    INTEGER PRIMARY KEY,
-    run_id        TEXT NOT NULL REFERENCES runs(run_id),
-    serial        TEXT NOT NULL,
-    model         TEXT NOT NULL,
-    measured_utc  TEXT NOT NULL,
-    verdict       TEXT NOT NULL,
-    touchstone    TEXT NOT NULL,  -- relative to the database's folder
-    UNIQUE (run_id, serial)
-);
-CREATE TABLE IF NOT EXISTS band_results (
-    device_row          INTEGER NOT NULL REFERENCES devices(device_row),
-    band                TEXT NOT NULL,
-    start_hz            REAL NOT NULL,
-    stop_hz             REAL NOT NULL,
-    limit_vswr          REAL NOT NULL,
-    worst_vswr          REAL NOT NULL,
-    worst_frequency_hz  REAL NOT NULL,
-    mean_vswr           REAL NOT NULL,
-    worst_return_loss_db REAL NOT NULL,
-    expanded_uncertainty REAL,
-    verdict             TEXT NOT NULL,
-    decision_rule       TEXT NOT NULL,
-    PRIMARY KEY (device_row, band)
-);
-"""
+
+def open_store(location: str | Path) -> ResultStore:
+    """A store at ``location``: a file path (SQLite) or a database URL."""
+    text = str(location)
+    if text.startswith(("postgresql://", "postgres://")):
+        raise InputError("PostgreSQL results databases are not supported by this version of lineproof",
+                         key="records.database",
+                         fix="use an SQLite file for now (the schema and queries are written for both)")
+    if "://" in text:
+        raise InputError(f"unknown database URL scheme in {text[:60]!r}", key="records.database",
+                         fix="give a file path (SQLite)")
+    return ResultStore(Path(text))
+
+
+def _pack_arrays(arrays: Mapping[str, np.ndarray]) -> bytes:
+    buffer = io.BytesIO()
+    np.savez(buffer, **{name: np.asarray(value) for name, value in arrays.items()})
+    return buffer.getvalue()
+
+
+def unpack_arrays(data: bytes) -> dict[str, np.ndarray]:
+    """Arrays stored by the store (numpy .npz; object arrays refused, nothing unpickled)."""
+    with np.load(io.BytesIO(data), allow_pickle=False) as archive:
+        return {name: archive[name] for name in archive.files}
 
 
 class ResultStore:
-    """Records of runs and devices in one SQLite file."""
+    """Records of runs, calibrations, qualifications, verifications and devices."""
 
-    def __init__(self, path: Path) -> None:
+    def __init__(self, path: Path, dialect: Dialect = SQLITE) -> None:
         self.path = Path(path)
+        self.dialect = dialect
+        self._lock = threading.RLock()
         existed = self.path.exists() and self.path.stat().st_size > 0
+        if self.path.exists() and not self.path.is_file():
+            raise InputError("this is not a file", path=str(self.path), fix=_NOT_OURS_FIX)
         self.path.parent.mkdir(parents=True, exist_ok=True)
         try:
-            self._db = sqlite3.connect(self.path)
+            self._db = sqlite3.connect(self.path, isolation_level=None, check_same_thread=False, timeout=30.0)
+        except sqlite3.Error as exc:
+            raise InputError(f"cannot open the results database ({exc})", path=str(self.path), fix=_NOT_OURS_FIX) from exc
+        try:
             self._db.execute("PRAGMA foreign_keys = ON")
             if existed:
-                self._check_ours()
+                self._check_ours_and_migrate()
             else:
                 self._create()
         except sqlite3.DatabaseError as exc:
-            raise InputError(f"not a lineproof results database ({exc})", path=str(self.path),
-                             fix="give a new file name or the database lineproof created") from exc
+            self._db.close()
+            raise InputError(f"not a lineproof results database ({exc}); it was left untouched",
+                             path=str(self.path), fix=_NOT_OURS_FIX) from exc
+        except InputError:
+            self._db.close()
+            raise
 
-    def _check_ours(self) -> None:
+    # -- schema -------------------------------------------------------------------------------
+
+    @contextmanager
+    def _transaction(self) -> Iterator[sqlite3.Connection]:
+        with self._lock:
+            self._db.execute("BEGIN IMMEDIATE")
+            try:
+                yield self._db
+            except BaseException:
+                self._db.execute("ROLLBACK")
+                raise
+            self._db.execute("COMMIT")
+
+    def _run(self, db: sqlite3.Connection, statement: str, parameters: tuple[Any, ...] = ()) -> sqlite3.Cursor:
+        return db.execute(self.dialect.render(statement), parameters)
+
+    def _meta(self) -> dict[str, str]:
+        return dict(self._db.execute("SELECT key, value FROM lineproof_meta"))
+
+    def _check_ours_and_migrate(self) -> None:
         tables = {row[0] for row in self._db.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
-        if "lineproof_meta" not in tables:
-            self._db.close()
+        meta = self._meta() if "lineproof_meta" in tables else {}
+        if meta.get("application") != APPLICATION:
             raise InputError("this file is a database, but not one lineproof created; it was left untouched",
-                             path=str(self.path), fix="give a new file name or the database lineproof created")
-        meta = dict(self._db.execute("SELECT key, value FROM lineproof_meta"))
-        if meta.get("application") != APPLICATION or int(meta.get("schema_version", "0")) > SCHEMA_VERSION:
-            self._db.close()
-            raise InputError(
-                f"database schema {meta.get('schema_version')} is newer than this lineproof understands",
-                path=str(self.path), fix="upgrade lineproof or use another database file",
-            )
+                             path=str(self.path), fix=_NOT_OURS_FIX)
+        version = int(meta.get("schema_version", "0"))
+        if version > SCHEMA_VERSION:
+            raise InputError(f"database schema {version} is newer than this lineproof understands ({SCHEMA_VERSION})",
+                             path=str(self.path), fix="upgrade lineproof or use another database file")
+        if version < SCHEMA_VERSION:
+            self._keep_copy(version)
+            self._migrate(version)
+
+    def _keep_copy(self, version: int) -> None:
+        """A copy of an older database, kept beside it before it is migrated."""
+        copy = self.path.with_name(f"{self.path.name}.schema{version}-backup")
+        number = 1
+        while copy.exists():
+            number += 1
+            copy = self.path.with_name(f"{self.path.name}.schema{version}-backup{number}")
+        target = sqlite3.connect(copy)
+        try:
+            self._db.backup(target)
+        finally:
+            target.close()
+
+    def _migrate(self, version: int) -> None:
+        with self._transaction() as db:
+            for step in range(version + 1, SCHEMA_VERSION + 1):
+                for statement in MIGRATIONS[step]:
+                    self._run(db, statement)
+            self._run(db, "UPDATE lineproof_meta SET value = ? WHERE key = 'schema_version'", (str(SCHEMA_VERSION),))
 
     def _create(self) -> None:
-        with self._db:
-            self._db.executescript(_SCHEMA)
-            self._db.executemany(
-                "INSERT OR REPLACE INTO lineproof_meta (key, value) VALUES (?, ?)",
-                [("application", APPLICATION), ("schema_version", str(SCHEMA_VERSION))],
-            )
+        with self._transaction() as db:
+            for statement in SCHEMA_1:
+                self._run(db, statement)
+            self._run(db, "INSERT INTO lineproof_meta (key, value) VALUES (?, ?)", ("application", APPLICATION))
+            self._run(db, "INSERT INTO lineproof_meta (key, value) VALUES (?, ?)", ("schema_version", "1"))
+        self._migrate(1)
 
-    def start_run(self, run: dict[str, object]) -> None:
+    @property
+    def schema_version(self) -> int:
+        with self._lock:
+            return int(self._meta()["schema_version"])
+
+    # -- runs -----------------------------------------------------------------------------------
+
+    def start_run(self, run: Mapping[str, object]) -> None:
+        """Insert a run row (columns of the ``runs`` table)."""
         columns = ", ".join(run)
         slots = ", ".join("?" for _ in run)
-        with self._db:
-            self._db.execute(f"INSERT INTO runs ({columns}) VALUES ({slots})", tuple(run.values()))
+        with self._transaction() as db:
+            self._run(db, f"INSERT INTO runs ({columns}) VALUES ({slots})", tuple(run.values()))
 
-    def record_termination(self, run_id: str, qualification: TerminationQualification) -> None:
-        with self._db:
-            self._db.execute(
-                "UPDATE runs SET termination = ?, termination_worst_vswr = ?, termination_limit_vswr = ?,"
-                " termination_passed = ? WHERE run_id = ?",
-                (qualification.name, qualification.worst_vswr, qualification.limit_vswr,
-                 int(qualification.passed), run_id),
-            )
+    def set_run_status(self, run_id: str, status: str, reason: str | None = None,
+                       finished_utc: str | None = None) -> None:
+        with self._transaction() as db:
+            self._run(db, "UPDATE runs SET status = ?, status_reason = ?, finished_utc = ? WHERE run_id = ?",
+                      (status, reason, finished_utc, run_id))
 
-    def record_calibration(self, run_id: str, calibration_id: str, method: str, kit: str) -> None:
-        with self._db:
-            self._db.execute(
-                "UPDATE runs SET calibration_id = ?, calibration_method = ?, cal_kit = ? WHERE run_id = ?",
-                (calibration_id, method, kit, run_id),
-            )
+    def update_run(self, run_id: str, values: Mapping[str, object]) -> None:
+        assignments = ", ".join(f"{column} = ?" for column in values)
+        with self._transaction() as db:
+            self._run(db, f"UPDATE runs SET {assignments} WHERE run_id = ?", (*values.values(), run_id))
 
-    def record_device(self, run_id: str, result: DeviceResult, touchstone: str) -> int:
-        """One row per device plus one per band, in one transaction."""
-        with self._db:
-            cursor = self._db.execute(
-                "INSERT INTO devices (run_id, serial, model, measured_utc, verdict, touchstone)"
-                " VALUES (?, ?, ?, ?, ?, ?)",
-                (run_id, result.device.serial, result.device.model, result.measured_utc,
-                 result.verdict.value, touchstone),
-            )
+    def run(self, run_id: str) -> dict[str, Any] | None:
+        rows = self.rows("SELECT * FROM runs WHERE run_id = ?", (run_id,))
+        return rows[0] if rows else None
+
+    # -- calibrations, qualifications, verifications --------------------------------------------
+
+    def save_calibration(self, run_id: str, cal: CalibrationRecord, station: str) -> Path:
+        """Keep the calibration's terms and residual model as files (:mod:`lineproof.calstore`, in
+        ``calibrations/`` beside the database) and its description as a row."""
+        saved = calstore.save_calibration(cal, self.path.parent / CALIBRATIONS_FOLDER)
+        plan, who = cal.plan, cal.instrument
+        with self._transaction() as db:
+            self._run(db, "INSERT INTO calibrations (calibration_id, created_utc, method, kit_name, kit_sha256, analyzer,"
+                      " analyzer_manufacturer, analyzer_model, analyzer_serial, analyzer_firmware, resource, station,"
+                      " start_hz, stop_hz, points, if_bandwidth_hz, power_dbm, reference_impedance_ohm, temperature_c,"
+                      " run_id, file) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                      (cal.calibration_id, cal.created_utc, cal.method, cal.kit_name, cal.kit_hash, who.describe(),
+                       who.manufacturer, who.model, who.serial, who.firmware, who.resource, station, plan.start_hz,
+                       plan.stop_hz, plan.points, plan.if_bandwidth_hz, plan.power_dbm, cal.reference_impedance_ohm,
+                       cal.temperature_c, run_id, saved.relative_to(self.path.parent).as_posix()))
+            self._run(db, "UPDATE runs SET calibration_id = ?, calibration_method = ?, cal_kit = ? WHERE run_id = ?",
+                      (cal.calibration_id, cal.method, cal.kit_name, run_id))
+        return saved
+
+    def load_calibration(self, calibration_id: str) -> CalibrationRecord | None:
+        """A calibration this database describes, read back from its saved files."""
+        rows = self.rows("SELECT file FROM calibrations WHERE calibration_id = ?", (calibration_id,))
+        if not rows:
+            return None
+        return calstore.load_calibration(self.path.parent / str(rows[0]["file"]))
+
+    def record_qualification(self, run_id: str, calibration_id: str, qualification: TerminationQualification,
+                             measured_utc: str, trace: Mapping[str, np.ndarray] | None = None) -> int:
+        """A termination qualification; ``trace`` keeps its per-point arrays (corrected
+        reflection and uncertainty) so that a resumed run can rely on it as the first did."""
+        q = qualification
+        packed = None if trace is None else _pack_arrays(trace)
+        with self._transaction() as db:
+            cursor = self._run(db, "INSERT INTO qualifications (run_id, calibration_id, termination, measured_utc,"
+                               " worst_vswr, worst_frequency_hz, limit_vswr, expanded_uncertainty, passed, trace)"
+                               " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                               (run_id, calibration_id, q.name, measured_utc, q.worst_vswr, q.worst_frequency_hz,
+                                q.limit_vswr, q.expanded_uncertainty, int(q.passed), packed))
+            self._run(db, "UPDATE runs SET termination = ?, termination_worst_vswr = ?, termination_limit_vswr = ?,"
+                      " termination_passed = ? WHERE run_id = ?",
+                      (q.name, q.worst_vswr, q.limit_vswr, int(q.passed), run_id))
+            return int(cursor.lastrowid)
+
+    def record_verification(self, run_id: str, result: VerificationResult, station: str, analyzer: str) -> int:
+        with self._transaction() as db:
+            cursor = self._run(db, "INSERT INTO verifications (run_id, calibration_id, check_standard, measured_utc,"
+                               " devices_before, worst_deviation, worst_frequency_hz, tolerance, passed, station, analyzer)"
+                               " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                               (run_id, result.calibration_id, result.check_standard, result.measured_utc,
+                                result.devices_before, result.sweep_worst_deviation, result.sweep_worst_frequency_hz,
+                                result.tolerance, int(result.passed), station, analyzer))
+            verification_id = int(cursor.lastrowid)
+            for band in result.bands:
+                self._run(db, "INSERT INTO verification_bands VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                          (verification_id, band.name, band.start_hz, band.stop_hz, band.measured_reflection,
+                           band.reference_reflection, band.worst_deviation, band.worst_frequency_hz, band.tolerance,
+                           int(band.passed)))
+            return verification_id
+
+    # -- devices ----------------------------------------------------------------------------------
+
+    def record_device(self, run_id: str, result: DeviceResult, touchstone: str, *, position: int | None = None,
+                      calibration_id: str | None = None, qualification_id: int | None = None,
+                      verification_id: int | None = None, file_sha256: str | None = None,
+                      uncertainty: np.ndarray | None = None,
+                      metrics: Mapping[tuple[str, str], tuple[float, str]] | None = None) -> int:
+        """One row per device, one per band and one per extra metric, in one transaction."""
+        packed = None if uncertainty is None else _pack_arrays({"expanded_uncertainty": uncertainty})
+        with self._transaction() as db:
+            cursor = self._run(db, "INSERT INTO devices (run_id, serial, model, measured_utc, verdict, touchstone, position,"
+                               " calibration_id, qualification_id, verification_id, file_sha256, uncertainty)"
+                               " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                               (run_id, result.device.serial, result.device.model, result.measured_utc,
+                                result.verdict.value, touchstone, position, calibration_id, qualification_id,
+                                verification_id, file_sha256, packed))
             device_row = int(cursor.lastrowid)
-            self._db.executemany(
-                "INSERT INTO band_results VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                [
-                    (device_row, b.limit.name, b.limit.start_hz, b.limit.stop_hz, b.limit.max_vswr,
-                     b.worst_vswr, b.worst_frequency_hz, b.mean_vswr, b.worst_return_loss_db,
-                     b.expanded_uncertainty, b.verdict.value, b.decision_rule)
-                    for b in result.bands
-                ],
-            )
+            for b in result.bands:
+                self._run(db, "INSERT INTO band_results VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                          (device_row, b.limit.name, b.limit.start_hz, b.limit.stop_hz, b.limit.max_vswr,
+                           b.worst_vswr, b.worst_frequency_hz, b.mean_vswr, b.worst_return_loss_db,
+                           b.expanded_uncertainty, b.verdict.value, b.decision_rule))
+            for (band, metric), (value, unit) in (metrics or {}).items():
+                self._run(db, "INSERT INTO band_metrics VALUES (?, ?, ?, ?, ?)", (device_row, band, metric, value, unit))
         return device_row
 
-    def finish_run(self, run_id: str, status: str, finished_utc: str) -> None:
-        with self._db:
-            self._db.execute("UPDATE runs SET status = ?, finished_utc = ? WHERE run_id = ?",
-                             (status, finished_utc, run_id))
+    # -- reading ------------------------------------------------------------------------------------
+
+    def rows(self, sql: str, parameters: tuple[object, ...] = ()) -> list[dict[str, Any]]:
+        """Rows as dictionaries keyed by column name (read-only use)."""
+        with self._lock:
+            cursor = self._db.execute(self.dialect.render(sql), parameters)
+            names = [column[0] for column in cursor.description]
+            return [dict(zip(names, row, strict=True)) for row in cursor.fetchall()]
 
     def query(self, sql: str, parameters: tuple[object, ...] = ()) -> list[tuple[object, ...]]:
-        """Read-only helper for reports and tests."""
-        return list(self._db.execute(sql, parameters))
+        """Rows as tuples (read-only use)."""
+        with self._lock:
+            return list(self._db.execute(self.dialect.render(sql), parameters))
 
     def close(self) -> None:
-        self._db.close()
+        with self._lock:
+            self._db.close()
+
+    def __enter__(self) -> ResultStore:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()

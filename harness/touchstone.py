@@ -21,26 +21,72 @@ import numpy as np
 from lineproof.errors import InputError
 
 TAG = "lineproof:"
+#: The process's file-creation mask, read once at import (reading it means setting it).
+_UMASK = os.umask(0o022)
+os.umask(_UMASK)
 _KEY = re.compile(r"^[a-z0-9][a-z0-9_.\-]*$")
 #: Serial numbers become file names: letters, digits, '.', '_' and '-' only, no leading dot.
 SERIAL_PATTERN = re.compile(r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$")
+SERIAL_RULE = "use 1-64 letters, digits, '.', '_' or '-', starting with a letter or digit, with no '..'"
+
+
+#: Names that Windows reserves for devices, in any case and with any extension (Microsoft,
+#: "Naming Files, Paths, and Namespaces"): a result file must never be called ``CON.s1p``.
+_RESERVED_STEMS = frozenset(
+    ["con", "prn", "aux", "nul"] + [f"com{i}" for i in range(10)] + [f"lpt{i}" for i in range(10)]
+)
+
+
+def serial_problem(serial: object) -> str | None:
+    """What makes ``serial`` unusable as a file name and a record key, or None if it is fine."""
+    if not isinstance(serial, str):
+        return f"a serial number must be text, got {type(serial).__name__}"
+    shown = serial if len(serial) <= 40 else f"{serial[:40]}... ({len(serial)} characters)"
+    if not SERIAL_PATTERN.match(serial) or ".." in serial:
+        return f"serial number {shown!r} is not allowed"
+    if serial.split(".")[0].lower() in _RESERVED_STEMS:
+        return f"serial number {shown!r} is a name the operating system reserves"
+    return None
 
 
 def check_serial(serial: str, where: str = "serial") -> str:
     """Return ``serial`` if it is safe as a file name and a record key, else InputError."""
-    if not isinstance(serial, str) or not SERIAL_PATTERN.match(serial) or ".." in serial:
-        shown = serial if isinstance(serial, str) and len(serial) <= 40 else f"{str(serial)[:40]}..."
+    problem = serial_problem(serial)
+    if problem is not None:
         raise InputError(
-            f"serial number {shown!r} is not allowed",
+            problem,
             key=where,
-            fix="use 1-64 letters, digits, '.', '_' or '-', starting with a letter or digit, with no '..'",
+            fix=SERIAL_RULE,
         )
     return serial
 
 
+_ESCAPED = re.compile(r"\\(\\|u[0-9a-fA-F]{4}|U[0-9a-fA-F]{8})")
+
+
 def _clean_value(value: object) -> str:
-    text = str(value)
-    return " ".join(text.replace("!", "(excl)").split())
+    """One line of ASCII text: whitespace runs become one space, '!' is spelt out, and a
+    backslash, a control character or a character beyond ASCII is escaped (\\\\, \\uXXXX) -- Touchstone files are ASCII."""
+    text = " ".join(str(value).replace("!", "(excl)").split())
+    escaped = []
+    for char in text:
+        if char == "\\":
+            escaped.append("\\\\")
+        elif 32 <= ord(char) < 127:
+            escaped.append(char)
+        elif ord(char) <= 0xFFFF:
+            escaped.append(f"\\u{ord(char):04x}")
+        else:
+            escaped.append(f"\\U{ord(char):08x}")
+    return "".join(escaped)
+
+
+def _unescape(text: str) -> str:
+    def replace(match: re.Match[str]) -> str:
+        body = match.group(1)
+        return "\\" if body == "\\" else chr(int(body[1:], 16))
+
+    return _ESCAPED.sub(replace, text)
 
 
 def format_header(metadata: Iterable[tuple[str, object]]) -> str:
@@ -60,25 +106,33 @@ def format_one_port(frequencies_hz: np.ndarray, reflection: np.ndarray, z0: floa
     return format_header(metadata) + f"# Hz S RI R {z0:g}\n" + body
 
 
-def write_new_file(folder: Path, stem: str, suffix: str, text: str) -> Path:
+def make_readable(descriptor: int) -> None:
+    """Give a file made by ``tempfile.mkstemp`` (owner-only) the usual permissions (umask)."""
+    if hasattr(os, "fchmod"):
+        os.fchmod(descriptor, 0o666 & ~_UMASK)
+
+
+def write_new_file(folder: Path, stem: str, suffix: str, text: str, encoding: str = "ascii") -> Path:
     """Write ``text`` to ``folder/stem.suffix`` atomically, never replacing a file.
 
     The data goes to a temporary file in the same folder, is flushed and fsync'ed, then
     linked under its final name (a hard link fails if the name exists, so an existing
-    result is never overwritten; a second result for the same stem gets ``-2``, ``-3``...).
+    result is never overwritten; a second result for the same stem gets ``~2``, ``~3``...:
+    '~' is not allowed in a serial number, so such a name never collides with another serial's).
     """
     folder.mkdir(parents=True, exist_ok=True)
     handle, temporary = tempfile.mkstemp(dir=folder, prefix=".partial-", suffix=suffix)
     try:
-        with os.fdopen(handle, "w", encoding="ascii", newline="\n") as stream:
+        make_readable(handle)
+        with os.fdopen(handle, "w", encoding=encoding, newline="\n") as stream:
             stream.write(text)
             stream.flush()
             os.fsync(stream.fileno())
         for attempt in range(1, 1000):
-            name = f"{stem}{suffix}" if attempt == 1 else f"{stem}-{attempt}{suffix}"
+            name = f"{stem}{suffix}" if attempt == 1 else f"{stem}~{attempt}{suffix}"
             target = folder / name
             try:
-                os.link(temporary, target)
+                _place_without_replacing(temporary, target)
             except FileExistsError:
                 continue
             _fsync_folder(folder)
@@ -89,6 +143,28 @@ def write_new_file(folder: Path, stem: str, suffix: str, text: str) -> Path:
             os.unlink(temporary)
         except FileNotFoundError:
             pass
+
+
+def _place_without_replacing(temporary: str, target: Path) -> None:
+    """Give the finished temporary file its final name; FileExistsError if the name is taken.
+
+    A hard link does it atomically.  Where the file system has no hard links (FAT, some network
+    shares), Windows' rename refuses an existing name by itself; elsewhere the name is first
+    reserved with an exclusive create and then replaced -- a kill between the two leaves an
+    empty file that no database row names, which a resumed run sets aside.
+    """
+    try:
+        os.link(temporary, target)
+        return
+    except FileExistsError:
+        raise
+    except OSError:
+        if os.name == "nt":
+            os.rename(temporary, target)
+            return
+    descriptor = os.open(target, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o666)
+    os.close(descriptor)
+    os.replace(temporary, target)
 
 
 def _fsync_folder(folder: Path) -> None:
@@ -114,7 +190,7 @@ def read_metadata(comments: str) -> dict[str, str]:
         # Keys never hold '='; the value may be empty (and then its trailing space is gone).
         key, separator, value = line[len(TAG):].partition("=")
         if separator:
-            found[key.strip()] = value.strip()
+            found[key.strip()] = _unescape(value.strip())
     return found
 
 

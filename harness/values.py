@@ -294,3 +294,44 @@ class DeviceResult:
     @property
     def verdict(self) -> Verdict:
         return Verdict.combine(tuple(b.verdict for b in self.bands))
+
+
+@dataclass(frozen=True)
+class VerificationBand:
+    """One band of a check-standard verification: measured |Γ| against the reference."""
+
+    name: str
+    start_hz: float
+    stop_hz: float
+    measured_reflection: float  # mean |Γ| over the band's points
+    reference_reflection: float  # mean reference |Γ| over the same points
+    worst_deviation: float  # largest | |Γ measured| - |Γ reference| | in the band
+    worst_frequency_hz: float
+    tolerance: float
+
+    @property
+    def passed(self) -> bool:
+        return self.worst_deviation <= self.tolerance
+
+
+@dataclass(frozen=True)
+class VerificationResult:
+    """A check standard measured with a calibration, judged band by band and over the sweep."""
+
+    check_standard: str
+    calibration_id: str
+    measured_utc: str
+    devices_before: int  # devices of the run measured before this check
+    sweep_worst_deviation: float
+    sweep_worst_frequency_hz: float
+    tolerance: float
+    bands: tuple[VerificationBand, ...]
+
+    @property
+    def passed(self) -> bool:
+        return self.sweep_worst_deviation <= self.tolerance and all(b.passed for b in self.bands)
+
+    def describe(self) -> str:
+        outcome = "passed" if self.passed else "FAILED"
+        return (f"{self.check_standard}: largest deviation of |Γ| {self.sweep_worst_deviation:.4f} at "
+                f"{self.sweep_worst_frequency_hz / 1e6:.3f} MHz, tolerance {self.tolerance:.4f} -> {outcome}")

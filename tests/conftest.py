@@ -72,3 +72,46 @@ def start_bench() -> Iterator[Callable[..., SimulatedBench]]:
     yield start
     for bench in started:
         bench.stop()
+
+
+SEQUENCES = Path(__file__).parent / "sequences"
+
+
+def write_sequence_variant(folder: Path, name: str = "batch.toml", replace: dict[str, str] | None = None,
+                           time_scale: float | None = None, bench_replace: dict[str, str] | None = None) -> Path:
+    """Write a copy of a test sequence into ``folder``, its bench path made absolute, with text
+    replacements; a bench ``time_scale`` (or ``bench_replace``) makes a private copy of the scenario too."""
+    text = (SEQUENCES / name).read_text(encoding="utf-8")
+    scenario = SCENARIOS / "batch-bench.toml"
+    if time_scale is not None or bench_replace:
+        changes = {"time_scale = 0.1": f"time_scale = {time_scale or 0.1}", **(bench_replace or {})}
+        scenario_text = scenario.read_text(encoding="utf-8")
+        for old, new in changes.items():
+            assert old in scenario_text, old
+            scenario_text = scenario_text.replace(old, new)
+        scenario = folder / "bench.toml"
+        scenario.write_text(scenario_text, encoding="utf-8")
+    text = text.replace('"../scenarios/batch-bench.toml"', f'"{scenario.as_posix()}"')
+    for old, new in (replace or {}).items():
+        assert old in text, old
+        text = text.replace(old, new)
+    path = folder / name
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+@pytest.fixture(scope="session")
+def sequence_writer() -> Callable[..., Path]:
+    """:func:`write_sequence_variant` itself, for fixtures wider than one test."""
+    return write_sequence_variant
+
+
+@pytest.fixture
+def sequence_variant(tmp_path: Path) -> Callable[..., Path]:
+    """:func:`write_sequence_variant` into the test's own tmp_path."""
+
+    def make(name: str = "batch.toml", replace: dict[str, str] | None = None, time_scale: float | None = None,
+             bench_replace: dict[str, str] | None = None) -> Path:
+        return write_sequence_variant(tmp_path, name, replace, time_scale, bench_replace)
+
+    return make

@@ -1,14 +1,21 @@
-"""`lineproof demo` as a user runs it: a subprocess in an empty folder."""
+"""`lineproof demo` as a user runs it: a subprocess in an empty folder.  The unattended flow on
+the switched demo bench: calibrate, qualify, verify, twelve meter heads, re-verify, report."""
 
 from __future__ import annotations
 
+import re
 import sqlite3
 import subprocess
 import sys
 from pathlib import Path
 
+import numpy as np
 import skrf
+from skrf.network import connect
 
+from lineproof.simulators.bench import SimulatedBench
+from lineproof.simulators.control import BenchControlClient
+from lineproof.store import unpack_arrays
 from lineproof.touchstone import read_metadata
 
 REQUIRED_KEYS = {
@@ -17,8 +24,9 @@ REQUIRED_KEYS = {
     "calibration.method", "calibration.kit", "termination.name", "termination.result",
     "band.2m.limit_vswr", "band.2m.verdict", "band.70cm.limit_vswr", "band.70cm.verdict", "verdict",
     "band.2m.expanded_uncertainty", "band.70cm.worst_upper_vswr", "termination.expanded_uncertainty",
-    "decision_rule", "uncertainty.method",
+    "decision_rule", "uncertainty.method", "verification.last.result", "reference_plane",
 }
+SERIALS = [f"TM150-{n:04d}" for n in range(101, 113)]
 
 
 def run_cli(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
@@ -26,13 +34,19 @@ def run_cli(*args: str, cwd: Path) -> subprocess.CompletedProcess[str]:
                           text=True, timeout=120)
 
 
-def test_demo_writes_readable_touchstone_files_and_database(tmp_path: Path) -> None:
+def complex_of(value: dict) -> np.ndarray:
+    return np.array(value["re"]) + 1j * np.array(value["im"])
+
+
+def test_demo_runs_the_unattended_flow_and_says_where_the_report_is(tmp_path: Path) -> None:
     completed = run_cli("demo", "--out", "results", cwd=tmp_path)
     assert completed.returncode == 0, completed.stderr
-    assert "worst VSWR" in completed.stdout and "TM150-0004" in completed.stdout
+    assert "worst VSWR" in completed.stdout and "TM150-0104" in completed.stdout
+    report = re.search(r"^Report: (\S+report\.html)$", completed.stdout, re.MULTILINE)
+    assert report and (tmp_path / report.group(1)).is_file()
     files = sorted((tmp_path / "results" / "runs").glob("*/*.s1p"))
-    assert len(files) == 6
-    verdicts = {}
+    assert [p.stem for p in files] == SERIALS
+    verdicts, measured = {}, {}
     for path in files:
         network = skrf.Network(str(path))
         assert network.nports == 1 and network.f.size == 401
@@ -40,21 +54,40 @@ def test_demo_writes_readable_touchstone_files_and_database(tmp_path: Path) -> N
         assert REQUIRED_KEYS <= set(metadata), REQUIRED_KEYS - set(metadata)
         assert metadata["device.serial"] == path.stem
         assert metadata["analyzer.resource"].startswith("TCPIP::127.0.0.1::")
-        assert metadata["termination.result"] == "qualified"
+        assert metadata["termination.result"] == "qualified" and metadata["verification.last.result"] == "passed"
         assert metadata["decision_rule"].startswith("guard-banded acceptance, ILAC-G8:09/2019")
         verdicts[path.stem] = metadata["verdict"]
-    # The scenario's unit 0004 has a 44-ohm through-line: it must fail.  Unit 0006 was made
-    # close to its limits: with the uncertainty in view it may not be called a clear pass.
-    # The others are well inside their limits and pass.
-    assert verdicts.pop("TM150-0004") == "fail"
-    assert verdicts.pop("TM150-0006") in {"pass", "indeterminate"}
+        measured[path.stem] = network.s[:, 0, 0]
+    # The scenario's truth (simulated-instruments/scenarios/demo-switch.toml): 0104 fails in
+    # 420-450 MHz, 0109 fails both bands by a little, 0107 passes near the 420-450 MHz limit.
+    # With the uncertainty in view, a near miss may be indeterminate -- never a clear pass.
+    assert verdicts.pop("TM150-0104") == "fail"
+    assert verdicts.pop("TM150-0109") in {"fail", "indeterminate"}
+    assert verdicts.pop("TM150-0107") in {"pass", "indeterminate"}
     assert set(verdicts.values()) == {"pass"}
     with sqlite3.connect(tmp_path / "results" / "results.sqlite") as db:
-        rows = db.execute("SELECT serial, verdict, touchstone FROM devices ORDER BY serial").fetchall()
+        rows = db.execute("SELECT serial, touchstone, uncertainty FROM devices ORDER BY serial").fetchall()
+        checks = db.execute("SELECT devices_before, passed FROM verifications ORDER BY verification_id").fetchall()
         status = db.execute("SELECT status FROM runs").fetchall()
-    assert [r[0] for r in rows] == [p.stem for p in files]
-    assert all((tmp_path / "results" / r[2]).is_file() for r in rows)
-    assert status == [("complete",)]
+    assert [r[0] for r in rows] == SERIALS and all((tmp_path / "results" / r[1]).is_file() for r in rows)
+    assert checks == [(0, 1), (6, 1), (12, 1)] and status == [("complete",)]
+
+    # Against the bench's hidden truth: each device's true as-terminated input reflection --
+    # its true S-parameters with the true termination on its output, joined by scikit-rf's
+    # ``network.connect`` -- lies within the expanded uncertainty the run recorded, at (nearly) every point.
+    grid = {"start_hz": 100e6, "stop_hz": 500e6, "points": 401}
+    frequency = skrf.Frequency.from_f(np.linspace(100e6, 500e6, 401), unit="Hz")
+    with SimulatedBench("demo-switch") as bench, BenchControlClient(bench.control_address) as control:
+        load = skrf.Network(frequency=frequency, s=complex_of(
+            control.request("truth_s", object="good-termination", **grid)["s"]["s11"]))
+        for serial, _, packed in rows:
+            s = {k: complex_of(v) for k, v in control.request("truth_s", object=serial, **grid)["s"].items()}
+            device = skrf.Network(frequency=frequency, s=np.stack(
+                [np.stack([s["s11"], s["s12"]], -1), np.stack([s["s21"], s["s22"]], -1)], -2))
+            truth = connect(device, 1, load, 0).s[:, 0, 0]
+            expanded = unpack_arrays(packed)["expanded_uncertainty"]
+            inside = np.abs(np.abs(measured[serial]) - np.abs(truth)) <= expanded
+            assert np.mean(inside) >= 0.95, serial
 
 
 def test_demo_refuses_a_worn_termination(tmp_path: Path) -> None:
@@ -68,4 +101,6 @@ def test_version_and_help(tmp_path: Path) -> None:
     version = run_cli("--version", cwd=tmp_path)
     assert version.returncode == 0 and version.stdout.startswith("lineproof ")
     help_text = run_cli("--help", cwd=tmp_path)
-    assert help_text.returncode == 0 and "demo" in help_text.stdout
+    assert help_text.returncode == 0
+    for command in ("demo", "run", "check", "report", "results"):
+        assert command in help_text.stdout

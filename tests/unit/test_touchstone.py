@@ -38,9 +38,9 @@ def test_metadata_survives_scikit_rf(tmp_path: Path) -> None:
 def test_never_overwrites_and_leaves_no_partial_files(tmp_path: Path) -> None:
     first = write_new_file(tmp_path, "X1", ".s1p", "a")
     second = write_new_file(tmp_path, "X1", ".s1p", "b")
-    assert first.name == "X1.s1p" and second.name == "X1-2.s1p"
+    assert first.name == "X1.s1p" and second.name == "X1~2.s1p"
     assert first.read_text() == "a" and second.read_text() == "b"
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["X1-2.s1p", "X1.s1p"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["X1.s1p", "X1~2.s1p"]
 
 
 @pytest.mark.parametrize("serial", ["../../x", "a/b", ".hidden", "", "x" * 300, "A..B", "sp ace", "tab\t"])
@@ -57,3 +57,17 @@ def test_ordinary_serials_pass(serial: str) -> None:
 def test_metadata_keys_are_checked() -> None:
     with pytest.raises(ValueError):
         format_one_port(np.array([1e8]), np.array([0j]), 50.0, [("Bad Key", "x")])
+
+
+def test_without_hard_links_a_file_is_still_never_replaced(tmp_path: Path, monkeypatch) -> None:  # noqa: ANN001
+    import os
+
+    def no_links(source: str, target: object) -> None:
+        raise PermissionError("this file system has no hard links")
+
+    monkeypatch.setattr(os, "link", no_links)
+    first = write_new_file(tmp_path, "X1", ".s1p", "a")
+    second = write_new_file(tmp_path, "X1", ".s1p", "b")
+    assert (first.name, second.name) == ("X1.s1p", "X1~2.s1p")
+    assert first.read_text() == "a" and second.read_text() == "b"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["X1.s1p", "X1~2.s1p"]

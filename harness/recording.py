@@ -1,0 +1,240 @@
+"""Recording a measured device: its Touchstone file with the full metadata header, its
+database rows and its journal line -- in that order, so that a run killed at any moment
+leaves either a whole record or a file that a resumed run sets aside and measures again.
+
+The header carries everything DESIGN.md's "Records" asks for, each line behind the fixed
+``!lineproof:`` tag (see :mod:`lineproof.touchstone`).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import shutil
+from collections.abc import Mapping
+from dataclasses import dataclass
+from datetime import datetime
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from lineproof import metrics
+from lineproof.journal import RunJournal
+from lineproof.store import ResultStore
+from lineproof.touchstone import format_one_port, write_new_file
+from lineproof.values import (
+    CalibrationRecord,
+    DeviceResult,
+    InstrumentIdentity,
+    SweepPlan,
+    TerminationQualification,
+    VerificationResult,
+)
+
+#: Where files of a device that was measured but never committed are set aside on resume.
+SET_ASIDE = "uncommitted"
+_PARTIAL_PREFIX = ".partial-"
+
+
+@dataclass(frozen=True)
+class RunFacts:
+    """What is the same for every device of a run."""
+
+    run_id: str
+    software: str
+    sequence_name: str
+    sequence_file: str
+    sequence_sha256: str
+    station: str
+    operator: str
+    analyzer: InstrumentIdentity
+    profile: str
+    plan: SweepPlan
+    reference_plane: str
+    decision_rule: str
+
+
+@dataclass(frozen=True)
+class MeasurementBasis:
+    """What a device's measurement rests on: the calibration, the qualified termination and the
+    last passing check of that calibration."""
+
+    calibration: CalibrationRecord
+    qualification: TerminationQualification
+    qualification_id: int
+    qualification_utc: str
+    verification: VerificationResult | None = None
+    verification_id: int | None = None
+    #: The termination's measured trace and uncertainty (a ``steps.QualifiedTermination``).
+    termination_data: Any = None
+
+
+@dataclass(frozen=True)
+class RecordedDevice:
+    result: DeviceResult
+    position: int
+    file: Path
+    row: int
+
+
+def _age_seconds(since_utc: str, until_utc: str) -> float:
+    return (datetime.fromisoformat(until_utc) - datetime.fromisoformat(since_utc)).total_seconds()
+
+
+def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResult, position: int,
+                    uncertainty: np.ndarray | None) -> list[tuple[str, object]]:
+    """The metadata header of one device's Touchstone file, in reading order."""
+    plan, cal, q = facts.plan, basis.calibration, basis.qualification
+    items: list[tuple[str, object]] = [
+        ("software", facts.software),
+        ("run.id", facts.run_id),
+        ("sequence", facts.sequence_name),
+        ("sequence.file", facts.sequence_file),
+        ("sequence.sha256", facts.sequence_sha256),
+        ("station", facts.station),
+        ("operator", facts.operator),
+        ("device.serial", result.device.serial),
+        ("device.model", result.device.model),
+        ("device.position", position),
+        ("measured_utc", result.measured_utc),
+        ("data", f"as-terminated input reflection, device output on {q.name}"),
+        ("reference_plane", facts.reference_plane),
+        ("analyzer.identity", facts.analyzer.describe()),
+        ("analyzer.resource", facts.analyzer.resource),
+        ("analyzer.profile", facts.profile),
+        ("sweep.start_hz", f"{plan.start_hz:.10g}"),
+        ("sweep.stop_hz", f"{plan.stop_hz:.10g}"),
+        ("sweep.points", plan.points),
+        ("sweep.if_bandwidth_hz", f"{plan.if_bandwidth_hz:g}"),
+        ("sweep.power_dbm", "instrument default" if plan.power_dbm is None else f"{plan.power_dbm:g}"),
+        ("calibration.id", cal.calibration_id),
+        ("calibration.method", cal.method),
+        ("calibration.kit", cal.kit_name),
+        ("calibration.kit_sha256", cal.kit_hash),
+        ("calibration.created_utc", cal.created_utc),
+        ("calibration.age_s", f"{_age_seconds(cal.created_utc, result.measured_utc):.0f}"),
+        ("termination.name", q.name),
+        ("termination.worst_vswr", f"{q.worst_vswr:.4f}"),
+        ("termination.worst_frequency_hz", f"{q.worst_frequency_hz:.10g}"),
+        ("termination.limit_vswr", f"{q.limit_vswr:.3f}"),
+        ("termination.expanded_uncertainty",
+         "not evaluated" if q.expanded_uncertainty is None else f"{q.expanded_uncertainty:.5f}"),
+        ("termination.result", "qualified" if q.passed else "rejected"),
+        ("termination.qualified_utc", basis.qualification_utc),
+    ]
+    items += _verification_items(basis.verification, position)
+    for band in result.bands:
+        prefix = f"band.{band.limit.name}"
+        items += [
+            (f"{prefix}.range_hz", f"{band.limit.start_hz:.10g}..{band.limit.stop_hz:.10g}"),
+            (f"{prefix}.limit_vswr", f"{band.limit.max_vswr:.3f}"),
+            (f"{prefix}.worst_vswr", f"{band.worst_vswr:.4f}"),
+            (f"{prefix}.worst_frequency_hz", f"{band.worst_frequency_hz:.10g}"),
+            (f"{prefix}.mean_vswr", f"{band.mean_vswr:.4f}"),
+            (f"{prefix}.worst_return_loss_db", f"{band.worst_return_loss_db:.2f}"),
+            (f"{prefix}.expanded_uncertainty",
+             "not evaluated" if band.expanded_uncertainty is None else f"{band.expanded_uncertainty:.5f}"),
+            (f"{prefix}.worst_upper_vswr", "not evaluated" if band.worst_upper_reflection is None
+             else f"{float(metrics.vswr_from_reflection(band.worst_upper_reflection)):.4f}"),
+            (f"{prefix}.verdict", band.verdict.value),
+        ]
+    items += _uncertainty_items(uncertainty)
+    items += sorted(result.extra.items())
+    items += [("decision_rule", result.bands[0].decision_rule if result.bands else facts.decision_rule),
+              ("verdict", result.verdict.value)]
+    return items
+
+
+def _verification_items(verification: VerificationResult | None, position: int) -> list[tuple[str, object]]:
+    if verification is None:
+        return [("verification.last", "none in this sequence")]
+    return [
+        ("verification.last.utc", verification.measured_utc),
+        ("verification.last.check_standard", verification.check_standard),
+        ("verification.last.worst_deviation", f"{verification.sweep_worst_deviation:.5f}"),
+        ("verification.last.tolerance", f"{verification.tolerance:.5f}"),
+        ("verification.last.result", "passed" if verification.passed else "failed"),
+        # devices measured after that check and before this one
+        ("verification.last.devices_between", position - 1 - verification.devices_before),
+    ]
+
+
+#: How the uncertainty of every point is found (see :mod:`lineproof.uncertainty`).
+UNCERTAINTY_METHOD = ("GUM (JCGM 100:2008) propagation of the kit's stated deviations, connector repeatability, "
+                      "trace noise and the termination's own mismatch; EURAMET cg-12 v3.0 residual-error model")
+
+
+def _uncertainty_items(uncertainty: np.ndarray | None) -> list[tuple[str, object]]:
+    if uncertainty is None:
+        return [("uncertainty", "not evaluated"), ("uncertainty.method", "none")]
+    return [
+        ("uncertainty", "expanded uncertainty of |reflection| at every point"),
+        ("uncertainty.method", UNCERTAINTY_METHOD),
+        ("uncertainty.coverage", "expanded, k = 2 (95.45 %), k from the distribution where a bounded term dominates"),
+        ("uncertainty.max_reflection", f"{float(np.max(uncertainty)):.5f}"),
+        ("uncertainty.mean_reflection", f"{float(np.mean(uncertainty)):.5f}"),
+    ]
+
+
+def band_metrics(result: DeviceResult) -> dict[tuple[str, str], tuple[float, str]]:
+    """Further per-band figures kept in the database (``band_metrics``)."""
+    found: dict[tuple[str, str], tuple[float, str]] = {}
+    for band in result.bands:
+        found[(band.limit.name, "worst_mismatch_loss")] = (float(metrics.mismatch_loss_db(band.worst_reflection)), "dB")
+        found[(band.limit.name, "mean_return_loss")] = (float(metrics.return_loss_db(band.mean_reflection)), "dB")
+        found[(band.limit.name, "worst_reflection")] = (band.worst_reflection, "1")
+    return found
+
+
+class RunFolder:
+    """``<records>/runs/<run id>/``: the run's Touchstone files, journal and sequence copy."""
+
+    def __init__(self, records: Path, run_id: str) -> None:
+        self.records = records
+        self.path = records / "runs" / run_id
+
+    def relative(self, path: Path, database: Path) -> str:
+        """A path as the database keeps it: relative to the database's folder."""
+        return Path(os.path.relpath(path, database.parent)).as_posix()
+
+    def tidy(self, committed: set[str]) -> list[str]:
+        """Before a run resumes: delete temporary files a kill left, and set aside any result
+        file the database does not hold (it was written, then the run died before commit).
+        Returns the names set aside."""
+        if not self.path.is_dir():
+            return []
+        moved = []
+        for entry in sorted(self.path.iterdir()):
+            if entry.name.startswith(_PARTIAL_PREFIX) and entry.is_file():
+                entry.unlink()
+            elif entry.suffix.lower() in (".s1p", ".s2p") and entry.name not in committed:
+                aside = self.path / SET_ASIDE
+                aside.mkdir(exist_ok=True)
+                target = aside / entry.name
+                number = 1
+                while target.exists():
+                    number += 1
+                    target = aside / f"{entry.stem}~{number}{entry.suffix}"
+                shutil.move(str(entry), str(target))
+                moved.append(entry.name)
+        return moved
+
+
+def record_device(store: ResultStore, journal: RunJournal, folder: RunFolder, facts: RunFacts,
+                  basis: MeasurementBasis, result: DeviceResult, position: int, frequencies: np.ndarray,
+                  corrected: np.ndarray, uncertainty: np.ndarray | None = None,
+                  extra_metrics: Mapping[tuple[str, str], tuple[float, str]] | None = None) -> RecordedDevice:
+    """Write the file (atomically, never over another), commit the rows, journal the commit."""
+    text = format_one_port(frequencies, corrected, basis.calibration.reference_impedance_ohm,
+                           device_metadata(facts, basis, result, position, uncertainty))
+    path = write_new_file(folder.path, result.device.serial, ".s1p", text)
+    digest = hashlib.sha256(text.encode("ascii")).hexdigest()
+    row = store.record_device(
+        facts.run_id, result, folder.relative(path, store.path), position=position,
+        calibration_id=basis.calibration.calibration_id, qualification_id=basis.qualification_id,
+        verification_id=basis.verification_id, file_sha256=digest, uncertainty=uncertainty,
+        metrics={**band_metrics(result), **(extra_metrics or {})},
+    )
+    journal.write("device-committed", serial=result.device.serial, position=position, file=path.name, row=row)
+    return RecordedDevice(result, position, path, row)

@@ -1,0 +1,234 @@
+"""Run reports: a self-contained HTML page (tables and embedded PNG plots), a CSV with one row
+per device and band, and a JSON summary -- all read back from the records of one run.
+
+Every piece of user text is HTML-escaped; CSV text cells that a spreadsheet would read as a
+formula are prefixed with an apostrophe (OWASP, "CSV Injection").
+"""
+
+from __future__ import annotations
+
+import base64
+import csv
+import html
+import io
+import json
+import os
+import tempfile
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from lineproof import __version__
+from lineproof.report_data import DeviceRecord, RunRecords
+from lineproof.report_plots import device_plot, overlay_plot
+from lineproof.touchstone import make_readable
+
+_STYLE = """
+body { font-family: system-ui, sans-serif; margin: 2em auto; max-width: 62em; color: #222; }
+h1 { font-size: 1.5em; } h2 { font-size: 1.2em; margin-top: 2em; border-bottom: 1px solid #ccc; }
+table { border-collapse: collapse; margin: 0.5em 0; font-size: 0.9em; }
+th, td { border: 1px solid #ccc; padding: 0.25em 0.6em; text-align: left; vertical-align: top; }
+th { background: #f0f3f7; } td.num { text-align: right; font-variant-numeric: tabular-nums; }
+.pass { color: #2a7d2a; font-weight: 600; } .fail { color: #c0392b; font-weight: 600; }
+.indeterminate { color: #d68910; font-weight: 600; } .note { color: #555; font-size: 0.9em; }
+img { max-width: 100%; } dl { display: grid; grid-template-columns: max-content auto; gap: 0.2em 1em; }
+dt { font-weight: 600; }
+"""
+
+
+@dataclass(frozen=True)
+class ReportFiles:
+    html: Path
+    csv: Path
+    json: Path
+
+
+def _e(value: object) -> str:
+    return html.escape("" if value is None else str(value))
+
+
+def _verdict(value: object) -> str:
+    text = _e(value)
+    return f'<span class="{text}">{text}</span>'
+
+
+def _number(value: object, digits: int = 4) -> str:
+    return "" if value is None else f"{float(value):.{digits}f}"  # type: ignore[arg-type]
+
+
+def _table(headers: Sequence[str], rows: Iterable[Sequence[str]], numeric: frozenset[int] = frozenset()) -> str:
+    head = "".join(f"<th>{_e(h)}</th>" for h in headers)
+    body = "".join(
+        "<tr>" + "".join(f'<td class="num">{cell}</td>' if i in numeric else f"<td>{cell}</td>"
+                         for i, cell in enumerate(row)) + "</tr>"
+        for row in rows)
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def _image(png: bytes, alt: str) -> str:
+    return f'<img alt="{_e(alt)}" src="data:image/png;base64,{base64.b64encode(png).decode("ascii")}">'
+
+
+def _run_section(records: RunRecords) -> str:
+    run, counts = records.run, records.counts
+    items = [
+        ("run", run["run_id"]), ("status", run["status"] + (f" ({run['status_reason']})" if run.get("status_reason") else "")),
+        ("sequence", run["sequence_name"]), ("sequence SHA-256", run.get("sequence_sha256")),
+        ("station", run["station"]), ("operator", run["operator"]),
+        ("analyzer", f"{run['analyzer']} at {run['resource']} (profile {run.get('analyzer_profile')})"),
+        ("sweep", run["sweep_plan"]), ("reference plane", run.get("reference_plane")),
+        ("decision rule", run.get("decision_rule")), ("started / finished (UTC)", f"{run['started_utc']} / {run.get('finished_utc') or '-'}"),
+        ("devices", f"{counts['total']}: {counts['pass']} passed, {counts['fail']} failed, "
+                    f"{counts['indeterminate']} indeterminate"),
+    ]
+    return "<dl>" + "".join(f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in items) + "</dl>"
+
+
+def _verdict_table(records: RunRecords) -> str:
+    rows = []
+    for device in records.devices:
+        for index, band in enumerate(device.bands):
+            first = index == 0
+            rows.append([
+                _e(device.row["position"]) if first else "", _e(device.serial) if first else "",
+                _e(device.row["model"]) if first else "", _e(band["band"]), _number(band["worst_vswr"]),
+                _number(band["worst_frequency_hz"] / 1e6, 3), _number(band["limit_vswr"], 3),
+                _number(band["expanded_uncertainty"], 5), _verdict(band["verdict"]),
+                _verdict(device.row["verdict"]) if first else "",
+            ])
+    headers = ["#", "serial", "model", "band", "worst VSWR", "at MHz", "limit", "U(|Γ|), k=2", "band", "device"]
+    return _table(headers, rows, frozenset({0, 4, 5, 6, 7}))
+
+
+def _calibration_section(records: RunRecords) -> str:
+    calibrations = _table(
+        ["calibration", "made (UTC)", "method", "kit", "analyzer", "sweep"],
+        ([_e(c["calibration_id"]), _e(c["created_utc"]), _e(c["method"]), _e(f"{c['kit_name']} ({c['kit_sha256'][:12]})"),
+          _e(c["analyzer"]), _e(f"{c['start_hz'] / 1e6:g}-{c['stop_hz'] / 1e6:g} MHz, {c['points']} points")]
+         for c in records.calibrations))
+    qualifications = _table(
+        ["termination", "measured (UTC)", "calibration", "worst VSWR", "at MHz", "limit", "result"],
+        ([_e(q["termination"]), _e(q["measured_utc"]), _e(q["calibration_id"]), _number(q["worst_vswr"]),
+          _number(q["worst_frequency_hz"] / 1e6, 3), _number(q["limit_vswr"], 3),
+          _verdict("pass" if q["passed"] else "fail")] for q in records.qualifications),
+        frozenset({3, 4, 5}))
+    return f"<h2>Calibration</h2>{calibrations}<h2>Termination qualification</h2>{qualifications}"
+
+
+def _verification_section(records: RunRecords) -> str:
+    if not records.verifications:
+        return "<h2>Verification</h2><p class='note'>This sequence has no check-standard verification.</p>"
+    rows = []
+    for check in records.verifications:
+        bands = records.verification_bands.get(int(check["verification_id"]), [])
+        per_band = "; ".join(f"{b['band']}: |Γ| {b['measured_reflection']:.4f} vs {b['reference_reflection']:.4f}"
+                             for b in bands)
+        rows.append([_e(check["measured_utc"]), _e(check["devices_before"]), _e(check["check_standard"]),
+                     _number(check["worst_deviation"], 5), _number(check["worst_frequency_hz"] / 1e6, 3),
+                     _number(check["tolerance"], 5), _verdict("pass" if check["passed"] else "fail"), _e(per_band)])
+    headers = ["measured (UTC)", "after devices", "check standard", "largest |Δ|Γ||", "at MHz", "tolerance",
+               "result", "per band"]
+    return "<h2>Verification</h2>" + _table(headers, rows, frozenset({1, 3, 4, 5}))
+
+
+def _plots_section(records: RunRecords) -> str:
+    parts = ["<h2>Batch overlay</h2>"]
+    readable = [d for d in records.devices if d.reflection is not None]
+    if readable:
+        parts.append(_image(overlay_plot(readable, records.band_limits), "VSWR of every device"))
+    parts.append("<h2>Devices</h2>")
+    for device in records.devices:
+        if device.reflection is None:
+            parts.append(f"<p class='note'>{_e(device.serial)}: {_e(device.problem)}</p>")
+            continue
+        parts.append(_image(device_plot(device, records.band_limits), f"VSWR of {device.serial}"))
+        if device.uncertainty is None:
+            parts.append(f"<p class='note'>{_e(device.serial)}: uncertainty not evaluated (simple acceptance).</p>")
+    return "".join(parts)
+
+
+def render_html(records: RunRecords) -> str:
+    run_id = records.run["run_id"]
+    return (
+        f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>lineproof report {_e(run_id)}</title>"
+        f"<style>{_STYLE}</style></head><body><h1>Run report: {_e(records.run['sequence_name'])}</h1>"
+        f"{_run_section(records)}<h2>Verdicts</h2>{_verdict_table(records)}{_calibration_section(records)}"
+        f"{_verification_section(records)}{_plots_section(records)}"
+        f"<p class='note'>Written by lineproof {_e(__version__)} from the run's records.</p></body></html>"
+    )
+
+
+def _safe_cell(value: object) -> object:
+    if isinstance(value, str) and value[:1] in ("=", "+", "-", "@", "\t", "\r"):
+        return "'" + value
+    return value
+
+
+def render_csv(records: RunRecords) -> str:
+    stream = io.StringIO()
+    writer = csv.writer(stream, lineterminator="\n")
+    writer.writerow(["run_id", "position", "serial", "model", "measured_utc", "device_verdict", "band", "start_hz",
+                     "stop_hz", "limit_vswr", "worst_vswr", "worst_frequency_hz", "mean_vswr", "worst_return_loss_db",
+                     "expanded_uncertainty", "band_verdict", "decision_rule", "calibration_id", "touchstone"])
+    for device in records.devices:
+        row = device.row
+        for band in device.bands:
+            writer.writerow([_safe_cell(v) for v in (
+                row["run_id"], row["position"], row["serial"], row["model"], row["measured_utc"], row["verdict"],
+                band["band"], band["start_hz"], band["stop_hz"], band["limit_vswr"], band["worst_vswr"],
+                band["worst_frequency_hz"], band["mean_vswr"], band["worst_return_loss_db"],
+                band["expanded_uncertainty"], band["verdict"], band["decision_rule"], row["calibration_id"],
+                row["touchstone"])])
+    return stream.getvalue()
+
+
+def _device_json(device: DeviceRecord) -> dict[str, Any]:
+    row = device.row
+    return {
+        "position": row["position"], "serial": row["serial"], "model": row["model"], "verdict": row["verdict"],
+        "measured_utc": row["measured_utc"], "touchstone": row["touchstone"], "file_sha256": row["file_sha256"],
+        "calibration_id": row["calibration_id"], "suspect": bool(row.get("suspect")),
+        "bands": [{k: b[k] for k in ("band", "start_hz", "stop_hz", "limit_vswr", "worst_vswr", "worst_frequency_hz",
+                                     "mean_vswr", "worst_return_loss_db", "expanded_uncertainty", "verdict")}
+                  for b in device.bands],
+    }
+
+
+def render_json(records: RunRecords) -> str:
+    def plain(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
+        return [{k: v for k, v in r.items() if not isinstance(v, bytes)} for r in rows]
+
+    summary = {
+        "software": f"lineproof {__version__}", "run": plain([records.run])[0], "counts": records.counts,
+        "calibrations": plain(records.calibrations), "qualifications": plain(records.qualifications),
+        "verifications": [{**plain([c])[0], "bands": plain(records.verification_bands.get(int(c["verification_id"]), []))}
+                          for c in records.verifications],
+        "devices": [_device_json(d) for d in records.devices],
+    }
+    return json.dumps(summary, indent=2)
+
+
+def _replace_file(path: Path, text: str) -> None:
+    """Write a derived file atomically (a report may replace an older report of the same run)."""
+    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=".partial-", suffix=path.suffix)
+    try:
+        make_readable(handle)
+        with os.fdopen(handle, "w", encoding="utf-8", newline="\n") as stream:
+            stream.write(text)
+            stream.flush()
+            os.fsync(stream.fileno())
+        os.replace(temporary, path)
+    except BaseException:
+        Path(temporary).unlink(missing_ok=True)
+        raise
+
+
+def write_report(records: RunRecords, folder: Path) -> ReportFiles:
+    """``report.html``, ``summary.csv`` and ``summary.json`` in ``folder``."""
+    folder.mkdir(parents=True, exist_ok=True)
+    files = ReportFiles(folder / "report.html", folder / "summary.csv", folder / "summary.json")
+    _replace_file(files.html, render_html(records))
+    _replace_file(files.csv, render_csv(records))
+    _replace_file(files.json, render_json(records))
+    return files

@@ -1,0 +1,94 @@
+"""Everything a report shows about one run, read back from the records: the database rows and
+each device's Touchstone file (its trace), never from memory of the run."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from lineproof.errors import InputError
+from lineproof.store import ResultStore, unpack_arrays
+from lineproof.touchstone import read_metadata
+
+
+@dataclass
+class DeviceRecord:
+    row: dict[str, Any]
+    bands: list[dict[str, Any]]
+    file: Path
+    frequencies_hz: np.ndarray | None = None
+    reflection: np.ndarray | None = None  # complex, as recorded
+    uncertainty: np.ndarray | None = None  # expanded (k = 2) |Γ| per point, when evaluated
+    metadata: dict[str, str] = field(default_factory=dict)
+    problem: str | None = None  # why the trace could not be read, if it could not
+
+    @property
+    def serial(self) -> str:
+        return str(self.row["serial"])
+
+
+@dataclass
+class RunRecords:
+    run: dict[str, Any]
+    devices: list[DeviceRecord]
+    calibrations: list[dict[str, Any]]
+    qualifications: list[dict[str, Any]]
+    verifications: list[dict[str, Any]]
+    verification_bands: dict[int, list[dict[str, Any]]]
+    band_limits: list[dict[str, Any]]
+
+    @property
+    def counts(self) -> dict[str, int]:
+        counts = {"total": len(self.devices), "pass": 0, "fail": 0, "indeterminate": 0}
+        for device in self.devices:
+            counts[str(device.row["verdict"])] = counts.get(str(device.row["verdict"]), 0) + 1
+        return counts
+
+
+def _read_trace(record: DeviceRecord) -> None:
+    import skrf
+
+    try:
+        network = skrf.Network(str(record.file))
+    except Exception as exc:  # a missing or damaged file is reported in the report, not fatal
+        record.problem = f"cannot read {record.file.name}: {type(exc).__name__}: {exc}"[:200]
+        return
+    record.frequencies_hz = np.asarray(network.f, dtype=float)
+    record.reflection = np.asarray(network.s[:, 0, 0])
+    record.metadata = read_metadata(network.comments)
+
+
+def load_run_records(store: ResultStore, run_id: str, read_traces: bool = True) -> RunRecords:
+    """A run's records; InputError when the database has no such run."""
+    run = store.run(run_id)
+    if run is None:
+        raise InputError(f"no run {run_id} in this database", path=str(store.path),
+                         fix="check the run id (lineproof results --runs lists them) and --records")
+    base = store.path.parent
+    devices = []
+    for row in store.rows("SELECT * FROM devices WHERE run_id = ? ORDER BY position, device_row", (run_id,)):
+        bands = store.rows("SELECT * FROM band_results WHERE device_row = ? ORDER BY start_hz", (row["device_row"],))
+        record = DeviceRecord(row, bands, base / str(row["touchstone"]))
+        if row.get("uncertainty"):
+            record.uncertainty = unpack_arrays(row["uncertainty"]).get("expanded_uncertainty")
+        if read_traces:
+            _read_trace(record)
+        devices.append(record)
+    verifications = store.rows("SELECT * FROM verifications WHERE run_id = ? ORDER BY verification_id", (run_id,))
+    bands: dict[int, list[dict[str, Any]]] = {}
+    for check in verifications:
+        bands[int(check["verification_id"])] = store.rows(
+            "SELECT * FROM verification_bands WHERE verification_id = ? ORDER BY start_hz", (check["verification_id"],))
+    calibrations = store.rows(
+        "SELECT calibration_id, created_utc, method, kit_name, kit_sha256, analyzer, station, start_hz, stop_hz, points,"
+        " if_bandwidth_hz, reference_impedance_ohm, file FROM calibrations WHERE run_id = ?"
+        " OR calibration_id IN (SELECT calibration_id FROM devices WHERE run_id = ?) ORDER BY created_utc",
+        (run_id, run_id))
+    qualifications = store.rows("SELECT * FROM qualifications WHERE run_id = ? ORDER BY qualification_id", (run_id,))
+    limits = store.rows(
+        "SELECT DISTINCT band, start_hz, stop_hz, limit_vswr FROM band_results WHERE device_row IN"
+        " (SELECT device_row FROM devices WHERE run_id = ?) ORDER BY start_hz", (run_id,))
+    return RunRecords(run, devices, calibrations, qualifications, verifications, bands, limits)

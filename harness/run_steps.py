@@ -1,0 +1,357 @@
+"""The steps of a run, in the order a sequence lists them, with the batch's re-verification.
+
+Each step calls :mod:`lineproof.steps` (calibrate, qualify, measure) and
+:mod:`lineproof.verification` through the analyzer and operator interfaces, records what it
+did, and tells the view.  In an unattended batch the recording of one device (correction,
+judging, Touchstone file, database rows, journal line) runs on a worker thread while the next
+device is routed and swept, so the analyzer is never idle waiting for the disk.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from collections.abc import Callable
+from concurrent.futures import Future, ThreadPoolExecutor
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+
+import numpy as np
+
+from lineproof import calibration, steps
+from lineproof.calkit import load_kit
+from lineproof.errors import InputError, RunHalted
+from lineproof.interfaces import Operator
+from lineproof.journal import RunJournal
+from lineproof.operators import ConsoleOperator
+from lineproof.recording import MeasurementBasis, RecordedDevice, RunFacts, RunFolder, record_device
+from lineproof.run_view import RunView
+from lineproof.sequence import DeviceUnit, SequenceSpec, StepSpec, resolve_path
+from lineproof.stations import OpenStation
+from lineproof.steps import QualifiedTermination
+from lineproof.store import ResultStore
+from lineproof.values import CalibrationRecord, DeviceIdentity, VerificationResult
+from lineproof.verification import reference_magnitude, verify_with_check_standard
+
+
+class StopSignal:
+    """Set by Ctrl-C (or a stop typed at a prompt); the run stops between devices."""
+
+    def __init__(self) -> None:
+        self.requested = False
+        self.at_prompt = False
+
+
+@dataclass
+class RunState:
+    """Where the run stands; filled from the database and journal when it resumes."""
+
+    calibration: CalibrationRecord | None = None
+    qualification: tuple[QualifiedTermination, int, str] | None = None  # result, row id, UTC
+    last_check: tuple[VerificationResult, int] | None = None  # the last *passing* check and its id
+    reuse_calibration: bool = False
+    steps_done: set[int] = field(default_factory=set)
+    measured: int = 0  # devices acquired in this run (all sessions)
+    taken: set[str] = field(default_factory=set)  # serials committed in this run, lower case
+    checked_at_devices: int = 0
+    checked_at_utc: datetime = field(default_factory=lambda: datetime.now(UTC))
+
+
+class _ProgressOperator:
+    """Passes connections through to the real operator and advances the step's progress;
+    ``after_connect`` (when set) runs once each connection is made."""
+
+    def __init__(self, inner: Operator, view: RunView) -> None:
+        self.inner = inner
+        self.view = view
+        self.after_connect: Callable[[], None] | None = None
+
+    def connect(self, port: int, thing: str, output: str | None, instruction: str, reversed: bool = False) -> None:
+        if reversed:
+            self.inner.connect(port, thing, output, instruction, reversed=True)
+        else:
+            self.inner.connect(port, thing, output, instruction)
+        self.view.step_advanced(instruction)
+        if self.after_connect is not None:
+            self.after_connect()
+
+
+#: How long a recording waits after the next connection before it starts (see ``_after_trigger``).
+_TRIGGER_HEAD_START_S = 0.001
+
+
+class _RecordingPipeline:
+    """Records one device while the next is swept.
+
+    A device's recording is handed over when it has been measured, and started when the next
+    connection is made -- that is, just before the next sweep, when the main thread is about to
+    wait for the analyzer and does not compete for the interpreter.  ``overlap=False`` records
+    each device at once, in the calling thread (attended runs: the line shows before the prompt).
+    """
+
+    def __init__(self, overlap: bool) -> None:
+        self._executor = ThreadPoolExecutor(1, thread_name_prefix="lineproof-record") if overlap else None
+        self._waiting: Callable[[], None] | None = None
+        self._pending: Future[None] | None = None
+
+    def submit(self, work: Callable[[], None]) -> None:
+        if self._executor is None:
+            work()
+            return
+        self.drain()
+        self._waiting = work
+
+    def start(self) -> None:
+        """Start the waiting recording (called once the next connection is made)."""
+        waiting, self._waiting = self._waiting, None
+        if waiting is not None and self._executor is not None:
+            self._pending = self._executor.submit(self._after_trigger, waiting)
+
+    @staticmethod
+    def _after_trigger(work: Callable[[], None]) -> None:
+        # Let the main thread trigger the sweep first: recording is mostly Python and would hold
+        # the interpreter for up to its switch interval (5 ms) while the sweep waits to start.
+        time.sleep(_TRIGGER_HEAD_START_S)
+        work()
+
+    def drain(self) -> None:
+        """Wait until every recording handed over is done (and raise what it raised)."""
+        self.start()
+        pending, self._pending = self._pending, None
+        if pending is not None:
+            pending.result()
+
+    def close(self) -> None:
+        try:
+            self.drain()
+        finally:
+            if self._executor is not None:
+                self._executor.shutdown(wait=True)
+
+
+class StepRunner:
+    """Carries out a sequence's steps on an open station, recording as it goes."""
+
+    def __init__(self, spec: SequenceSpec, station: OpenStation, store: ResultStore, journal: RunJournal,
+                 folder: RunFolder, facts: RunFacts, view: RunView, stop: StopSignal, state: RunState) -> None:
+        self.spec = spec
+        self.station = station
+        self.store = store
+        self.journal = journal
+        self.folder = folder
+        self.facts = facts
+        self.view = view
+        self.stop = stop
+        self.state = state
+        self.recorded: list[RecordedDevice] = []
+        self._record_lock = threading.Lock()
+        self._pipeline: _RecordingPipeline | None = None
+        self._reference: np.ndarray | None = None
+        self.measuring = steps.Station(station.analyzer, _ProgressOperator(station.operator, view),  # type: ignore[arg-type]
+                                       station.identity, spec.plan, station.spec.analyzer.port,
+                                       station.spec.uncertainty)
+
+    def run(self) -> None:
+        """Every step in order; raises RunHalted when a step finds the run must not go on."""
+        self.station.analyzer.configure(self.spec.plan)
+        self.view.note(f"analyzer: {self.station.identity.describe()} at {self.station.identity.resource}")
+        self.view.note(f"sweep: {self.spec.plan.describe()}")
+        handlers: dict[str, Callable[[int, StepSpec], None]] = {
+            "identify": self._identify, "calibrate": self._calibrate, "qualify-termination": self._qualify,
+            "verify": self._verify_step, "measure-batch": self._batch, "message": self._message, "route": self._route,
+        }
+        for index, step in enumerate(self.spec.steps):
+            if self.stop.requested:
+                return
+            handlers[step.action](index, step)
+            self.state.steps_done.add(index)
+            self.journal.write("step-done", index=index, action=step.action)
+
+    # -- simple steps ---------------------------------------------------------------------------
+
+    def _identify(self, index: int, step: StepSpec) -> None:
+        now = self.station.analyzer.identify()
+        before = self.station.identity
+        if (now.manufacturer, now.model, now.serial) != (before.manufacturer, before.model, before.serial):
+            raise RunHalted(f"the analyzer now answering is {now.describe()}, not {before.describe()}; "
+                            "reconnect the analyzer the run started with")
+        self.view.step_finished(f"identified: {now.describe()}")
+
+    def _message(self, index: int, step: StepSpec) -> None:
+        if index in self.state.steps_done:
+            return
+        operator = self.station.operator
+        if isinstance(operator, ConsoleOperator):
+            operator.acknowledge(step.text)
+        else:
+            self.view.note(f"message: {step.text}")
+
+    def _route(self, index: int, step: StepSpec) -> None:
+        assert step.target is not None
+        self.measuring.operator.connect(self.measuring.port, step.target, None, f"Connect {step.target} to port "
+                                      f"{self.measuring.port}")
+        self.view.step_finished(f"routed to {step.target}")
+
+    # -- calibration, qualification, verification -------------------------------------------------
+
+    def _calibrate(self, index: int, step: StepSpec) -> None:
+        state = self.state
+        if state.reuse_calibration and state.calibration is not None:
+            self.journal.write("calibrated", calibration_id=state.calibration.calibration_id, reused=True)
+            self.view.step_finished(f"calibration {state.calibration.calibration_id} kept: still valid")
+            return
+        cal_spec = self.spec.calibration
+        assert cal_spec is not None
+        path = resolve_path(cal_spec.kit, self.spec)
+        if path is None:
+            raise InputError("cal kit file not found", path=cal_spec.kit, key="calibration.kit")
+        kit = load_kit(path)
+        self.view.step_started(f"calibrating ({cal_spec.method}, kit {kit.name})", total=3)
+        cal = steps.calibrate(self.measuring, kit, cal_spec.method)
+        self.store.save_calibration(self.facts.run_id, cal, self.facts.station)
+        self.journal.write("calibrated", calibration_id=cal.calibration_id, reused=False)
+        state.calibration, state.qualification, state.last_check = cal, None, None
+        state.reuse_calibration = False
+        self.view.step_finished(f"calibrated: {cal.method}, kit {kit.name} -> {cal.calibration_id}")
+
+    def _qualify(self, index: int, step: StepSpec) -> None:
+        state, termination = self.state, self.spec.termination
+        assert termination is not None and state.calibration is not None
+        if state.reuse_calibration and state.qualification is not None:
+            self.view.qualification(state.qualification[0].qualification, reused=True)
+            return
+        self.view.step_started(f"qualifying termination {termination.name}", total=1)
+        qualified = steps.measure_termination(self.measuring, state.calibration, termination.name, termination.max_vswr)
+        measured_utc = datetime.now(UTC).isoformat(timespec="seconds")
+        trace = {"frequencies_hz": qualified.frequencies_hz, "reflection": qualified.reflection,
+                 "standard_uncertainty": qualified.standard_uncertainty,
+                 "expanded_uncertainty": qualified.expanded_uncertainty}
+        row = self.store.record_qualification(self.facts.run_id, state.calibration.calibration_id,
+                                              qualified.qualification, measured_utc, trace)
+        self.journal.write("qualified", qualification_id=row, passed=qualified.qualification.passed)
+        state.qualification = (qualified, row, measured_utc)
+        self.view.step_finished("")
+        self.view.qualification(qualified.qualification, reused=False)
+
+    def _verify_step(self, index: int, step: StepSpec) -> None:
+        if self.state.reuse_calibration and self.state.last_check is not None:
+            self.view.verification(self.state.last_check[0], reused=True)
+            return
+        self.verify()
+
+    def verify(self) -> None:
+        """Measure the check standard with the calibration in use; a failed check halts the run."""
+        check, state = self.spec.check_standard, self.state
+        assert check is not None and state.calibration is not None
+        if self._reference is None:
+            path = resolve_path(check.reference_file, self.spec) if check.reference_file else None
+            self._reference = reference_magnitude(self.spec.plan.frequencies(), path, check.reference_vswr)
+        self.view.step_started(f"verifying with check standard {check.name}", total=1)
+        result = verify_with_check_standard(self.measuring, state.calibration, check.name, self._reference,
+                                            check.tolerance, self.spec.bands, state.measured)
+        if self._pipeline is not None:
+            self._pipeline.drain()  # recorded during the check's sweep: the lines stay in order
+        row = self.store.record_verification(self.facts.run_id, result, self.facts.station,
+                                             self.station.identity.describe())
+        self.journal.write("verified", verification_id=row, passed=result.passed, devices_before=state.measured)
+        self.view.step_finished("")
+        self.view.verification(result, reused=False)
+        state.checked_at_devices, state.checked_at_utc = state.measured, datetime.now(UTC)
+        if not result.passed:
+            raise RunHalted(
+                f"check standard {check.name} failed verification after {state.measured} device(s): "
+                f"|Γ| off its reference by {result.sweep_worst_deviation:.4f} at "
+                f"{result.sweep_worst_frequency_hz / 1e6:.3f} MHz (tolerance {check.tolerance:.4f}). The calibration "
+                "no longer holds; results since the last passing check are in doubt. Check the connections and "
+                "resume the run: it will calibrate again")
+        state.last_check = (result, row)
+
+    def _check_due(self) -> bool:
+        reverify, state = self.spec.reverify, self.state
+        since = state.measured - state.checked_at_devices
+        if reverify.every_devices is not None and since >= reverify.every_devices:
+            return True
+        minutes = (datetime.now(UTC) - state.checked_at_utc).total_seconds() / 60.0
+        return reverify.every_minutes is not None and since > 0 and minutes >= reverify.every_minutes
+
+    # -- the batch ----------------------------------------------------------------------------------
+
+    def _basis(self) -> MeasurementBasis:
+        state = self.state
+        if state.calibration is None or state.qualification is None:
+            raise RunHalted("the batch needs a calibration and a qualified termination first")
+        qualified, row, measured_utc = state.qualification
+        check = state.last_check
+        return MeasurementBasis(state.calibration, qualified.qualification, row, measured_utc,
+                                check[0] if check else None, check[1] if check else None, qualified)
+
+    def _batch(self, index: int, step: StepSpec) -> None:
+        devices, termination = self.spec.devices, self.spec.termination
+        assert devices is not None and termination is not None
+        overlap = not isinstance(self.station.operator, ConsoleOperator)
+        pipeline = self._pipeline = _RecordingPipeline(overlap)
+        self.measuring.operator.after_connect = pipeline.start  # type: ignore[attr-defined]
+        try:
+            for unit in self._units():
+                if self._check_due():
+                    self.verify()
+                self._measure_one(unit, termination.name, pipeline)
+                if self.stop.requested:
+                    break
+            if not self.stop.requested and self.spec.reverify.at_end and self.state.measured > self.state.checked_at_devices:
+                self.verify()
+        finally:
+            self.measuring.operator.after_connect = None  # type: ignore[attr-defined]
+            self._pipeline = None
+            pipeline.close()
+
+    def _units(self):  # -> Iterator[DeviceUnit]
+        devices = self.spec.devices
+        assert devices is not None
+        if devices.entry == "listed":
+            for unit in devices.units:
+                if self.stop.requested:
+                    return
+                if unit.serial.lower() not in self.state.taken:
+                    yield unit
+            return
+        operator = self.station.operator
+        assert isinstance(operator, ConsoleOperator) and self.spec.termination is not None
+        while not self.stop.requested:
+            if devices.max_count is not None and len(self.state.taken) >= devices.max_count:
+                self.view.note(f"batch complete: {devices.max_count} device(s), the most this sequence takes")
+                return
+            serial = operator.scan_device(self.measuring.port, devices.model, self.spec.termination.name, self.state.taken)
+            if serial is None:
+                return
+            yield DeviceUnit(serial, devices.model, None, "scanned")
+
+    def _measure_one(self, unit: DeviceUnit, termination: str, pipeline: _RecordingPipeline) -> None:
+        device = DeviceIdentity(unit.serial, unit.model)
+        basis = self._basis()
+        self.view.step_started(f"{unit.serial}: connect and sweep", total=2)
+        if self.spec.devices is not None and self.spec.devices.entry == "listed":
+            self.measuring.operator.connect(
+                self.measuring.port, unit.serial, termination,
+                f"Connect {unit.model} s/n {unit.serial} to port {self.measuring.port}, its output on {termination}")
+        frequencies, raw = self.measuring.measure_raw()
+        self.view.step_advanced("swept")
+        self.state.measured += 1
+        self.state.taken.add(unit.serial.lower())
+        position = self.state.measured
+        pipeline.submit(lambda: self._record(device, position, frequencies, raw, basis))
+
+    def _record(self, device: DeviceIdentity, position: int, frequencies: np.ndarray, raw: np.ndarray,
+                basis: MeasurementBasis) -> None:
+        """Correct, judge with the uncertainty of every point (the termination's own mismatch
+        included), and record."""
+        corrected = calibration.correct_one_port(basis.calibration, frequencies, raw)
+        spread = steps.device_uncertainty(self.measuring, basis.calibration, frequencies, corrected,
+                                          basis.termination_data)
+        result = steps.judge(device, frequencies, corrected, self.spec.bands, self.spec.decision_rule,  # type: ignore[arg-type]
+                             spread.expanded, termination=basis.qualification)
+        recorded = record_device(self.store, self.journal, self.folder, self.facts, basis, result, position,
+                                 frequencies, corrected, spread.expanded)
+        with self._record_lock:
+            self.recorded.append(recorded)
+        self.view.device_recorded(recorded)

@@ -1,0 +1,208 @@
+"""What a person or a line system sees of a run.
+
+:class:`ConsoleRunView` draws rich progress bars for the run and the current step, prints a
+live line per device with its verdict, and asks the operator's questions with the bars out of
+the way.  :class:`JsonRunView` writes one JSON object per event to standard output for a line
+system (prompts, when a person is needed, go to standard error).  Both are called from the
+run's threads; each serialises its own output.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+import threading
+from typing import Any, Protocol, TextIO
+
+from lineproof.recording import RecordedDevice
+from lineproof.values import TerminationQualification, VerificationResult
+
+
+class RunView(Protocol):
+    def run_started(self, run_id: str, sequence: str, station: str, planned: int | None, resumed: bool) -> None: ...
+    def step_started(self, label: str, total: int | None = None) -> None: ...
+    def step_advanced(self, note: str = "") -> None: ...
+    def step_finished(self, text: str) -> None: ...
+    def device_recorded(self, recorded: RecordedDevice) -> None: ...
+    def qualification(self, result: TerminationQualification, reused: bool) -> None: ...
+    def verification(self, result: VerificationResult, reused: bool) -> None: ...
+    def note(self, text: str) -> None: ...
+    def ask(self, prompt: str) -> str | None: ...
+    def run_finished(self, summary: dict[str, Any]) -> None: ...
+    def close(self) -> None: ...
+
+
+def device_line(recorded: RecordedDevice) -> str:
+    """One line per device: position, serial, verdict and each band's worst VSWR against its limit."""
+    result = recorded.result
+    bands = "  ".join(f"{b.limit.name} {b.worst_vswr:.3f} (limit {b.limit.max_vswr:.2f}) {b.verdict.value}"
+                      for b in result.bands)
+    return f"{recorded.position:>4}  {result.device.serial:<16} {result.verdict.value.upper():<13} {bands}"
+
+
+def _read_line(stream: TextIO) -> str | None:
+    line = stream.readline()
+    return None if line == "" else line.rstrip("\r\n")
+
+
+class ConsoleRunView:
+    """Progress bars and live lines on a terminal (plain lines when output is not a terminal)."""
+
+    def __init__(self, out: TextIO | None = None, stdin: TextIO | None = None) -> None:
+        from rich.console import Console
+        from rich.progress import BarColumn, MofNCompleteColumn, Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
+
+        self._stdin = stdin or sys.stdin
+        self.console = Console(file=out or sys.stdout, highlight=False, soft_wrap=True)
+        self._progress = Progress(
+            SpinnerColumn(), TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+            TimeElapsedColumn(), console=self.console, transient=True, disable=not self.console.is_terminal,
+        )
+        self._run_task: Any = None
+        self._step_task: Any = None
+        self._lock = threading.RLock()
+        self._started = False
+
+    def _print(self, text: str, style: str | None = None) -> None:
+        with self._lock:
+            self.console.print(text, style=style, markup=False)
+
+    def run_started(self, run_id: str, sequence: str, station: str, planned: int | None, resumed: bool) -> None:
+        self._print(f"{'resuming' if resumed else 'run'} {run_id}: {sequence} on {station}", "bold")
+        with self._lock:
+            self._run_task = self._progress.add_task("devices recorded", total=planned)
+            self._progress.start()
+            self._started = True
+
+    def step_started(self, label: str, total: int | None = None) -> None:
+        with self._lock:
+            if self._step_task is not None:
+                self._progress.remove_task(self._step_task)
+            self._step_task = self._progress.add_task(label, total=total)
+
+    def step_advanced(self, note: str = "") -> None:
+        with self._lock:
+            if self._step_task is not None:
+                self._progress.advance(self._step_task)
+
+    def step_finished(self, text: str) -> None:
+        with self._lock:
+            if self._step_task is not None:
+                self._progress.remove_task(self._step_task)
+                self._step_task = None
+        if text:
+            self._print(text)
+
+    def device_recorded(self, recorded: RecordedDevice) -> None:
+        style = {"pass": "green", "fail": "red"}.get(recorded.result.verdict.value, "yellow")
+        self._print(device_line(recorded), style)
+        with self._lock:
+            if self._run_task is not None:
+                self._progress.advance(self._run_task)
+
+    def qualification(self, result: TerminationQualification, reused: bool) -> None:
+        self._print(f"termination {result.describe()}{' (kept from before the interruption)' if reused else ''}")
+
+    def verification(self, result: VerificationResult, reused: bool) -> None:
+        kept = " (kept from before the interruption)" if reused else ""
+        self._print(f"check after {result.devices_before} device(s): {result.describe()}{kept}",
+                    None if result.passed else "bold red")
+
+    def note(self, text: str) -> None:
+        self._print(text)
+
+    def ask(self, prompt: str) -> str | None:
+        with self._lock:
+            if self._started:
+                self._progress.stop()
+            self.console.print(f"\n>>> {prompt}", style="bold cyan", markup=False)
+            self.console.print("> ", end="", markup=False)
+            self.console.file.flush()
+        try:
+            return _read_line(self._stdin)
+        finally:
+            with self._lock:
+                if self._started:
+                    self._progress.start()
+
+    def run_finished(self, summary: dict[str, Any]) -> None:
+        self.close()
+        counts = summary.get("counts", {})
+        self._print(f"\nrun {summary['run_id']} {summary['status']}"
+                    + (f": {summary['reason']}" if summary.get("reason") else ""), "bold")
+        self._print(f"{counts.get('total', 0)} device(s): {counts.get('pass', 0)} passed, {counts.get('fail', 0)} failed, "
+                    f"{counts.get('indeterminate', 0)} indeterminate")
+        for label, key in (("Touchstone files", "run_folder"), ("Results database", "database"), ("Report", "report")):
+            if summary.get(key):
+                self._print(f"{label}: {summary[key]}")
+        if summary.get("resume_command"):
+            self._print(f"To continue: {summary['resume_command']}", "bold")
+        if summary.get("report_command"):
+            self._print(f"For the report: {summary['report_command']}")
+
+    def close(self) -> None:
+        with self._lock:
+            if self._started:
+                self._progress.stop()
+                self._started = False
+
+
+class JsonRunView:
+    """One JSON object per line on standard output, for a line system."""
+
+    def __init__(self, out: TextIO | None = None, prompts: TextIO | None = None, stdin: TextIO | None = None) -> None:
+        self._out = out or sys.stdout
+        self._prompts = prompts or sys.stderr
+        self._stdin = stdin or sys.stdin
+        self._lock = threading.RLock()
+
+    def _emit(self, event: str, **fields: Any) -> None:
+        with self._lock:
+            self._out.write(json.dumps({"event": event, **fields}) + "\n")
+            self._out.flush()
+
+    def run_started(self, run_id: str, sequence: str, station: str, planned: int | None, resumed: bool) -> None:
+        self._emit("run-started", run_id=run_id, sequence=sequence, station=station, planned_devices=planned,
+                   resumed=resumed)
+
+    def step_started(self, label: str, total: int | None = None) -> None:
+        self._emit("step-started", step=label)
+
+    def step_advanced(self, note: str = "") -> None:
+        pass
+
+    def step_finished(self, text: str) -> None:
+        if text:
+            self._emit("step-finished", text=text)
+
+    def device_recorded(self, recorded: RecordedDevice) -> None:
+        result = recorded.result
+        self._emit("device", position=recorded.position, serial=result.device.serial, model=result.device.model,
+                   verdict=result.verdict.value, measured_utc=result.measured_utc, file=str(recorded.file),
+                   bands=[{"band": b.limit.name, "worst_vswr": round(b.worst_vswr, 5), "limit_vswr": b.limit.max_vswr,
+                           "worst_frequency_hz": b.worst_frequency_hz, "verdict": b.verdict.value} for b in result.bands])
+
+    def qualification(self, result: TerminationQualification, reused: bool) -> None:
+        self._emit("termination", name=result.name, worst_vswr=round(result.worst_vswr, 5),
+                   limit_vswr=result.limit_vswr, passed=result.passed, reused=reused)
+
+    def verification(self, result: VerificationResult, reused: bool) -> None:
+        self._emit("verification", check_standard=result.check_standard, devices_before=result.devices_before,
+                   worst_deviation=round(result.sweep_worst_deviation, 6), tolerance=result.tolerance,
+                   passed=result.passed, reused=reused)
+
+    def note(self, text: str) -> None:
+        self._emit("note", text=text)
+
+    def ask(self, prompt: str) -> str | None:
+        self._emit("prompt", text=prompt)
+        with self._lock:
+            self._prompts.write(f">>> {prompt}\n> ")
+            self._prompts.flush()
+        return _read_line(self._stdin)
+
+    def run_finished(self, summary: dict[str, Any]) -> None:
+        self._emit("run-finished", **summary)
+
+    def close(self) -> None:
+        pass

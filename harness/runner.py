@@ -1,0 +1,385 @@
+"""A run from start to finish, and the resumption of an interrupted one.
+
+A run is recorded in three places that agree: the results database (the authority: a device
+is committed when its transaction is), the run folder ``<records>/runs/<run id>/`` (a copy of
+the sequence, the journal, one Touchstone file per committed device) and the journal.
+:func:`start_run` opens the station, creates the records and carries out the steps;
+:func:`resume_run` continues a run that stopped -- Ctrl-C, a halt, a crash, a kill -- without
+losing or repeating a device, keeping the calibration only while it is still valid.
+
+Statuses: ``running``, ``complete``, ``interrupted`` (stopped between devices),
+``halted`` (a step found the run must not go on), ``failed`` (an instrument or input error).
+Every status but ``complete`` can be resumed.
+"""
+
+from __future__ import annotations
+
+import getpass
+import os
+import re
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any
+
+from lineproof import __version__, calstore
+from lineproof.calkit import load_kit
+from lineproof.errors import CalibrationError, InputError, LineproofError, RunHalted
+from lineproof.journal import JOURNAL_NAME, RunJournal, read_journal
+from lineproof.operators import StopRequested
+from lineproof.recording import RecordedDevice, RunFacts, RunFolder
+from lineproof.run_steps import RunState, StepRunner, StopSignal
+from lineproof.run_view import RunView
+from lineproof.sequence import SequenceSpec, check_sequence_text, resolve_path
+from lineproof.stations import OpenStation, open_station
+from lineproof.steps import QualifiedTermination
+from lineproof.store import ResultStore, open_store, unpack_arrays
+from lineproof.touchstone import write_new_file
+from lineproof.values import CalibrationRecord, InstrumentIdentity, TerminationQualification, VerificationResult
+
+DEFAULT_RECORDS = Path("lineproof-records")
+DATABASE_NAME = "results.sqlite"
+SEQUENCE_COPY = "sequence.toml"
+STATION_COPY = "station.toml"
+RUN_ID_PATTERN = re.compile(r"^run-[0-9]{8}T[0-9]{6}Z-[0-9a-f]{6}$")
+
+
+@dataclass(frozen=True)
+class RunOptions:
+    records: Path | None = None  # --records: overrides the sequence's [records] folder
+    operator: str = ""  # --operator: who runs it (recorded)
+    station_file: Path | None = None  # --station: replaces the sequence's [station]
+
+
+@dataclass
+class RunOutcome:
+    run_id: str
+    status: str
+    reason: str | None
+    records: Path
+    database: Path
+    run_folder: Path
+    recorded: list[RecordedDevice] = field(default_factory=list)
+    counts: dict[str, int] = field(default_factory=dict)
+
+    @property
+    def exit_code(self) -> int:
+        """0 all devices passed, 1 a device failed or was indeterminate, 2 the run did not complete."""
+        if self.status != "complete":
+            return 2
+        return 1 if self.counts.get("fail", 0) or self.counts.get("indeterminate", 0) else 0
+
+    def summary(self) -> dict[str, object]:
+        summary: dict[str, object] = {
+            "run_id": self.run_id, "status": self.status, "reason": self.reason, "counts": self.counts,
+            "exit_code": self.exit_code, "records": str(self.records), "database": str(self.database),
+            "run_folder": str(self.run_folder),
+        }
+        if self.status != "complete":
+            summary["resume_command"] = f"lineproof run --resume {self.run_id} --records {self.records}"
+        return summary
+
+
+def new_run_id() -> str:
+    return f"run-{datetime.now(UTC):%Y%m%dT%H%M%SZ}-{os.urandom(3).hex()}"
+
+
+def check_run_id(run_id: str) -> str:
+    if not isinstance(run_id, str) or not RUN_ID_PATTERN.match(run_id):
+        raise InputError(f"{run_id[:80]!r} is not a run id", key="run id",
+                         fix="give a run id as lineproof printed it, e.g. run-20260101T120000Z-1a2b3c")
+    return run_id
+
+
+def records_location(spec: SequenceSpec | None, option: Path | None) -> tuple[Path, Path]:
+    """The records folder and the database file: --records, else the sequence's [records]
+    (relative to the sequence's folder), else ./lineproof-records."""
+    if option is not None:
+        folder = Path(option)
+    elif spec is not None and spec.records_folder:
+        folder = spec.folder / spec.records_folder
+    else:
+        folder = DEFAULT_RECORDS
+    if folder.exists() and not folder.is_dir():
+        raise InputError("the records folder is a file", path=str(folder),
+                         fix="give a folder (new or one lineproof wrote to) with --records DIR")
+    database = spec.database if spec is not None and spec.database else DATABASE_NAME
+    if "://" in database:
+        open_store(database)  # refuses a URL this version cannot use, with the reason
+    return folder, folder / database
+
+
+def _operator_name(given: str) -> str:
+    if given.strip():
+        return " ".join(given.split())[:80]
+    try:
+        return f"{getpass.getuser()} (login name)"
+    except (OSError, KeyError):
+        return "not given"
+
+
+@contextmanager
+def _run_lock(folder: Path) -> Iterator[None]:
+    """One process per run at a time (POSIX advisory lock, released by the OS if killed)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    with open(folder / "run.lock", "a+") as handle:
+        try:
+            import fcntl
+        except ImportError:  # pragma: no cover - Windows: no advisory lock
+            yield
+            return
+        try:
+            fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError as exc:
+            raise InputError("this run is being carried out by another lineproof process", path=str(folder),
+                             fix="wait for it to finish, or stop it first") from exc
+        try:
+            yield
+        finally:
+            fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
+
+
+def _counts(store: ResultStore, run_id: str) -> dict[str, int]:
+    counts = {"total": 0, "pass": 0, "fail": 0, "indeterminate": 0}
+    for verdict, number in store.query("SELECT verdict, COUNT(*) FROM devices WHERE run_id = ? GROUP BY verdict",
+                                       (run_id,)):
+        counts[str(verdict)] = int(number)  # type: ignore[arg-type]
+        counts["total"] += int(number)  # type: ignore[arg-type]
+    return counts
+
+
+def _facts(spec: SequenceSpec, run_id: str, station: OpenStation, operator: str) -> RunFacts:
+    return RunFacts(
+        run_id=run_id, software=f"lineproof {__version__}", sequence_name=spec.name,
+        sequence_file=Path(spec.source).name, sequence_sha256=spec.sha256, station=station.spec.name,
+        operator=operator, analyzer=station.identity, profile=station.profile_name, plan=spec.plan,
+        reference_plane=station.spec.reference_plane, decision_rule=spec.decision_rule,
+    )
+
+
+def _execute(runner: StepRunner, store: ResultStore, journal: RunJournal, outcome: RunOutcome) -> RunOutcome:
+    """Carry out the steps; whatever happens, record how the run ended."""
+    status, reason = "failed", "stopped by an unexpected error"
+    raised: BaseException | None = None
+    try:
+        runner.run()
+        status, reason = ("interrupted", "stopped by Ctrl-C between devices") if runner.stop.requested else ("complete", None)
+    except StopRequested:
+        status, reason = "interrupted", "stopped at the operator's request"
+    except KeyboardInterrupt:
+        status, reason = "interrupted", "stopped by Ctrl-C"
+    except RunHalted as exc:
+        status, reason = "halted", str(exc)
+    except LineproofError as exc:
+        status, reason, raised = "failed", str(exc), exc
+    except BaseException as exc:
+        reason = f"stopped by an unexpected error ({type(exc).__name__}: {exc})"
+        raise
+    finally:
+        outcome.recorded = list(runner.recorded)
+        finished = datetime.now(UTC).isoformat(timespec="seconds") if status == "complete" else None
+        store.set_run_status(outcome.run_id, status, reason, finished)
+        journal.write("stopped", status=status, reason=reason)
+    outcome.status, outcome.reason = status, reason
+    outcome.counts = _counts(store, outcome.run_id)
+    if isinstance(raised, InputError):
+        raise raised
+    return outcome
+
+
+def _asker(view: RunView, stop: StopSignal) -> Callable[[str], str | None]:
+    def ask(prompt: str) -> str | None:
+        stop.at_prompt = True
+        try:
+            return view.ask(prompt)
+        finally:
+            stop.at_prompt = False
+
+    return ask
+
+
+def start_run(spec: SequenceSpec, options: RunOptions, view: RunView, stop: StopSignal) -> RunOutcome:
+    """A new run of ``spec`` (already checked)."""
+    records, database = records_location(spec, options.records)
+    operator = _operator_name(options.operator)
+    with open_store(database) as store, open_station(spec, _asker(view, stop)) as station:
+        run_id = new_run_id()
+        folder = RunFolder(records, run_id)
+        with _run_lock(folder.path):
+            write_new_file(folder.path, "sequence", ".toml", spec.text, encoding="utf-8")
+            if station.spec.source != spec.source:
+                station_text = Path(station.spec.source).read_text(encoding="utf-8")
+                write_new_file(folder.path, "station", ".toml", station_text, encoding="utf-8")
+            planned = len(spec.devices.units) if spec.devices and spec.devices.entry == "listed" else None
+            store.start_run({
+                "run_id": run_id, "started_utc": datetime.now(UTC).isoformat(timespec="seconds"), "status": "running",
+                "sequence_name": spec.name, "station": station.spec.name, "operator": operator,
+                "software_version": __version__, "analyzer": station.identity.describe(),
+                "resource": station.identity.resource, "sweep_plan": spec.plan.describe(),
+                "sequence_file": str(Path(spec.source).resolve()), "sequence_sha256": spec.sha256,
+                "station_file": None if station.spec.source == spec.source else str(Path(station.spec.source).resolve()),
+                "analyzer_profile": station.profile_name, "decision_rule": spec.decision_rule,
+                "reference_plane": station.spec.reference_plane, "run_folder": folder.relative(folder.path, database),
+                "planned_devices": planned,
+            })
+            journal = RunJournal(folder.path)
+            try:
+                journal.write("run-started", run_id=run_id, sequence=spec.name, sequence_sha256=spec.sha256,
+                              operator=operator, records=str(records))
+                view.run_started(run_id, spec.name, station.spec.name, planned, resumed=False)
+                facts = _facts(spec, run_id, station, operator)
+                runner = StepRunner(spec, station, store, journal, folder, facts, view, stop, RunState())
+                outcome = RunOutcome(run_id, "running", None, records, database, folder.path)
+                return _execute(runner, store, journal, outcome)
+            finally:
+                journal.close()
+
+
+# -- resuming -------------------------------------------------------------------------------------
+
+
+def _kept_sequence(folder: RunFolder, row: dict[str, object]) -> SequenceSpec:
+    """The sequence the run started with, from the copy in its folder (checked against the hash
+    the database holds), anchored at the original file's folder for its relative paths."""
+    copy = folder.path / SEQUENCE_COPY
+    try:
+        text = copy.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise InputError("the run's copy of its sequence is missing", path=str(copy),
+                         fix="restore the run folder from a backup") from exc
+    import hashlib
+
+    if hashlib.sha256(text.encode("utf-8")).hexdigest() != row["sequence_sha256"]:
+        raise InputError("the run's copy of its sequence differs from the one it started with", path=str(copy),
+                         fix="restore the file; a run continues only with the sequence it began")
+    station_copy = folder.path / STATION_COPY
+    station_text = None
+    if station_copy.is_file():
+        # Anchored, like the sequence, at the original file's folder for its relative paths.
+        station_text = (station_copy.read_text(encoding="utf-8"), str(row.get("station_file") or station_copy))
+    return check_sequence_text(text, str(row["sequence_file"]), station_text)
+
+
+def calibration_problem(cal: CalibrationRecord | None, spec: SequenceSpec, identity: InstrumentIdentity,
+                        last_check_passed: bool | None) -> str | None:
+    """Why a calibration from before the interruption cannot be kept, or None if it can."""
+    if cal is None or spec.calibration is None:
+        return "no calibration was finished"
+    try:
+        calstore.check_instrument(cal, identity)
+        calstore.check_age(cal, spec.calibration.valid_for_s)
+    except CalibrationError as exc:
+        return str(exc)
+    if cal.plan != spec.plan:
+        return "it was made for another sweep"
+    path = resolve_path(spec.calibration.kit, spec)
+    if path is None or load_kit(path).sha256 != cal.kit_hash:
+        return "the cal kit definition has changed since"
+    if last_check_passed is False:
+        return "its last check-standard verification failed"
+    return None
+
+
+def _kept_qualification(row: dict[str, Any]) -> tuple[QualifiedTermination, int, str]:
+    """A qualification from before the interruption, with its trace, as the batch uses it."""
+    trace = unpack_arrays(row["trace"])
+    qualification = TerminationQualification(row["termination"], row["worst_vswr"], row["worst_frequency_hz"],
+                                             row["limit_vswr"], row["expanded_uncertainty"])
+    qualified = QualifiedTermination(qualification, trace["frequencies_hz"], trace["reflection"],
+                                     trace["standard_uncertainty"], trace["expanded_uncertainty"])
+    return qualified, int(row["qualification_id"]), str(row["measured_utc"])
+
+
+def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dict[str, object],
+                   identity: InstrumentIdentity, steps_done: set[int]) -> tuple[RunState, str | None]:
+    state = RunState(steps_done=set(steps_done))
+    devices = store.rows("SELECT serial, position FROM devices WHERE run_id = ?", (run_id,))
+    state.taken = {str(d["serial"]).lower() for d in devices}
+    state.measured = max([int(d["position"] or 0) for d in devices] + [len(devices)])
+    cal_id = row.get("calibration_id")
+    try:
+        cal = store.load_calibration(str(cal_id)) if cal_id else None
+    except InputError as exc:
+        return state, f"its saved terms cannot be read ({exc.problem})"
+    checks = store.rows("SELECT * FROM verifications WHERE run_id = ? AND calibration_id = ? ORDER BY verification_id",
+                        (run_id, cal_id))
+    problem = calibration_problem(cal, spec, identity, bool(checks[-1]["passed"]) if checks else None)
+    if problem is not None:
+        return state, problem
+    state.calibration, state.reuse_calibration = cal, True
+    quals = store.rows("SELECT * FROM qualifications WHERE run_id = ? AND calibration_id = ? AND passed = 1"
+                       " ORDER BY qualification_id", (run_id, cal_id))
+    if quals and quals[-1]["trace"]:
+        state.qualification = _kept_qualification(quals[-1])
+    if checks:
+        c = checks[-1]
+        result = VerificationResult(c["check_standard"], c["calibration_id"], c["measured_utc"], int(c["devices_before"]),
+                                    c["worst_deviation"], c["worst_frequency_hz"], c["tolerance"], ())
+        state.last_check = (result, int(c["verification_id"]))
+        state.checked_at_devices = result.devices_before
+        state.checked_at_utc = datetime.fromisoformat(c["measured_utc"])
+    return state, None
+
+
+def _resumable(store: ResultStore, run_id: str, records: Path) -> tuple[dict[str, Any], RunFolder]:
+    """The run's row and folder, or InputError saying why it cannot be resumed."""
+    row = store.run(run_id)
+    if row is None:
+        raise InputError(f"no run {run_id} in this database", path=str(store.path),
+                         fix="check the run id (lineproof results lists runs) and --records")
+    if row["status"] == "complete":
+        raise InputError(f"run {run_id} is complete: there is nothing to resume", path=str(store.path),
+                         fix="start a new run with lineproof run SEQUENCE")
+    folder = RunFolder(records, run_id)
+    if not (folder.path / SEQUENCE_COPY).is_file():
+        raise InputError("the run's folder or its copy of the sequence is missing", path=str(folder.path),
+                         fix="give the records folder the run wrote to with --records DIR")
+    return row, folder
+
+
+def _tell_resumption(view: RunView, state: RunState, set_aside: list[str], folder: RunFolder, problem: str | None,
+                     spec: SequenceSpec) -> None:
+    view.note(f"{state.measured} device(s) already recorded; they will not be measured again")
+    if set_aside:
+        view.note(f"set aside {len(set_aside)} file(s) written but never committed: "
+                  f"{', '.join(set_aside)} (in {folder.path / 'uncommitted'})")
+    if problem is not None and spec.has_step("calibrate"):
+        view.note(f"the calibration cannot be kept ({problem}): calibrating again")
+
+
+def resume_run(run_id: str, options: RunOptions, view: RunView, stop: StopSignal,
+               spec_hint: SequenceSpec | None = None) -> RunOutcome:
+    """Continue run ``run_id`` from where it stopped."""
+    check_run_id(run_id)
+    records, database = records_location(spec_hint, options.records)
+    if not database.is_file():
+        raise InputError("no results database here", path=str(database),
+                         fix="give the records folder the run wrote to with --records DIR")
+    with open_store(database) as store:
+        row, folder = _resumable(store, run_id, records)
+        with _run_lock(folder.path):
+            spec = _kept_sequence(folder, row)
+            journal_state = read_journal(folder.path / JOURNAL_NAME)
+            committed = {Path(str(d[0])).name for d in store.query("SELECT touchstone FROM devices WHERE run_id = ?",
+                                                                   (run_id,))}
+            set_aside = folder.tidy(committed)
+            with open_station(spec, _asker(view, stop)) as station:
+                state, problem = _restore_state(store, spec, run_id, row, station.identity, journal_state.steps_done())
+                store.set_run_status(run_id, "running")
+                journal = RunJournal(folder.path)
+                try:
+                    journal.write("resumed", attempt=journal_state.count("resumed") + 1, set_aside=set_aside,
+                                  calibration_kept=problem is None)
+                    view.run_started(run_id, spec.name, station.spec.name, row.get("planned_devices"), resumed=True)
+                    _tell_resumption(view, state, set_aside, folder, problem, spec)
+                    operator = str(row["operator"])
+                    if options.operator.strip():
+                        operator = f"{operator}; resumed by {_operator_name(options.operator)}"
+                    runner = StepRunner(spec, station, store, journal, folder, _facts(spec, run_id, station, operator),
+                                        view, stop, state)
+                    outcome = RunOutcome(run_id, "running", None, records, database, folder.path)
+                    return _execute(runner, store, journal, outcome)
+                finally:
+                    journal.close()

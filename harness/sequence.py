@@ -1,0 +1,443 @@
+"""Sequence files: what a run does, on which station, against which limits.
+
+A sequence is a TOML file with key names of our own (documented in DEVELOPERS.md, "Sequence
+files").  :func:`load_sequence` reads it, checks every key and every cross-reference (the
+analyzer's range and points, the calibration method against what the analyzer can do, the
+kit, the check standard's reference, the objects a simulated bench offers, the switch wiring)
+and either returns a frozen :class:`SequenceSpec` or raises :class:`SequenceProblems` listing
+*every* problem with file, key, line and fix.  It touches no instrument.  Nothing in a
+sequence is evaluated as code: values are strings, numbers and names compared with known sets.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import re
+from dataclasses import dataclass
+from pathlib import Path
+
+from lineproof.errors import InputError
+from lineproof.station_file import StationSpec, parse_station
+from lineproof.toml_problems import KeyLines, Problems, TableReader, parse_toml
+from lineproof.touchstone import SERIAL_RULE, serial_problem
+from lineproof.values import BandLimit, SweepPlan
+
+#: Actions a ``[[step]]`` may ``do``.
+ACTIONS = ("identify", "calibrate", "qualify-termination", "verify", "measure-batch", "message", "route")
+#: How the serial numbers of a batch are known.
+DEVICE_ENTRY = ("listed", "scanned")
+DECISION_RULES = ("simple", "guard-banded")
+#: Band names become metadata keys and column values.
+BAND_NAME = re.compile(r"^[a-z0-9][a-z0-9_-]{0,31}$")
+#: Names of bench objects, switch positions and slots: printable, no path characters.
+OBJECT_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9 ._:+-]{0,63}$")
+
+
+class SequenceProblems(InputError):
+    """A sequence (and the files it names) has one or more problems; ``problems`` lists each."""
+
+    def __init__(self, problems: list[InputError], source: str) -> None:
+        count = len(problems)
+        super().__init__(f"{count} problem{'s' if count != 1 else ''} found:\n"
+                         + "\n".join(f"  {p}" for p in problems), path=source)
+        self.problems = problems
+
+    def __str__(self) -> str:
+        return self.message
+
+
+@dataclass(frozen=True)
+class CalibrationSpec:
+    method: str
+    kit: str  # as written; resolved by :func:`resolve_path`
+    valid_for_s: float
+
+
+@dataclass(frozen=True)
+class TerminationSpec:
+    name: str
+    max_vswr: float
+
+
+@dataclass(frozen=True)
+class CheckStandardSpec:
+    """A check standard and what it should read: a Touchstone reference or a nominal VSWR,
+    with the largest deviation of |Γ| accepted at any point of a band."""
+
+    name: str
+    tolerance: float
+    reference_file: str | None = None
+    reference_vswr: float | None = None
+
+
+@dataclass(frozen=True)
+class DeviceUnit:
+    serial: str
+    model: str
+    slot: str | None = None
+    key: str = ""  # where it is written, for messages
+
+
+@dataclass(frozen=True)
+class DevicesSpec:
+    model: str
+    entry: str  # "listed" | "scanned"
+    units: tuple[DeviceUnit, ...] = ()
+    max_count: int | None = None
+
+
+@dataclass(frozen=True)
+class ReverifySpec:
+    every_devices: int | None = None
+    every_minutes: float | None = None
+    at_end: bool = False
+
+    @property
+    def any(self) -> bool:
+        return self.every_devices is not None or self.every_minutes is not None or self.at_end
+
+
+@dataclass(frozen=True)
+class StepSpec:
+    action: str
+    text: str = ""
+    target: str | None = None
+    key: str = ""  # where it is written, for messages
+
+
+@dataclass(frozen=True, eq=False)
+class SequenceSpec:
+    """A validated sequence: everything a run needs, with the text it came from."""
+
+    name: str
+    source: str
+    text: str
+    sha256: str
+    station: StationSpec
+    plan: SweepPlan
+    allow_segments: bool
+    bands: tuple[BandLimit, ...]
+    calibration: CalibrationSpec | None
+    termination: TerminationSpec | None
+    check_standard: CheckStandardSpec | None
+    devices: DevicesSpec | None
+    decision_rule: str
+    reverify: ReverifySpec
+    steps: tuple[StepSpec, ...]
+    records_folder: str | None = None
+    database: str | None = None
+    notes: str = ""
+
+    @property
+    def folder(self) -> Path:
+        return Path(self.source).parent
+
+    def has_step(self, action: str) -> bool:
+        return any(step.action == action for step in self.steps)
+
+
+# -- reading ------------------------------------------------------------------------------------
+
+
+def read_text(path: Path) -> str:
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise InputError(f"cannot read the file ({exc.strerror})", path=str(path),
+                         fix="give the path of a sequence .toml file") from exc
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputError(f"not UTF-8 text (byte {exc.start})", path=str(path),
+                         fix="save the sequence as UTF-8 text") from exc
+
+
+def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None = None) -> tuple[SequenceSpec | None, Problems]:
+    """Structure and types only (no other file opened); see :func:`load_sequence`."""
+    problems = Problems(source, KeyLines(text))
+    data = parse_toml(text, source, problems)
+    if data is None:
+        return None, problems
+    root = TableReader(data, "", problems)
+    root.reject_unknown({"sequence", "station", "sweep", "band", "calibration", "termination",
+                         "check_standard", "devices", "decision", "reverify", "step", "records"})
+    head = root.table("sequence", required=True)
+    name, notes = None, ""
+    if head is not None:
+        head.reject_unknown({"name", "notes"})
+        name = head.get("name", str, fix='add name = "what this sequence is for"')
+        notes = head.get("notes", str, "") or ""
+    station = _station_from(root, station_text, problems)
+    plan, allow_segments = _sweep(root.table("sweep", required=True))
+    bands = _bands(root, problems)
+    records = _records(root.table("records"))
+    spec = SequenceSpec(
+        name=(name or "").strip(),
+        source=source,
+        text=text,
+        sha256=hashlib.sha256(text.encode("utf-8")).hexdigest(),
+        station=station,  # type: ignore[arg-type]
+        plan=plan,  # type: ignore[arg-type]
+        allow_segments=allow_segments,
+        bands=bands,
+        calibration=_calibration(root.table("calibration")),
+        termination=_termination(root.table("termination")),
+        check_standard=_check_standard(root.table("check_standard")),
+        devices=_devices(root.table("devices"), problems),
+        decision_rule=_decision(root.table("decision")),
+        reverify=_reverify(root.table("reverify")),
+        steps=_steps(root, problems),
+        records_folder=records[0],
+        database=records[1],
+        notes=notes,
+    )
+    if problems or station is None or plan is None:
+        return None, problems
+    return spec, problems
+
+
+def _station_from(root: TableReader, station_text: tuple[str, str] | None, problems: Problems) -> StationSpec | None:
+    if station_text is not None:
+        # --station FILE replaces the sequence's own [station] table.
+        text, source = station_text
+        own = Problems(source, KeyLines(text))
+        data = parse_toml(text, source, own)
+        spec = None if data is None else parse_station(TableReader(data, "", own), source)
+        problems.items.extend(own.items)
+        return spec
+    table = root.table("station")
+    if table is None:
+        problems.add("station", "no station: the sequence does not say where it runs",
+                     "add a [station] table or pass --station FILE")
+        return None
+    return parse_station(table, problems.source)
+
+
+def _sweep(table: TableReader | None) -> tuple[SweepPlan | None, bool]:
+    if table is None:
+        return None, False
+    table.reject_unknown({"start_hz", "stop_hz", "points", "if_bandwidth_hz", "power_dbm", "allow_segments"})
+    start = table.number("start_hz", above=0.0)
+    stop = table.number("stop_hz", above=0.0)
+    points = table.get("points", int)
+    bandwidth = table.number("if_bandwidth_hz", 1000.0, above=0.0)
+    power = table.number("power_dbm", None)
+    allow_segments = bool(table.get("allow_segments", bool, False))
+    if points is not None and points < 2:
+        table.problems.add(table.key("points"), f"a sweep needs at least 2 points, got {points}", "give points >= 2")
+        points = None
+    if start is not None and stop is not None and stop <= start:
+        table.problems.add(table.key("stop_hz"), f"stop ({stop:g} Hz) must be above start ({start:g} Hz)",
+                           "swap them or widen the sweep")
+        return None, allow_segments
+    if None in (start, stop, points, bandwidth):
+        return None, allow_segments
+    return SweepPlan(start, stop, points, bandwidth, power), allow_segments
+
+
+def _bands(root: TableReader, problems: Problems) -> tuple[BandLimit, ...]:
+    tables = root.tables("band")
+    if not tables and not problems.items:
+        problems.add("band", "no [[band]] table: nothing to judge the devices against",
+                     'add [[band]] with name, start_hz, stop_hz and max_vswr')
+    bands, seen = [], set()
+    for table in tables:
+        table.reject_unknown({"name", "start_hz", "stop_hz", "max_vswr"})
+        name = table.get("name", str)
+        start, stop = table.number("start_hz", above=0.0), table.number("stop_hz", above=0.0)
+        limit = table.number("max_vswr", above=1.0, fix="a VSWR limit is a ratio above 1, e.g. 1.2")
+        if name is not None and not BAND_NAME.match(name):
+            problems.add(table.key("name"), f"band name {name!r} is not allowed",
+                         "use 1-32 lower-case letters, digits, '_' or '-', e.g. \"70cm\"")
+            name = None
+        elif name in seen:
+            problems.add(table.key("name"), f"band {name!r} is defined twice", "give each band its own name")
+            name = None
+        if start is not None and stop is not None and stop < start:
+            problems.add(table.key("stop_hz"), "band stop is below its start", "swap start_hz and stop_hz")
+            continue
+        if None not in (name, start, stop, limit):
+            seen.add(name)
+            bands.append(BandLimit(name, start, stop, limit))
+    return tuple(bands)
+
+
+def _calibration(table: TableReader | None) -> CalibrationSpec | None:
+    if table is None:
+        return None
+    from lineproof.calibration import METHOD_NAMES
+
+    table.reject_unknown({"method", "kit", "valid_for_minutes"})
+    method = table.choice("method", list(METHOD_NAMES), "one-port")
+    kit = table.get("kit", str, fix='add kit = "kits/n50-illustrative.toml" (or your kit file)')
+    minutes = table.number("valid_for_minutes", 480.0, above=0.0)
+    if None in (method, kit, minutes):
+        return None
+    return CalibrationSpec(method, kit, minutes * 60.0)
+
+
+def _termination(table: TableReader | None) -> TerminationSpec | None:
+    if table is None:
+        return None
+    table.reject_unknown({"name", "max_vswr"})
+    name = _object_name(table, "name")
+    # Common practice, no published source: a termination for a DUT's output is 1.05:1 or better.
+    limit = table.number("max_vswr", 1.05, above=1.0, fix="a VSWR limit is a ratio above 1, e.g. 1.05")
+    return None if None in (name, limit) else TerminationSpec(name, limit)
+
+
+def _check_standard(table: TableReader | None) -> CheckStandardSpec | None:
+    if table is None:
+        return None
+    table.reject_unknown({"name", "reference_file", "reference_vswr", "tolerance"})
+    name = _object_name(table, "name")
+    reference_file = table.get("reference_file", str, None)
+    reference_vswr = table.number("reference_vswr", None, minimum=1.0)
+    tolerance = table.number("tolerance", above=0.0, fix="give the largest accepted deviation of |Γ|, e.g. 0.01")
+    if (reference_file is None) == (reference_vswr is None):
+        table.problems.add(table.key("reference_file"), "say what the check standard should read, in one way",
+                           "give reference_file = \"<touchstone .s1p>\" or reference_vswr = <ratio>, not both")
+        return None
+    if None in (name, tolerance):
+        return None
+    return CheckStandardSpec(name, tolerance, reference_file, reference_vswr)
+
+
+def _object_name(table: TableReader, key: str) -> str | None:
+    name = table.get(key, str)
+    if name is not None and not OBJECT_NAME.match(name):
+        table.problems.add(table.key(key), f"name {name[:40]!r} is not allowed",
+                           "use 1-64 letters, digits, spaces, '.', '_', ':', '+' or '-'")
+        return None
+    return name
+
+
+def _devices(table: TableReader | None, problems: Problems) -> DevicesSpec | None:
+    if table is None:
+        return None
+    table.reject_unknown({"model", "entry", "serials", "unit", "max_count"})
+    model = table.get("model", str, fix='add model = "what the devices are"')
+    entry = table.choice("entry", DEVICE_ENTRY, "listed")
+    units: list[DeviceUnit] = []
+    for index, serial in enumerate(table.get("serials", list, []) or [], 1):
+        if _serial_ok(serial, f"{table.key('serials')}[{index}]", problems):
+            units.append(DeviceUnit(serial, model or "", None, f"{table.key('serials')}[{index}]"))
+    for unit in table.tables("unit"):
+        unit.reject_unknown({"serial", "model", "slot"})
+        serial = unit.get("serial", str)
+        slot = unit.get("slot", str, None)
+        unit_model = unit.get("model", str, model or "")
+        if serial is not None and _serial_ok(serial, unit.key("serial"), problems):
+            units.append(DeviceUnit(serial, unit_model or "", slot, unit.key("serial")))
+    max_count = table.get("max_count", int, None)
+    if max_count is not None and max_count < 1:
+        problems.add(table.key("max_count"), "must be at least 1", "give the largest batch size, or remove it")
+    seen: set[str] = set()
+    for unit in units:
+        if unit.serial.lower() in seen:
+            problems.add(unit.key, f"serial {unit.serial!r} is listed twice (serials are compared ignoring case, "
+                         "as file names are on some systems)", "list each device once")
+        seen.add(unit.serial.lower())
+    if entry == "listed" and not units:
+        problems.add(table.key("serials"), "no devices listed", 'add serials = ["...", ...] or [[devices.unit]] tables,'
+                     ' or set entry = "scanned" to enter serials at the bench')
+    if entry == "scanned" and units:
+        problems.add(table.key("entry"), "serials are listed, but entry = \"scanned\" asks for them at the bench",
+                     'remove the list or set entry = "listed"')
+    if model is None or entry is None:
+        return None
+    return DevicesSpec(model, entry, tuple(units), max_count)
+
+
+def _serial_ok(serial: object, key: str, problems: Problems) -> bool:
+    problem = serial_problem(serial)
+    if problem is not None:
+        problems.add(key, problem, SERIAL_RULE)
+        return False
+    return True
+
+
+def _decision(table: TableReader | None) -> str:
+    if table is None:
+        return "simple"
+    table.reject_unknown({"rule"})
+    return table.choice("rule", DECISION_RULES, "simple") or "simple"
+
+
+def _reverify(table: TableReader | None) -> ReverifySpec:
+    if table is None:
+        return ReverifySpec()
+    table.reject_unknown({"every_devices", "every_minutes", "at_end"})
+    every = table.get("every_devices", int, None)
+    if every is not None and every < 1:
+        table.problems.add(table.key("every_devices"), "must be at least 1", "give how many devices between checks")
+        every = None
+    minutes = table.number("every_minutes", None, above=0.0)
+    return ReverifySpec(every, minutes, bool(table.get("at_end", bool, False)))
+
+
+def _steps(root: TableReader, problems: Problems) -> tuple[StepSpec, ...]:
+    tables = root.tables("step")
+    if not tables:
+        problems.add("step", "no [[step]] tables: the sequence does nothing",
+                     'add [[step]] tables, e.g. do = "calibrate", "qualify-termination", "verify", "measure-batch"')
+    steps = []
+    for table in tables:
+        table.reject_unknown({"do", "text", "to"})
+        action = table.choice("do", ACTIONS)
+        text = table.get("text", str, "") or ""
+        target = table.get("to", str, None)
+        if action == "message" and not text.strip():
+            problems.add(table.key("text"), "a message step needs its text", 'add text = "what the operator should do"')
+        if action == "route" and target is None:
+            problems.add(table.key("to"), "a route step needs a target", 'add to = "<object or slot name>"')
+        if action is not None:
+            steps.append(StepSpec(action, text, target, table.key("do")))
+    return tuple(steps)
+
+
+def _records(table: TableReader | None) -> tuple[str | None, str | None]:
+    if table is None:
+        return None, None
+    table.reject_unknown({"folder", "database"})
+    return table.get("folder", str, None), table.get("database", str, None)
+
+
+def load_sequence(path: str | Path, station_file: str | Path | None = None) -> SequenceSpec:
+    """Read and fully check a sequence (and the station file that replaces its [station]).
+
+    Raises :class:`SequenceProblems` with every problem found; touches no instrument.
+    """
+    path = Path(path)
+    station_text = None
+    if station_file is not None:
+        station_text = (read_text(Path(station_file)), str(station_file))
+    return check_sequence_text(read_text(path), str(path), station_text)
+
+
+def check_sequence_text(text: str, source: str, station_text: tuple[str, str] | None = None) -> SequenceSpec:
+    """:func:`load_sequence` on text already read (``source`` names it and anchors its
+    relative paths): a resumed run checks the copy it kept against its original folder."""
+    from lineproof.sequence_checks import check_references
+
+    spec, problems = parse_sequence(text, source, station_text)
+    if spec is not None:
+        check_references(spec, problems)
+    if problems:
+        raise SequenceProblems(problems.items, source)
+    assert spec is not None
+    return spec
+
+
+def resolve_path(written: str, spec: SequenceSpec) -> Path | None:
+    """A file named in a sequence: relative to the sequence's folder, else as given, else a
+    file shipped with lineproof (``kits/n50-illustrative.toml``); None if none exists."""
+    from importlib import resources
+
+    candidate = Path(written)
+    if not candidate.is_absolute() and (spec.folder / candidate).is_file():
+        return spec.folder / candidate
+    if candidate.is_file():
+        return candidate
+    shipped = resources.files("lineproof.sequences") / written
+    return Path(str(shipped)) if shipped.is_file() else None

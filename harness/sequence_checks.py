@@ -1,0 +1,282 @@
+"""Cross-checks of a parsed sequence against the files and instruments it names.
+
+Run before anything touches an instrument: the analyzer's profile (range, points per sweep,
+ports, parameters), the calibration method against what that analyzer can do, the cal kit,
+the check standard's reference data, the objects a simulated bench offers, the switch wiring
+and the order of the steps.  Every problem goes into the same :class:`Problems` list.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from lineproof.errors import InputError
+from lineproof.sequence import SequenceSpec, resolve_path
+from lineproof.toml_problems import Problems
+
+#: Standards a kit must define for each calibration method (short names of
+#: :data:`lineproof.calibration.METHOD_NAMES`).
+METHOD_STANDARDS: dict[str, tuple[str, ...]] = {
+    "one-port": ("open", "short", "load"),
+    "one-path": ("open", "short", "load", "thru"),
+    "solt": ("open", "short", "load", "thru"),
+    "thru-response": ("thru",),
+}
+#: The methods the runner can carry out in this version.
+RUNNABLE_METHODS = frozenset({"one-port"})
+
+
+def check_references(spec: SequenceSpec, problems: Problems) -> None:
+    """Add every problem of ``spec`` that needs another file or a capability to see."""
+    capabilities = _check_analyzer(spec, problems)
+    _check_calibration(spec, problems, capabilities)
+    _check_check_standard(spec, problems)
+    _check_steps(spec, problems)
+    _check_devices(spec, problems)
+    _check_switch(spec, problems)
+    _check_simulated_bench(spec, problems)
+
+
+def _station_key(spec: SequenceSpec, key: str) -> tuple[str, str]:
+    """The key and file where a station setting is written (the sequence or a --station file)."""
+    if spec.station.source == spec.source:
+        return f"station.{key}", spec.source
+    return key, spec.station.source
+
+
+def _profile_path(spec: SequenceSpec, written: str) -> str:
+    local = Path(spec.station.source).parent / written
+    return str(local) if written.endswith(".toml") and local.is_file() else written
+
+
+def _check_analyzer(spec: SequenceSpec, problems: Problems):  # -> AnalyzerCapabilities | None
+    from lineproof.drivers.profiles import load_analyzer_profile
+
+    key, source = _station_key(spec, "analyzer.profile")
+    try:
+        profile = load_analyzer_profile(_profile_path(spec, spec.station.analyzer.profile))
+    except InputError as exc:
+        problems.items.append(exc)
+        problems.add(key, "the analyzer profile named here cannot be used (see above)",
+                     "name a shipped profile or a valid profile file", source=source)
+        return None
+    caps = profile.capabilities
+    plan = spec.plan
+    where = f"{caps.frequency_min_hz / 1e6:g}-{caps.frequency_max_hz / 1e6:g} MHz ({profile.name})"
+    if plan.start_hz < caps.frequency_min_hz:
+        problems.add("sweep.start_hz", f"the sweep starts at {plan.start_hz / 1e6:g} MHz, below the analyzer's range {where}",
+                     f"start at {caps.frequency_min_hz:g} Hz or above")
+    if plan.stop_hz > caps.frequency_max_hz:
+        problems.add("sweep.stop_hz", f"the sweep stops at {plan.stop_hz / 1e6:g} MHz, above the analyzer's range {where}",
+                     f"stop at {caps.frequency_max_hz:g} Hz or below")
+    if plan.points > caps.max_points and not spec.allow_segments:
+        segments = -(-plan.points // caps.max_points)
+        problems.add("sweep.points", f"{plan.points} points, but the analyzer gives at most {caps.max_points} per sweep "
+                     f"({profile.name}); it would take {segments} segments",
+                     f"lower points to {caps.max_points} or less, or set allow_segments = true to sweep in segments")
+    _check_bands(spec, problems, caps, where)
+    port = spec.station.analyzer.port
+    if port > caps.ports:
+        port_key, port_source = _station_key(spec, "analyzer.port")
+        problems.add(port_key, f"port {port}, but the analyzer has {caps.ports} port(s) ({profile.name})",
+                     f"use a port from 1 to {caps.ports}", source=port_source)
+    return caps
+
+
+def _check_bands(spec: SequenceSpec, problems: Problems, caps, where: str) -> None:
+    grid = spec.plan.frequencies()
+    for index, band in enumerate(spec.bands, 1):
+        key = f"band[{index}]"
+        if band.start_hz < caps.frequency_min_hz or band.stop_hz > caps.frequency_max_hz:
+            problems.add(f"{key}.start_hz", f"band {band.name} ({band.start_hz / 1e6:g}-{band.stop_hz / 1e6:g} MHz) "
+                         f"lies outside the analyzer's range {where}", "use an analyzer that covers it or drop the band")
+        elif band.start_hz < spec.plan.start_hz or band.stop_hz > spec.plan.stop_hz:
+            problems.add(f"{key}.start_hz", f"band {band.name} ({band.start_hz / 1e6:g}-{band.stop_hz / 1e6:g} MHz) "
+                         f"is not inside the sweep ({spec.plan.describe()})", "widen [sweep] to cover every band")
+        elif not np.any((grid >= band.start_hz) & (grid <= band.stop_hz)):
+            problems.add(f"{key}.start_hz", f"band {band.name} holds no sweep point", "add points to [sweep]")
+
+
+def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
+    cal = spec.calibration
+    if cal is None:
+        return
+    if caps is not None:
+        from lineproof.calibration import choose_method
+        from lineproof.errors import CalibrationError
+
+        port = spec.station.analyzer.port
+        try:
+            choose_method(caps.paths, cal.method)
+        except CalibrationError as exc:
+            problems.add("calibration.method", f"{exc} ({caps.ports} port(s))",
+                         "choose a method the analyzer allows, or an analyzer with the paths this one needs")
+        else:
+            if cal.method == "one-port" and f"S{port}{port}" not in caps.parameters:
+                problems.add("calibration.method", f"the analyzer does not measure S{port}{port} for a one-port "
+                             "calibration", "use the port its profile measures")
+            elif cal.method not in RUNNABLE_METHODS:
+                problems.add("calibration.method", f"lineproof run measures batches as-terminated at one port; a "
+                             f"{cal.method} calibration is not part of a run yet", "use method = \"one-port\"")
+    path = resolve_path(cal.kit, spec)
+    if path is None:
+        problems.add("calibration.kit", f"cal kit file {cal.kit!r} not found (looked beside the sequence, "
+                     "in the current folder and among the shipped kits)", "give the path of your kit's .toml file")
+        return
+    from lineproof.calkit import load_kit
+
+    try:
+        kit = load_kit(path)
+    except InputError as exc:
+        problems.absorb(exc, "calibration.kit")
+        return
+    kinds = {standard.kind for standard in kit.standards.values()}
+    missing = [kind for kind in METHOD_STANDARDS[cal.method] if kind not in kinds]
+    if missing:
+        problems.add("calibration.kit", f"kit {kit.name} has no {', '.join(missing)} standard for a {cal.method} calibration",
+                     f"add the standards to {path} or use another kit")
+
+
+def _check_check_standard(spec: SequenceSpec, problems: Problems) -> None:
+    check = spec.check_standard
+    if check is None or check.reference_file is None:
+        return
+    path = resolve_path(check.reference_file, spec)
+    if path is None:
+        problems.add("check_standard.reference_file", f"reference file {check.reference_file!r} not found",
+                     "give the path of the check standard's Touchstone (.s1p) data")
+        return
+    from lineproof.verification import read_reference
+
+    try:
+        frequencies, _ = read_reference(path)
+    except InputError as exc:
+        problems.add("check_standard.reference_file", exc.problem, exc.fix)
+        return
+    if frequencies[0] > spec.plan.start_hz * (1 + 1e-9) or frequencies[-1] < spec.plan.stop_hz * (1 - 1e-9):
+        problems.add("check_standard.reference_file",
+                     f"the reference covers {frequencies[0] / 1e6:g}-{frequencies[-1] / 1e6:g} MHz, not the whole sweep "
+                     f"({spec.plan.describe()})", "give reference data over the whole sweep or narrow the sweep")
+
+
+def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
+    needs: dict[str, tuple[str | None, str]] = {
+        "calibrate": ("calibration", "add a [calibration] table with method and kit"),
+        "qualify-termination": ("termination", "add a [termination] table with the termination's name"),
+        "verify": ("check_standard", "add a [check_standard] table"),
+        "measure-batch": ("devices", "add a [devices] table"),
+    }
+    seen: set[str] = set()
+    for step in spec.steps:
+        table, fix = needs.get(step.action, (None, ""))
+        if table is not None and getattr(spec, table) is None:
+            problems.add(step.key, f"step {step.action!r} needs a [{table}] table", fix)
+        if step.action in ("qualify-termination", "verify", "measure-batch") and "calibrate" not in seen:
+            problems.add(step.key, f"step {step.action!r} comes before any calibrate step",
+                         "put a do = \"calibrate\" step before it")
+        if step.action == "measure-batch":
+            if "qualify-termination" not in seen:
+                problems.add(step.key, "the batch would be measured on a termination nobody qualified",
+                             "put a do = \"qualify-termination\" step before it")
+            if "measure-batch" in seen:
+                problems.add(step.key, "a sequence measures one batch", "keep one measure-batch step")
+            if spec.termination is None:
+                problems.add(step.key, "the batch needs a [termination] for the devices' outputs",
+                             "add a [termination] table")
+        seen.add(step.action)
+    if spec.reverify.any:
+        if spec.check_standard is None:
+            problems.add("reverify", "re-verification needs a [check_standard]", "add one or remove [reverify]")
+        if "measure-batch" not in seen:
+            problems.add("reverify", "re-verification happens during a batch, and this sequence measures none",
+                         "remove [reverify] or add a measure-batch step")
+
+
+def _check_devices(spec: SequenceSpec, problems: Problems) -> None:
+    devices = spec.devices
+    if devices is None:
+        return
+    hands = spec.station.connected_by
+    if devices.entry == "scanned" and hands != "operator":
+        problems.add("devices.entry", f"serials are entered at the bench, but connected_by = {hands!r}: nobody is there",
+                     'list the serials (entry = "listed") or let an operator connect the devices')
+    if hands == "switch":
+        for unit in devices.units:
+            if unit.slot is None:
+                problems.add(unit.key, f"device {unit.serial} has no switch slot",
+                             "give each device a [[devices.unit]] table with serial and slot")
+
+
+def _needed_objects(spec: SequenceSpec) -> list[tuple[str, str]]:
+    """(object name, the key that names it) for everything the run will connect."""
+    found: list[tuple[str, str]] = []
+    if spec.termination is not None:
+        found.append((spec.termination.name, "termination.name"))
+    if spec.check_standard is not None:
+        found.append((spec.check_standard.name, "check_standard.name"))
+    for step in spec.steps:
+        if step.action == "route" and step.target:
+            found.append((step.target, step.key.replace(".do", ".to")))
+    cal = spec.calibration
+    path = resolve_path(cal.kit, spec) if cal is not None and spec.has_step("calibrate") else None
+    if path is not None:
+        from lineproof.calkit import load_kit
+
+        try:
+            kit = load_kit(path)
+        except InputError:
+            return found  # reported by _check_calibration
+        found += [(name, "calibration.kit") for name, standard in kit.standards.items()
+                  if standard.kind in METHOD_STANDARDS[cal.method]]
+    return found
+
+
+def _check_switch(spec: SequenceSpec, problems: Problems) -> None:
+    switch = spec.station.switch
+    if switch is None or spec.station.connected_by != "switch":
+        return
+    key, source = _station_key(spec, "switch.wiring")
+    for name, used_at in _needed_objects(spec):
+        if name not in switch.wiring:
+            problems.add(used_at, f"{name!r} is not wired to the switch", f"add it to [{key}] in {source}")
+    for unit in spec.devices.units if spec.devices else ():
+        if unit.slot is not None and unit.slot not in switch.wiring:
+            problems.add(unit.key.replace(".serial", ".slot"), f"slot {unit.slot!r} of {unit.serial} is not wired to the switch",
+                         f"add it to [{key}] in {source}")
+    from lineproof.drivers.profiles import load_switch_profile
+
+    profile_key, _ = _station_key(spec, "switch.profile")
+    try:
+        load_switch_profile(_profile_path(spec, switch.profile))
+    except InputError as exc:
+        problems.items.append(exc)
+        problems.add(profile_key, "the switch profile named here cannot be used (see above)",
+                     "name a shipped switch profile or a valid profile file", source=source)
+
+
+def _check_simulated_bench(spec: SequenceSpec, problems: Problems) -> None:
+    scenario_name = spec.station.simulated_bench
+    if scenario_name is None:
+        return
+    from lineproof.simulators.scenario import load_scenario
+
+    key, source = _station_key(spec, "simulated_bench")
+    local = Path(spec.station.source).parent / scenario_name
+    try:
+        scenario = load_scenario(local if local.is_file() else scenario_name)
+    except InputError as exc:
+        problems.add(key, exc.problem, exc.fix or "name a shipped scenario (e.g. demo-bench) or a scenario file",
+                     source=source)
+        return
+    if spec.station.connected_by == "switch":
+        return  # the switch reaches what the scenario wires; _check_switch covered the names
+    for name, used_at in _needed_objects(spec):
+        if name not in scenario.objects:
+            problems.add(used_at, f"the simulated bench {scenario.name!r} has no object {name!r}",
+                         f"use one of: {', '.join(sorted(scenario.objects))[:300]}")
+    for unit in spec.devices.units if spec.devices else ():
+        if unit.serial not in scenario.objects:
+            problems.add(unit.key, f"the simulated bench has no device {unit.serial!r}",
+                         "list serials the scenario's populations make")

@@ -1,0 +1,344 @@
+"""Reading user TOML files so that every problem is found at once and named precisely.
+
+``tomllib`` gives values but no line numbers, so :class:`KeyLines` scans the text itself and
+maps each key path to the line that sets it.  Key paths are dotted; a table of an array of
+tables and an element of an array are counted from 1 in square brackets::
+
+    station.analyzer.profile     band[2].max_vswr     devices.serials[3]
+
+:class:`Problems` collects :class:`InputError`\\ s (file, key, line, problem, fix) instead of
+stopping at the first, and :class:`TableReader` reads typed values through it.  Nothing here
+evaluates user text: values are only compared, converted with ``float``/``int`` and checked.
+"""
+
+from __future__ import annotations
+
+import re
+import tomllib
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass
+from typing import Any
+
+from lineproof.errors import InputError
+
+_BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
+_TOML_POSITION = re.compile(r"\(at line (\d+), column (\d+)\)")
+
+
+# -- key paths -> line numbers ------------------------------------------------------------------
+
+
+def _split_key(text: str) -> tuple[list[str], int] | None:
+    """Parse a (dotted, possibly quoted) key at the start of ``text``; return its parts and the
+    index just after it, or None when ``text`` does not start with a key."""
+    parts: list[str] = []
+    index = 0
+    while True:
+        while index < len(text) and text[index] in " \t":
+            index += 1
+        if index >= len(text):
+            return None
+        quote = text[index]
+        if quote in "\"'":
+            end = index + 1
+            while end < len(text) and text[end] != quote:
+                end += 2 if quote == '"' and text[end] == "\\" else 1
+            if end >= len(text):
+                return None
+            parts.append(text[index + 1:end])
+            index = end + 1
+        else:
+            match = _BARE_KEY.match(text, index)
+            if not match:
+                return None
+            parts.append(match.group())
+            index = match.end()
+        while index < len(text) and text[index] in " \t":
+            index += 1
+        if index < len(text) and text[index] == ".":
+            index += 1
+            continue
+        return parts, index
+
+
+@dataclass
+class _Frame:
+    """An open array (``path`` names it; ``count`` elements seen) or inline table."""
+
+    path: str
+    is_array: bool
+    count: int = 0
+    expecting: bool = True
+
+
+class _ValueScanner:
+    """Follows a value across lines: strings (all four kinds), arrays and inline tables."""
+
+    def __init__(self) -> None:
+        self.string: str | None = None  # the open delimiter of a string that spans lines
+        self.frames: list[_Frame] = []
+
+    def busy(self) -> bool:
+        return self.string is not None or bool(self.frames)
+
+    def feed(self, text: str, index: int, line: int, found: dict[str, int], path: str | None) -> None:
+        while index < len(text):
+            if self.string is not None:
+                index = self._in_string(text, index)
+                continue
+            char = text[index]
+            if char == "#":
+                return
+            top = self.frames[-1] if self.frames else None
+            if top is not None and top.is_array and top.expecting and char not in " \t,]":
+                top.count += 1
+                top.expecting = False
+                found.setdefault(f"{top.path}[{top.count}]", line)
+            if text.startswith('"""', index) or text.startswith("'''", index):
+                self.string = text[index:index + 3]
+                index += 3
+            elif char in "\"'":
+                self.string = char
+                index += 1
+            elif char == "[":
+                parent = (f"{top.path}[{top.count}]" if top is not None and top.is_array else path) or ""
+                self.frames.append(_Frame(parent, True))
+                index += 1
+            elif char == "{":
+                self.frames.append(_Frame("", False))
+                index += 1
+            elif char in "]}":
+                if self.frames:
+                    self.frames.pop()
+                index += 1
+            else:
+                if char == "," and top is not None and top.is_array:
+                    top.expecting = True
+                index += 1
+        if self.string is not None and len(self.string) == 1:
+            self.string = None  # a one-line string cannot span lines (invalid TOML; tomllib says so)
+
+    def _in_string(self, text: str, index: int) -> int:
+        delimiter = self.string or ""
+        while index < len(text):
+            if delimiter[0] == '"' and text[index] == "\\":
+                index += 2
+                continue
+            if text.startswith(delimiter, index):
+                # A multi-line string may end with up to two extra quotes before the delimiter.
+                end = index + len(delimiter)
+                while len(delimiter) == 3 and end < len(text) and text[end] == delimiter[0]:
+                    end += 1
+                self.string = None
+                return end
+            index += 1
+        return index
+
+
+class KeyLines:
+    """Where each key of a TOML text is set: ``line_of("band[2].max_vswr")`` -> 17."""
+
+    def __init__(self, text: str) -> None:
+        self._found: dict[str, int] = {}
+        self._arrays: dict[str, int] = {}
+        self._scan(text)
+
+    def line_of(self, key: str | None) -> int | None:
+        """The line of ``key``, else of its nearest parent that has one, else None."""
+        while key:
+            if key in self._found:
+                return self._found[key]
+            cut = max(key.rfind("."), key.rfind("["))
+            key = key[:cut] if cut > 0 else ""
+        return None
+
+    def _resolve(self, parts: list[str], last_is_array: bool) -> str:
+        path = ""
+        for position, part in enumerate(parts):
+            path = f"{path}.{part}" if path else part
+            if last_is_array and position == len(parts) - 1:
+                self._arrays[path] = self._arrays.get(path, 0) + 1
+            if path in self._arrays:
+                path = f"{path}[{self._arrays[path]}]"
+        return path
+
+    def _scan(self, text: str) -> None:
+        prefix = ""
+        scanner = _ValueScanner()
+        for line, raw in enumerate(text.splitlines(), 1):
+            if scanner.busy():
+                scanner.feed(raw, 0, line, self._found, None)
+                continue
+            stripped = raw.strip()
+            if not stripped or stripped.startswith("#"):
+                continue
+            if stripped.startswith("["):
+                is_array = stripped.startswith("[[")
+                parsed = _split_key(stripped[2 if is_array else 1:])
+                if parsed is not None:
+                    prefix = self._resolve(parsed[0], is_array)
+                    self._found.setdefault(prefix, line)
+                    if is_array:
+                        self._found.setdefault(prefix[:prefix.rfind("[")], line)
+                continue
+            parsed = _split_key(stripped)
+            if parsed is None or parsed[1] >= len(stripped) or stripped[parsed[1]] != "=":
+                continue
+            path = ".".join([prefix, *parsed[0]]) if prefix else ".".join(parsed[0])
+            self._found.setdefault(path, line)
+            scanner.feed(stripped, parsed[1] + 1, line, self._found, path)
+
+
+# -- problems -----------------------------------------------------------------------------------
+
+
+class Problems:
+    """Every problem found in one file, each an :class:`InputError` with its line."""
+
+    def __init__(self, source: str, lines: KeyLines | None = None) -> None:
+        self.source = source
+        self.lines = lines
+        self.items: list[InputError] = []
+
+    def add(self, key: str | None, problem: str, fix: str | None = None, *, source: str | None = None,
+            line: int | None = None) -> None:
+        """Record one problem; its line is looked up from ``key`` unless given."""
+        if line is None and self.lines is not None and (source is None or source == self.source):
+            line = self.lines.line_of(key)
+        self.items.append(InputError(problem, path=source or self.source, key=key, line=line, fix=fix))
+
+    def absorb(self, error: InputError, key: str | None = None) -> None:
+        """Keep an error raised by another loader (a kit, a profile), naming where it was used."""
+        if error.path and error.path != self.source:
+            self.items.append(error)
+            if key is not None:
+                self.add(key, f"the file named here has a problem (see {error.path} above)",
+                         "correct that file or name another one")
+        else:
+            self.add(key or error.key, error.problem, error.fix)
+
+    def __bool__(self) -> bool:
+        return bool(self.items)
+
+
+def parse_toml(text: str, source: str, problems: Problems) -> dict[str, Any] | None:
+    """The parsed document, or None with the syntax error (and its line) recorded."""
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        message = str(exc)
+        position = _TOML_POSITION.search(message)
+        line = int(position.group(1)) if position else None
+        problem = _TOML_POSITION.sub("", message).strip()
+        problems.add(None, f"not valid TOML: {problem}", "correct the TOML syntax at that line", line=line)
+        return None
+
+
+_REQUIRED = object()
+
+
+class TableReader:
+    """Typed access to one table of a parsed TOML document, recording problems as it goes."""
+
+    def __init__(self, data: Mapping[str, Any], prefix: str, problems: Problems) -> None:
+        self.data = data
+        self.prefix = prefix
+        self.problems = problems
+
+    def key(self, name: str) -> str:
+        return f"{self.prefix}.{name}" if self.prefix else name
+
+    def has(self, name: str) -> bool:
+        return name in self.data
+
+    def reject_unknown(self, allowed: Iterable[str]) -> None:
+        allowed = set(allowed)
+        for name in self.data:
+            if name not in allowed:
+                nearest = _nearest(name, allowed)
+                hint = f"did you mean {nearest!r}? " if nearest else ""
+                self.problems.add(self.key(name), "unknown key",
+                                  f"{hint}remove it or use one of: {', '.join(sorted(allowed))}")
+
+    def get(self, name: str, kind: type | tuple[type, ...], default: Any = _REQUIRED, fix: str = "") -> Any:
+        """The value of ``name`` if it has the right type; ``default`` if absent; None (and a
+        recorded problem) if it is missing or mistyped."""
+        if name not in self.data:
+            if default is _REQUIRED:
+                self.problems.add(self.key(name), "missing key", fix or f"add {name} = ...")
+                return None
+            return default
+        value = self.data[name]
+        kinds = kind if isinstance(kind, tuple) else (kind,)
+        if float in kinds and isinstance(value, int) and not isinstance(value, bool):
+            value = float(value)
+        if not isinstance(value, kinds) or (isinstance(value, bool) and bool not in kinds):
+            expected = " or ".join(_TYPE_WORDS.get(k, k.__name__) for k in kinds)
+            self.problems.add(self.key(name), f"must be {expected}, got {_shown(value)}",
+                              fix or f"give {name} as {expected}")
+            return None
+        return value
+
+    def number(self, name: str, default: Any = _REQUIRED, *, minimum: float | None = None,
+               above: float | None = None, fix: str = "") -> float | None:
+        value = self.get(name, float, default, fix)
+        if value is None or value is default:
+            return value
+        if value != value or value in (float("inf"), float("-inf")):
+            self.problems.add(self.key(name), f"must be a finite number, got {value}", fix or None)
+            return None
+        if minimum is not None and value < minimum:
+            self.problems.add(self.key(name), f"must be at least {minimum:g}, got {value:g}", fix or None)
+            return None
+        if above is not None and not value > above:
+            self.problems.add(self.key(name), f"must be greater than {above:g}, got {value:g}", fix or None)
+            return None
+        return value
+
+    def choice(self, name: str, choices: Iterable[str], default: Any = _REQUIRED) -> str | None:
+        options = list(choices)
+        value = self.get(name, str, default, f"use one of: {', '.join(options)}")
+        if isinstance(value, str) and value not in options:
+            self.problems.add(self.key(name), f"unknown value {_shown(value)}", f"use one of: {', '.join(options)}")
+            return None
+        return value
+
+    def table(self, name: str, required: bool = False) -> TableReader | None:
+        value = self.data.get(name)
+        if value is None:
+            if required:
+                self.problems.add(self.key(name), "missing table", f"add a [{self.key(name)}] table")
+            return None
+        if not isinstance(value, dict):
+            self.problems.add(self.key(name), f"must be a table, got {_shown(value)}",
+                              f"write it as a [{self.key(name)}] table")
+            return None
+        return TableReader(value, self.key(name), self.problems)
+
+    def tables(self, name: str) -> list[TableReader]:
+        """The tables of an array of tables (``[[name]]``), each with its 1-based index."""
+        value = self.data.get(name)
+        if value is None:
+            return []
+        if not isinstance(value, list) or not all(isinstance(item, dict) for item in value):
+            self.problems.add(self.key(name), "must be an array of tables",
+                              f"write each entry as a [[{self.key(name)}]] table")
+            return []
+        return [TableReader(item, f"{self.key(name)}[{index}]", self.problems) for index, item in enumerate(value, 1)]
+
+
+_TYPE_WORDS = {str: "a string", float: "a number", int: "a whole number", bool: "true or false",
+               list: "an array", dict: "a table"}
+
+
+def _shown(value: Any) -> str:
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def _nearest(name: str, allowed: set[str]) -> str | None:
+    """The allowed key closest to a misspelt one (by shared prefix and length), if any is close."""
+    import difflib
+
+    matches = difflib.get_close_matches(name, sorted(allowed), n=1, cutoff=0.75)
+    return matches[0] if matches else None

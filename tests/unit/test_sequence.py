@@ -1,0 +1,202 @@
+"""Sequence files: every problem found at once, each with file, line, key and fix; nothing evaluated."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from lineproof.sequence import SequenceProblems, load_sequence
+from lineproof.toml_problems import KeyLines
+
+SCENARIOS = Path(__file__).parent.parent / "scenarios"
+
+GOOD = f"""\
+[sequence]
+name = "unit test sequence"
+
+[station]
+name = "test bench"
+simulated_bench = "{SCENARIOS / 'batch-bench.toml'}"
+connected_by = "simulated-operator"
+
+[station.analyzer]
+profile = "generic-scpi-reflectometer"
+
+[sweep]
+start_hz = 100e6
+stop_hz = 500e6
+points = 201
+
+[[band]]
+name = "2m"
+start_hz = 144e6
+stop_hz = 148e6
+max_vswr = 1.10
+
+[[band]]
+name = "70cm"
+start_hz = 420e6
+stop_hz = 450e6
+max_vswr = 1.20
+
+[calibration]
+kit = "kits/n50-illustrative.toml"
+
+[termination]
+name = "good-termination"
+
+[check_standard]
+name = "check-75"
+reference_vswr = 1.5
+tolerance = 0.01
+
+[devices]
+model = "TM-150 inline meter head"
+serials = ["TM150-0001", "TM150-0002"]
+
+[[step]]
+do = "calibrate"
+
+[[step]]
+do = "qualify-termination"
+
+[[step]]
+do = "verify"
+
+[[step]]
+do = "measure-batch"
+"""
+
+
+def write(tmp_path: Path, text: str, name: str = "sequence.toml") -> Path:
+    path = tmp_path / name
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def problems_of(tmp_path: Path, text: str) -> list:
+    with pytest.raises(SequenceProblems) as caught:
+        load_sequence(write(tmp_path, text))
+    return caught.value.problems
+
+
+def line_of(text: str, fragment: str) -> int:
+    return next(number for number, line in enumerate(text.splitlines(), 1) if fragment in line)
+
+
+def test_a_good_sequence_loads_with_its_hash(tmp_path: Path) -> None:
+    spec = load_sequence(write(tmp_path, GOOD))
+    assert spec.name == "unit test sequence"
+    assert [s.action for s in spec.steps] == ["calibrate", "qualify-termination", "verify", "measure-batch"]
+    assert [b.name for b in spec.bands] == ["2m", "70cm"] and spec.bands[0].max_vswr == 1.10
+    assert spec.plan.points == 201 and spec.station.connected_by == "simulated-operator"
+    assert spec.termination is not None and spec.termination.max_vswr == 1.05  # the common-practice default
+    import hashlib
+
+    assert spec.sha256 == hashlib.sha256(GOOD.encode()).hexdigest()
+
+
+def test_every_problem_is_reported_with_its_line_key_and_fix(tmp_path: Path) -> None:
+    text = (GOOD.replace("points = 201", "points = 201\ncolour = \"blue\"")
+            .replace("max_vswr = 1.20", "max_vswr = 0.9")
+            .replace('do = "verify"', 'do = "verfiy"')
+            .replace('"TM150-0002"]', '"../../x", "' + "Q" * 300 + '"]'))
+    found = problems_of(tmp_path, text)
+    by_key = {p.key: p for p in found}
+    assert by_key["sweep.colour"].line == line_of(text, "colour")
+    assert "unknown key" in by_key["sweep.colour"].problem
+    assert by_key["band[2].max_vswr"].line == line_of(text, "max_vswr = 0.9")
+    assert "greater than 1" in by_key["band[2].max_vswr"].problem
+    assert by_key["step[3].do"].line == line_of(text, '"verfiy"')
+    assert "verify" in by_key["step[3].do"].fix
+    traversal = by_key["devices.serials[2]"]
+    assert "../../x" in traversal.problem and traversal.line == line_of(text, "../../x")
+    junk = by_key["devices.serials[3]"]
+    assert "300 characters" in junk.problem and len(str(junk)) < 400
+    assert all(p.fix for p in found) and all(p.path == str(tmp_path / "sequence.toml") for p in found)
+
+
+def test_capabilities_are_checked_before_any_instrument(tmp_path: Path) -> None:
+    # generic-scpi-reflectometer: 1 MHz - 3 GHz, 10001 points per sweep, one port (its profile file)
+    text = (GOOD.replace("stop_hz = 500e6", "stop_hz = 3.5e9", 1).replace("points = 201", "points = 20001")
+            .replace('kit = "kits/', 'method = "solt"\nkit = "kits/')
+            .replace("start_hz = 420e6\nstop_hz = 450e6", "start_hz = 3.2e9\nstop_hz = 3.3e9"))
+    found = problems_of(tmp_path, text)
+    messages = {p.key: p.problem for p in found}
+    assert "above the analyzer's range" in messages["sweep.stop_hz"]
+    assert "at most 10001 per sweep" in messages["sweep.points"]
+    assert "allow_segments" in next(p.fix for p in found if p.key == "sweep.points")
+    assert "outside the analyzer's range" in messages["band[2].start_hz"]
+    assert "cannot do a solt calibration" in messages["calibration.method"]
+
+
+def test_segments_are_allowed_when_asked(tmp_path: Path) -> None:
+    spec = load_sequence(write(tmp_path, GOOD.replace("points = 201", "points = 12001\nallow_segments = true")))
+    assert spec.plan.points == 12001 and spec.allow_segments
+
+
+def test_syntax_errors_name_their_line(tmp_path: Path) -> None:
+    text = GOOD.replace('name = "test bench"', 'name = "test bench')
+    found = problems_of(tmp_path, text)
+    assert len(found) == 1 and found[0].line == line_of(text, 'name = "test bench')
+    assert "not valid TOML" in found[0].problem
+
+
+def test_references_to_missing_objects_kits_and_steps_out_of_order(tmp_path: Path) -> None:
+    text = (GOOD.replace('name = "good-termination"', 'name = "no-such-load"')
+            .replace('"kits/n50-illustrative.toml"', '"kits/missing.toml"')
+            .replace('[[step]]\ndo = "calibrate"\n\n', ""))
+    found = problems_of(tmp_path, text)
+    problems = " | ".join(str(p) for p in found)
+    assert "has no object 'no-such-load'" in problems
+    assert "kits/missing.toml" in problems and "not found" in problems
+    assert "comes before any calibrate step" in problems
+
+
+def test_a_scanned_batch_needs_a_person(tmp_path: Path) -> None:
+    text = GOOD.replace('serials = ["TM150-0001", "TM150-0002"]', 'entry = "scanned"')
+    found = problems_of(tmp_path, text)
+    assert any(p.key == "devices.entry" and "nobody is there" in p.problem for p in found)
+
+
+def test_nothing_is_evaluated(tmp_path: Path) -> None:
+    text = GOOD.replace("points = 201", 'points = "__import__(\'os\').system(\'touch pwned\')"')
+    found = problems_of(tmp_path, text)
+    assert any(p.key == "sweep.points" and "whole number" in p.problem for p in found)
+    assert not (tmp_path / "pwned").exists() and not Path("pwned").exists()
+
+
+def test_key_lines_follow_tables_arrays_and_multiline_values() -> None:
+    text = '''\
+# comment
+[a]
+x = 1
+"quoted key" = """
+line = 5 inside a string
+"""
+list = [
+  "one",   # first
+  { k = 2 },
+  [3, 4],
+]
+
+[[b]]
+y = 2
+[b.c]
+z = 3
+
+[[b]]
+y = 4
+dotted.key = 5
+'''
+    lines = KeyLines(text)
+    assert lines.line_of("a.x") == 3
+    assert lines.line_of("a.quoted key") == 4
+    assert lines.line_of("a.line") == 2  # not a key: falls back to its table
+    assert lines.line_of("a.list") == 7
+    assert [lines.line_of(f"a.list[{i}]") for i in (1, 2, 3)] == [8, 9, 10]
+    assert lines.line_of("a.list[2].k") == 9
+    assert lines.line_of("b[1].y") == 14 and lines.line_of("b[1].c.z") == 16
+    assert lines.line_of("b[2].y") == 19 and lines.line_of("b[2].dotted.key") == 20
+    assert lines.line_of("nothing.here") is None
