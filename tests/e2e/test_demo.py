@@ -59,10 +59,10 @@ def test_demo_runs_the_unattended_flow_and_says_where_the_report_is(tmp_path: Pa
         verdicts[path.stem] = metadata["verdict"]
         measured[path.stem] = network.s[:, 0, 0]
     # The scenario's truth (simulated-instruments/scenarios/demo-switch.toml): 0104 fails in
-    # 420-450 MHz, 0109 fails both bands by a little, 0107 passes near the 420-450 MHz limit.
+    # 420-450 MHz, 0109 fails both bands clearly, 0107 passes near the 420-450 MHz limit.
     # With the uncertainty in view, a near miss may be indeterminate -- never a clear pass.
     assert verdicts.pop("TM150-0104") == "fail"
-    assert verdicts.pop("TM150-0109") in {"fail", "indeterminate"}
+    assert verdicts.pop("TM150-0109") == "fail"
     assert verdicts.pop("TM150-0107") in {"pass", "indeterminate"}
     assert set(verdicts.values()) == {"pass"}
     with sqlite3.connect(tmp_path / "results" / "results.sqlite") as db:
