@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 from collections.abc import Sequence
 
@@ -50,7 +51,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser.print_help()
         return EXIT_INPUT
     try:
-        return arguments.handler(arguments)
+        code = arguments.handler(arguments)
+        sys.stdout.flush()  # inside the try: a closed pipe is caught below
+        return code
     except InputError as exc:
         print(f"lineproof: invalid input: {exc}", file=sys.stderr)
         return EXIT_INPUT
@@ -63,6 +66,11 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("lineproof: interrupted", file=sys.stderr)
         return EXIT_INCOMPLETE
+    except BrokenPipeError:
+        # The reader went away (`lineproof results | head`): not an error of ours.  Point
+        # stdout at devnull so the interpreter's final flush does not complain again.
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_OK
 
 
 if __name__ == "__main__":  # pragma: no cover

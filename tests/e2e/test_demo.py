@@ -104,3 +104,13 @@ def test_version_and_help(tmp_path: Path) -> None:
     assert help_text.returncode == 0
     for command in ("demo", "run", "check", "report", "results"):
         assert command in help_text.stdout
+
+
+def test_a_closed_pipe_is_not_an_error(tmp_path: Path) -> None:
+    # `lineproof ... | head`: the reader closes early; the command must end quietly.
+    producer = subprocess.Popen([sys.executable, "-m", "lineproof.cli", "sim", "--list"], cwd=tmp_path,
+                                stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    producer.stdout.close()  # nobody reads
+    _, error = producer.communicate(timeout=60)
+    assert producer.returncode == 0, error
+    assert b"BrokenPipe" not in error and b"Traceback" not in error
