@@ -130,8 +130,9 @@ class ConsoleRunView:
         counts = summary.get("counts", {})
         self._print(f"\nrun {summary['run_id']} {summary['status']}"
                     + (f": {summary['reason']}" if summary.get("reason") else ""), "bold")
+        suspect = f", {counts['suspect']} SUSPECT (a failed check put them in doubt)" if counts.get("suspect") else ""
         self._print(f"{counts.get('total', 0)} device(s): {counts.get('pass', 0)} passed, {counts.get('fail', 0)} failed, "
-                    f"{counts.get('indeterminate', 0)} indeterminate")
+                    f"{counts.get('indeterminate', 0)} indeterminate{suspect}")
         for label, key in (("Touchstone files", "run_folder"), ("Results database", "database"), ("Report", "report")):
             if summary.get(key):
                 self._print(f"{label}: {summary[key]}")
@@ -189,6 +190,8 @@ class JsonRunView:
     def verification(self, result: VerificationResult, reused: bool) -> None:
         self._emit("verification", check_standard=result.check_standard, devices_before=result.devices_before,
                    worst_deviation=round(result.sweep_worst_deviation, 6), tolerance=result.tolerance,
+                   en=None if result.en is None else round(result.en, 4), agrees=result.agrees,
+                   control_signals=None if result.control_signals is None else list(result.control_signals),
                    passed=result.passed, reused=reused)
 
     def note(self, text: str) -> None:

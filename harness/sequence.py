@@ -16,6 +16,7 @@ import re
 from dataclasses import dataclass
 from pathlib import Path
 
+from lineproof.check_standards import CheckStandardSpec, parse_check_standard
 from lineproof.errors import InputError
 from lineproof.station_file import StationSpec, parse_station
 from lineproof.toml_problems import KeyLines, Problems, TableReader, parse_toml
@@ -51,23 +52,15 @@ class CalibrationSpec:
     method: str
     kit: str  # as written; resolved by :func:`resolve_path`
     valid_for_s: float
+    #: The calibration holds while the analyzer's temperature stays within this of the
+    #: temperature it was made at (None: not checked).
+    max_temperature_change_k: float | None = 1.0
 
 
 @dataclass(frozen=True)
 class TerminationSpec:
     name: str
     max_vswr: float
-
-
-@dataclass(frozen=True)
-class CheckStandardSpec:
-    """A check standard and what it should read: a Touchstone reference or a nominal VSWR,
-    with the largest deviation of |Γ| accepted at any point of a band."""
-
-    name: str
-    tolerance: float
-    reference_file: str | None = None
-    reference_vswr: float | None = None
 
 
 @dataclass(frozen=True)
@@ -182,7 +175,7 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
         bands=bands,
         calibration=_calibration(root.table("calibration")),
         termination=_termination(root.table("termination")),
-        check_standard=_check_standard(root.table("check_standard")),
+        check_standard=parse_check_standard(root.table("check_standard"), _object_name),
         devices=_devices(root.table("devices"), problems),
         decision_rule=_decision(root.table("decision")),
         reverify=_reverify(root.table("reverify")),
@@ -267,13 +260,17 @@ def _calibration(table: TableReader | None) -> CalibrationSpec | None:
         return None
     from lineproof.calibration import METHOD_NAMES
 
-    table.reject_unknown({"method", "kit", "valid_for_minutes"})
+    table.reject_unknown({"method", "kit", "valid_for_minutes", "max_temperature_change_k"})
     method = table.choice("method", list(METHOD_NAMES), "one-port")
     kit = table.get("kit", str, fix='add kit = "kits/n50-illustrative.toml" (or your kit file)')
     minutes = table.number("valid_for_minutes", 480.0, above=0.0)
-    if None in (method, kit, minutes):
+    # Common practice (from memory): analyzers state their corrected performance within
+    # +-1 K of the temperature the calibration was made at.
+    kelvin = table.number("max_temperature_change_k", 1.0, above=0.0,
+                          fix="give the largest temperature change a calibration survives, e.g. 1.0")
+    if None in (method, kit, minutes, kelvin):
         return None
-    return CalibrationSpec(method, kit, minutes * 60.0)
+    return CalibrationSpec(method, kit, minutes * 60.0, kelvin)
 
 
 def _termination(table: TableReader | None) -> TerminationSpec | None:
@@ -284,23 +281,6 @@ def _termination(table: TableReader | None) -> TerminationSpec | None:
     # Common practice, no published source: a termination for a DUT's output is 1.05:1 or better.
     limit = table.number("max_vswr", 1.05, above=1.0, fix="a VSWR limit is a ratio above 1, e.g. 1.05")
     return None if None in (name, limit) else TerminationSpec(name, limit)
-
-
-def _check_standard(table: TableReader | None) -> CheckStandardSpec | None:
-    if table is None:
-        return None
-    table.reject_unknown({"name", "reference_file", "reference_vswr", "tolerance"})
-    name = _object_name(table, "name")
-    reference_file = table.get("reference_file", str, None)
-    reference_vswr = table.number("reference_vswr", None, minimum=1.0)
-    tolerance = table.number("tolerance", above=0.0, fix="give the largest accepted deviation of |Γ|, e.g. 0.01")
-    if (reference_file is None) == (reference_vswr is None):
-        table.problems.add(table.key("reference_file"), "say what the check standard should read, in one way",
-                           "give reference_file = \"<touchstone .s1p>\" or reference_vswr = <ratio>, not both")
-        return None
-    if None in (name, tolerance):
-        return None
-    return CheckStandardSpec(name, tolerance, reference_file, reference_vswr)
 
 
 def _object_name(table: TableReader, key: str) -> str | None:
@@ -441,3 +421,20 @@ def resolve_path(written: str, spec: SequenceSpec) -> Path | None:
         return candidate
     shipped = resources.files("lineproof.sequences") / written
     return Path(str(shipped)) if shipped.is_file() else None
+
+
+def profile_argument(station_source: str, written: str) -> str:
+    """An instrument profile named in a station: a file beside the station (or sequence)
+    file, else in the current folder, else one shipped in ``sequences/`` (``profiles/...``),
+    else as written (a shipped profile's name)."""
+    from importlib import resources
+
+    if not written.endswith(".toml"):
+        return written
+    local = Path(station_source).parent / written
+    if local.is_file():
+        return str(local)
+    if Path(written).is_file():
+        return written
+    shipped = resources.files("lineproof.sequences") / written
+    return str(shipped) if shipped.is_file() else written

@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from lineproof.errors import InputError
-from lineproof.sequence import SequenceSpec, resolve_path
+from lineproof.sequence import SequenceSpec, profile_argument, resolve_path
 from lineproof.toml_problems import Problems
 
 #: Standards a kit must define for each calibration method (short names of
@@ -47,8 +47,7 @@ def _station_key(spec: SequenceSpec, key: str) -> tuple[str, str]:
 
 
 def _profile_path(spec: SequenceSpec, written: str) -> str:
-    local = Path(spec.station.source).parent / written
-    return str(local) if written.endswith(".toml") and local.is_file() else written
+    return profile_argument(spec.station.source, written)
 
 
 def _check_analyzer(spec: SequenceSpec, problems: Problems):  # -> AnalyzerCapabilities | None

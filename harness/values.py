@@ -305,12 +305,20 @@ class VerificationBand:
     stop_hz: float
     measured_reflection: float  # mean |Γ| over the band's points
     reference_reflection: float  # mean reference |Γ| over the same points
-    worst_deviation: float  # largest | |Γ measured| - |Γ reference| | in the band
+    worst_deviation: float  # | |Γ measured| - |Γ reference| | at the deciding point of the band
     worst_frequency_hz: float
+    #: The largest accepted deviation there: the sequence's fixed tolerance, or under the En
+    #: criterion sqrt(U_meas² + U_ref²) at that point.
     tolerance: float
+    #: Normalized error, largest over the band (None: judged by a fixed tolerance).
+    en: float | None = None
+    measured_uncertainty: float | None = None  # U (k = 2) of the measured |Γ| at the deciding point
+    reference_uncertainty: float | None = None  # U (k = 2) of the reference |Γ| there
 
     @property
     def passed(self) -> bool:
+        if self.en is not None:
+            return self.en <= 1.0
         return self.worst_deviation <= self.tolerance
 
 
@@ -326,12 +334,33 @@ class VerificationResult:
     sweep_worst_frequency_hz: float
     tolerance: float
     bands: tuple[VerificationBand, ...]
+    #: Normalized error, largest over the sweep (None: judged by a fixed tolerance).
+    en: float | None = None
+    #: What the check standard's control chart says of this check: None not judged (no
+    #: baseline yet), () in control, else the rules it broke (see :mod:`lineproof.control_chart`).
+    control_signals: tuple[str, ...] | None = None
+    repeats: int = 1
+    temperature_c: float | None = None
+
+    @property
+    def agrees(self) -> bool:
+        """The measured check standard agrees with its reference (En <= 1, or the tolerance)."""
+        if self.en is not None:
+            return self.en <= 1.0 and all(b.passed for b in self.bands)
+        return self.sweep_worst_deviation <= self.tolerance and all(b.passed for b in self.bands)
 
     @property
     def passed(self) -> bool:
-        return self.sweep_worst_deviation <= self.tolerance and all(b.passed for b in self.bands)
+        return self.agrees and not self.control_signals
 
     def describe(self) -> str:
         outcome = "passed" if self.passed else "FAILED"
-        return (f"{self.check_standard}: largest deviation of |Γ| {self.sweep_worst_deviation:.4f} at "
-                f"{self.sweep_worst_frequency_hz / 1e6:.3f} MHz, tolerance {self.tolerance:.4f} -> {outcome}")
+        figure = (f"En {self.en:.2f}" if self.en is not None else
+                  f"largest deviation of |Γ| {self.sweep_worst_deviation:.4f} at "
+                  f"{self.sweep_worst_frequency_hz / 1e6:.3f} MHz, tolerance {self.tolerance:.4f}")
+        chart = ""
+        if self.control_signals:
+            chart = f"; out of control: {'; '.join(self.control_signals)}"
+        elif self.control_signals is not None:
+            chart = "; in control"
+        return f"{self.check_standard}: {figure}{chart} -> {outcome}"
