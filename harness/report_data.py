@@ -9,6 +9,7 @@ from typing import Any
 
 import numpy as np
 
+from lineproof.check_history import ChartData, history_keys, load_chart
 from lineproof.errors import InputError
 from lineproof.store import ResultStore, unpack_arrays
 from lineproof.touchstone import read_metadata
@@ -39,12 +40,18 @@ class RunRecords:
     verifications: list[dict[str, Any]]
     verification_bands: dict[int, list[dict[str, Any]]]
     band_limits: list[dict[str, Any]]
+    #: The control charts of the check standards this run verified with (their whole history
+    #: on the run's station and analyzer).
+    charts: list[ChartData] = field(default_factory=list)
+    #: Suspect results measured again: serial -> (the run that did, its verdict).
+    remeasured: dict[str, tuple[str, str]] = field(default_factory=dict)
 
     @property
     def counts(self) -> dict[str, int]:
-        counts = {"total": len(self.devices), "pass": 0, "fail": 0, "indeterminate": 0}
+        counts = {"total": len(self.devices), "pass": 0, "fail": 0, "indeterminate": 0, "suspect": 0}
         for device in self.devices:
             counts[str(device.row["verdict"])] = counts.get(str(device.row["verdict"]), 0) + 1
+            counts["suspect"] += bool(device.row.get("suspect"))
         return counts
 
 
@@ -91,4 +98,23 @@ def load_run_records(store: ResultStore, run_id: str, read_traces: bool = True) 
     limits = store.rows(
         "SELECT DISTINCT band, start_hz, stop_hz, limit_vswr FROM band_results WHERE device_row IN"
         " (SELECT device_row FROM devices WHERE run_id = ?) ORDER BY start_hz", (run_id,))
-    return RunRecords(run, devices, calibrations, qualifications, verifications, bands, limits)
+    return RunRecords(run, devices, calibrations, qualifications, verifications, bands, limits,
+                      _charts(store, run, verifications), _remeasured(store, run_id))
+
+
+def _charts(store: ResultStore, run: dict[str, Any], verifications: list[dict[str, Any]]) -> list[ChartData]:
+    charts = []
+    for name in dict.fromkeys(str(v["check_standard"]) for v in verifications):
+        for key in history_keys(store, station=str(run["station"]), check_standard=name):
+            if key.analyzer == run["analyzer"]:
+                charts.append(load_chart(store, key))
+    return charts
+
+
+def _remeasured(store: ResultStore, run_id: str) -> dict[str, tuple[str, str]]:
+    found: dict[str, tuple[str, str]] = {}
+    for serial, again, verdict in store.query(
+            "SELECT d.serial, d.run_id, d.verdict FROM devices d JOIN runs r ON r.run_id = d.run_id"
+            " WHERE r.remeasure_of = ? ORDER BY r.started_utc, d.position", (run_id,)):
+        found[str(serial)] = (str(again), str(verdict))
+    return found
