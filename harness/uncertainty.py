@@ -216,37 +216,77 @@ def residuals_from_check_standard(known: np.ndarray, measured: np.ndarray, expec
     return math.sqrt(2) * missing / np.sqrt(1 + g**2 + g**4)
 
 
-_PAIRS = ((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))
+def _vector(gamma: np.ndarray, gamma_squared: np.ndarray,
+            transmission: tuple[np.ndarray, np.ndarray] | None) -> tuple[np.ndarray | None, np.ndarray, np.ndarray]:
+    """The components (v0, v1, v2) of v = (1, Γ, Γ²), plus S21 S12 (1, ELF, ELF²) with full
+    two-port data; v0 is None where it is exactly 1 (a one-port reading)."""
+    if transmission is None:
+        return None, gamma, gamma_squared
+    product, load_match = transmission
+    return 1 + product, gamma + product * load_match, gamma_squared + product * (load_match * load_match)
 
 
-def _pair_products(vector: np.ndarray, conjugate: bool) -> list[np.ndarray]:
-    left = np.conj(vector) if conjugate else vector
-    return [left[:, j] * vector[:, k] for j, k in _PAIRS]
+def _power(values: np.ndarray) -> np.ndarray:
+    """|z|² computed as re² + im² (what z̄ z gives, without the complex product)."""
+    return values.real * values.real + values.imag * values.imag
 
 
-def _form(matrix: np.ndarray, products: list[np.ndarray], hermitian: bool) -> np.ndarray:
-    """Σ_jk v̄_j M_jk v_k (Hermitian M, real result) or Σ_jk v_j M_jk v_k (symmetric M) from
-    the six pair products: the diagonal once, each off-diagonal pair twice."""
-    diagonal = sum(matrix[:, j, j] * products[i] for i, (j, _) in enumerate(_PAIRS[:3]))
-    off = sum(matrix[:, j, k] * products[i + 3] for i, (j, k) in enumerate(_PAIRS[3:]))
-    if hermitian:
-        return diagonal.real + 2 * off.real
-    return diagonal + 2 * off
+def _hermitian_form(matrix: np.ndarray, squares: tuple[np.ndarray | float, np.ndarray, np.ndarray],
+                    crosses: tuple[np.ndarray, np.ndarray, np.ndarray]) -> np.ndarray:
+    """vᴴMv = Σ_j M_jj |v_j|² + 2 Re Σ_{j<k} M_jk v̄_j v_k for a Hermitian M (real result),
+    from |v_j|² and the three products v̄_j v_k (j < k)."""
+    off = matrix[:, 0, 1] * crosses[0]
+    off += matrix[:, 0, 2] * crosses[1]
+    off += matrix[:, 1, 2] * crosses[2]
+    result = matrix[:, 1, 1].real * squares[1]
+    result += matrix[:, 2, 2].real * squares[2]
+    result += matrix[:, 0, 0].real * squares[0]
+    result += 2 * off.real
+    return result
 
 
-def _quadratic_forms(residuals: Mapping[str, np.ndarray], prefix: str,
-                     vector: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Variance, pseudo-variance and the load standard's variance of the residual error at
-    each point (zeros when the calibration has no residual model)."""
+def _symmetric_form(matrix: np.ndarray, v0: np.ndarray | None, v1: np.ndarray, v2: np.ndarray) -> np.ndarray:
+    """vᵀMv = Σ_j M_jj v_j² + 2 Σ_{j<k} M_jk v_j v_k for a symmetric M, grouped as
+    v0 (M00 v0 + 2 (M01 v1 + M02 v2)) + v1 (M11 v1 + 2 M12 v2) + M22 v2²."""
+    first = matrix[:, 0, 1] * v1
+    first += matrix[:, 0, 2] * v2
+    first *= 2
+    second = matrix[:, 1, 2] * v2
+    second *= 2
+    second += matrix[:, 1, 1] * v1
+    second *= v1
+    last = matrix[:, 2, 2] * v2
+    last *= v2
+    if v0 is None:
+        first += matrix[:, 0, 0]
+    else:
+        first += matrix[:, 0, 0] * v0
+        first *= v0
+    first += second
+    first += last
+    return first
+
+
+def _quadratic_forms(residuals: Mapping[str, np.ndarray], prefix: str, v0: np.ndarray | None, v1: np.ndarray,
+                     v2: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Variance vᴴAv, pseudo-variance vᵀBv and the load standard's variance of the residual
+    error at each point (zeros when the calibration has no residual model).  Written out
+    term by term (A and B are Hermitian and symmetric 3 x 3 per point), which costs a third
+    of forming the nine products of v̄_j v_k and summing them."""
     variance = residuals.get(f"{prefix}.variance")
     if variance is None:
-        zero = np.zeros(vector.shape[0])
-        return zero, zero.astype(complex), zero
-    mixed = _pair_products(vector, conjugate=True)
+        return np.zeros(v1.shape[0]), np.zeros(v1.shape[0], complex), np.zeros(v1.shape[0])
+    if v0 is None:
+        squares: tuple[np.ndarray | float, np.ndarray, np.ndarray] = (1.0, _power(v1), _power(v2))
+        crosses = (v1, v2, np.conj(v1) * v2)
+    else:
+        conjugate = np.conj(v0)
+        squares = (_power(v0), _power(v1), _power(v2))
+        crosses = (conjugate * v1, conjugate * v2, np.conj(v1) * v2)
     load = residuals.get(f"{prefix}.load_variance")
-    return (_form(variance, mixed, True),
-            _form(residuals[f"{prefix}.pseudo_variance"], _pair_products(vector, conjugate=False), False),
-            np.zeros(vector.shape[0]) if load is None else _form(load, mixed, True))
+    return (_hermitian_form(variance, squares, crosses),
+            _symmetric_form(residuals[f"{prefix}.pseudo_variance"], v0, v1, v2),
+            np.zeros(v1.shape[0]) if load is None else _hermitian_form(load, squares, crosses))
 
 
 def estimate_trace_noise(trace: np.ndarray) -> float:
@@ -329,10 +369,6 @@ def termination_rms(reflection: np.ndarray, standard_uncertainty: np.ndarray) ->
     return np.sqrt(np.abs(reflection) ** 2 + 2 * np.asarray(standard_uncertainty) ** 2)
 
 
-def _radial(v: np.ndarray, w: np.ndarray, turn: np.ndarray) -> np.ndarray:
-    return np.sqrt(np.maximum(0.5 * (v + (w * turn).real), 0.0))
-
-
 def reflection_uncertainty(
     residuals: Mapping[str, np.ndarray],
     gamma: np.ndarray,
@@ -352,33 +388,51 @@ def reflection_uncertainty(
     unknown phase dominates (then from :func:`coverage_factor`), or ``settings.coverage_factor``."""
     g = np.asarray(gamma, dtype=complex)
     f = np.asarray(frequencies_hz, dtype=float)
-    vector = np.stack([np.ones_like(g), g, g * g], axis=-1)
-    if transmission is not None:
-        product, load_match = transmission
-        vector = vector + product[:, None] * np.stack([np.ones_like(g), load_match, load_match**2], axis=-1)
-    power = np.abs(g) ** 2
-    with np.errstate(divide="ignore", invalid="ignore"):
-        turn = np.where(power > 0, np.conj(g) ** 2 / power, 1.0)  # e^(-2j arg Γ)
-    v, w, load_v = _quadratic_forms(residuals, prefix, vector)
-    calibration = _radial(v, w, turn)
-    load = np.minimum(np.sqrt(np.maximum(load_v, 0.0) / 2), calibration)
+    g2 = g * g
+    v0, v1, v2 = _vector(g, g2, transmission)
+    magnitude = np.abs(g)
+    v, w, load_v = _quadratic_forms(residuals, prefix, v0, v1, v2)
+    v += _along(w, g2, magnitude)
+    v *= 0.5
+    variance = np.maximum(v, 0.0, out=v)  # of |Γ| from the calibration's residuals
+    calibration = np.sqrt(variance)
+    load = np.minimum(np.sqrt(np.maximum(load_v, 0.0, out=load_v) / 2), calibration)
     budget = {"calibration (load standard)": load,
-              "calibration (other standards)": np.sqrt(np.maximum(calibration**2 - load**2, 0.0))}
+              "calibration (other standards)": np.sqrt(np.maximum(variance - load * load, 0.0))}
     noise = settings.trace_noise if settings.trace_noise is not None else estimate_trace_noise(g)
     budget["noise"] = np.full(f.shape, noise)
+    total_variance = variance + noise * noise  # load² + others² = the calibration's variance
     if settings.connection_repeatability:
-        reach = np.abs(1 - g * g) if transmission is None else np.abs(1 - g * g) + np.abs(transmission[0])
-        budget["connection"] = settings.repeatability(f) * reach / math.sqrt(2)
+        reach = np.abs(1 - g2)
+        if transmission is not None:
+            reach += np.abs(transmission[0])
+        reach *= f
+        reach *= settings.connection_repeatability / (settings.repeatability_reference_hz * math.sqrt(2))
+        budget["connection"] = reach
+        total_variance += reach * reach
     spread = residuals.get(f"{prefix}.load_spread")
     bounded = [(load, 1.0 if spread is None else float(spread[0].real))]
     if termination_reach is not None:
         budget["termination"] = termination_bound(g, termination_reach) / math.sqrt(2)
         bounded.append((budget["termination"], 1.0))
+        total_variance += budget["termination"] ** 2
     if interpolation_error:
         budget["interpolation"] = np.full(f.shape, interpolation_error / math.sqrt(2))
         bounded.append((budget["interpolation"], 1.0))
-    total = np.sqrt(sum(part**2 for part in budget.values()))
-    return ReflectionUncertainty(np.abs(g), total, _coverage(bounded, total, settings), budget)
+        total_variance += interpolation_error**2 / 2
+    total = np.sqrt(total_variance, out=total_variance)
+    return ReflectionUncertainty(magnitude, total, _coverage(bounded, total, settings), budget)
+
+
+def _along(pseudo_variance: np.ndarray, gamma_squared: np.ndarray, magnitude: np.ndarray) -> np.ndarray:
+    """Re(W e^(-2j arg Γ)) = Re(W conj(Γ²)) / |Γ|² (Re W where Γ = 0): the pseudo-variance's
+    share along Γ."""
+    power = magnitude * magnitude
+    turned = (pseudo_variance * np.conj(gamma_squared)).real
+    if power.all():
+        return turned / power
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(power > 0, turned / power, pseudo_variance.real)
 
 
 def _coverage(bounded: list[tuple[np.ndarray, float]], total: np.ndarray,
@@ -388,9 +442,12 @@ def _coverage(bounded: list[tuple[np.ndarray, float]], total: np.ndarray,
     wide side)."""
     if settings.coverage_factor is not None:
         return np.full(total.shape, settings.coverage_factor)
-    parts = np.stack([part for part, _ in bounded])
-    largest = np.argmax(parts, axis=0)
     with np.errstate(divide="ignore", invalid="ignore"):
+        if len(bounded) == 1:  # one contribution of unknown phase: no choosing to do
+            part, spread = bounded[0]
+            return np.interp(np.where(total > 0, part / total, 0.0), _SHARES, _coverage_row(spread))
+        parts = np.stack([part for part, _ in bounded])
+        largest = np.argmax(parts, axis=0)
         share = np.where(total > 0, np.max(parts, axis=0) / total, 0.0)
     factor = np.empty(total.shape)
     for index, (_, spread) in enumerate(bounded):
@@ -414,18 +471,33 @@ def transmission_uncertainty_db(
     settings: UncertaintySettings = UncertaintySettings(),
     noise: float | None = None,
 ) -> np.ndarray:
-    """Expanded uncertainty (dB) of |S21| of full two-port data: thru statement (tracking),
-    residual source match at port 1 times S11 and residual load match (the port-1 residual
-    directivity it was measured with) times S22, and noise; first order, the complex relative
-    error taken as of unknown phase except the tracking's magnitude part."""
-    s11, s21, s22 = s[:, 0, 0], s[:, 1, 0], s[:, 1, 1]
+    """Expanded uncertainty (dB) of |S21| of full two-port data ``s`` (N, 2, 2); see
+    :func:`transmission_uncertainty_traces_db`."""
+    return transmission_uncertainty_traces_db(residuals, s[:, 0, 0], s[:, 1, 0], s[:, 1, 1], settings, noise)
+
+
+def transmission_uncertainty_traces_db(
+    residuals: Mapping[str, np.ndarray],
+    s11: np.ndarray,
+    s21: np.ndarray,
+    s22: np.ndarray,
+    settings: UncertaintySettings = UncertaintySettings(),
+    noise: float | None = None,
+    s21_magnitude: np.ndarray | None = None,
+) -> np.ndarray:
+    """Expanded uncertainty (dB) of |S21|: thru statement (tracking), residual source match
+    at port 1 times S11 and residual load match (the port-1 residual directivity it was
+    measured with) times S22, and noise; first order, the complex relative error taken as of
+    unknown phase except the tracking's magnitude part.  ``s21_magnitude``: |S21| when the
+    caller has it already."""
     magnitude = residuals.get("transmission.magnitude_variance", np.zeros(s21.shape)).real
-    mismatch = np.zeros(s21.shape)
+    mismatch: np.ndarray | float = 0.0
     variance = residuals.get("port1.variance")
     if variance is not None:
-        mismatch = variance[:, 2, 2].real * np.abs(s11) ** 2 + variance[:, 0, 0].real * np.abs(s22) ** 2
+        mismatch = variance[:, 2, 2].real * _power(s11) + variance[:, 0, 0].real * _power(s22)
     sigma = noise if noise is not None else (settings.trace_noise or estimate_trace_noise(s21))
-    relative = np.sqrt(magnitude + 0.5 * mismatch + (sigma / np.maximum(np.abs(s21), 1e-12)) ** 2)
+    through = np.abs(s21) if s21_magnitude is None else s21_magnitude
+    relative = np.sqrt(magnitude + 0.5 * mismatch + (sigma / np.maximum(through, 1e-12)) ** 2)
     return (settings.coverage_factor or 2.0) * 20 / math.log(10) * relative
 
 
