@@ -128,6 +128,23 @@ def _suspect_section(records: RunRecords) -> str:
             + _table(["#", "serial", "verdict", "why", "now"], rows, frozenset({0})))
 
 
+def _study_section(records: RunRecords) -> str:
+    if not records.study:
+        return ""
+    first = records.study[0]
+    rows = [[_e(s["band"]), _e(s["figure"]), _number(s["repeatability_sd"], 5), _number(s["reproducibility_sd"], 5),
+             _number(s["gauge_sd"], 5), _number(s["part_sd"], 5), _number(s["tolerance"], 3),
+             f"{100 * s['repeatability_share']:.1f} %", f"{100 * s['reproducibility_share']:.1f} %",
+             f"{100 * s['gauge_share']:.1f} %"] for s in records.study]
+    headers = ["band", "figure", "repeatability σ", "reproducibility σ", "GR&R σ", "devices σ", "tolerance",
+               "repeatability", "reproducibility", "GR&R"]
+    return (f"<h2>Repeatability study</h2><p class='note'>{_e(first['devices'])} devices x "
+            f"{_e(first['reconnections'])} connections x {_e(first['operators'])} operator(s); "
+            f"{len(records.study_readings)} readings. Method: {_e(first['method'])}. The last three columns are "
+            "shares of the tolerance (the band's VSWR limit - 1).</p>"
+            + _table(headers, rows, frozenset(range(2, 10))))
+
+
 def _calibration_section(records: RunRecords) -> str:
     calibrations = _table(
         ["calibration", "made (UTC)", "method", "kit", "analyzer", "sweep"],
@@ -201,7 +218,8 @@ def render_html(records: RunRecords) -> str:
     return (
         f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>lineproof report {_e(run_id)}</title>"
         f"<style>{_STYLE}</style></head><body><h1>Run report: {_e(records.run['sequence_name'])}</h1>"
-        f"{_run_section(records)}<h2>Verdicts</h2>{_verdict_table(records)}{_suspect_section(records)}"
+        f"{_run_section(records)}{_study_section(records)}<h2>Verdicts</h2>{_verdict_table(records)}"
+        f"{_suspect_section(records)}"
         f"{_calibration_section(records)}"
         f"{_verification_section(records)}{_plots_section(records)}"
         f"<p class='note'>Written by lineproof {_e(__version__)} from the run's records.</p></body></html>"
@@ -273,6 +291,8 @@ def render_json(records: RunRecords) -> str:
         "remeasured": {serial: {"run_id": run, "verdict": verdict} for serial, (run, verdict) in records.remeasured.items()},
         "control_charts": [_chart_json(c) for c in records.charts],
     }
+    if records.study:
+        summary["repeatability_study"] = {"results": plain(records.study), "readings": records.study_readings}
     return json.dumps(summary, indent=2)
 
 

@@ -45,6 +45,9 @@ class RunRecords:
     charts: list[ChartData] = field(default_factory=list)
     #: Suspect results measured again: serial -> (the run that did, its verdict).
     remeasured: dict[str, tuple[str, str]] = field(default_factory=dict)
+    #: A repeatability study's per-band results and its readings (empty for a batch).
+    study: list[dict[str, Any]] = field(default_factory=list)
+    study_readings: list[dict[str, Any]] = field(default_factory=list)
 
     @property
     def counts(self) -> dict[str, int]:
@@ -98,8 +101,11 @@ def load_run_records(store: ResultStore, run_id: str, read_traces: bool = True) 
     limits = store.rows(
         "SELECT DISTINCT band, start_hz, stop_hz, limit_vswr FROM band_results WHERE device_row IN"
         " (SELECT device_row FROM devices WHERE run_id = ?) ORDER BY start_hz", (run_id,))
+    study = store.rows("SELECT * FROM study_results WHERE run_id = ? ORDER BY band", (run_id,))
+    readings = store.rows("SELECT serial, operator, repeat, band, figure, value, measured_utc FROM study_readings"
+                          " WHERE run_id = ? ORDER BY reading_id", (run_id,))
     return RunRecords(run, devices, calibrations, qualifications, verifications, bands, limits,
-                      _charts(store, run, verifications), _remeasured(store, run_id))
+                      _charts(store, run, verifications), _remeasured(store, run_id), study, readings)
 
 
 def _charts(store: ResultStore, run: dict[str, Any], verifications: list[dict[str, Any]]) -> list[ChartData]:

@@ -163,6 +163,7 @@ class StepRunner:
         handlers: dict[str, Callable[[int, StepSpec], None]] = {
             "identify": self._identify, "calibrate": self._calibrate, "qualify-termination": self._qualify,
             "verify": self._verify_step, "measure-batch": self._batch, "message": self._message, "route": self._route,
+            "repeatability-study": self._study,
         }
         for index, step in enumerate(self.spec.steps):
             if self.stop.requested:
@@ -329,6 +330,12 @@ class StepRunner:
             self.measuring.operator.after_connect = None  # type: ignore[attr-defined]
             self._pipeline = None
             pipeline.close()
+
+    def _study(self, index: int, step: StepSpec) -> None:
+        from lineproof.study_steps import run_study
+
+        run_study(self.spec, self.measuring, self._basis(), self.store, self.journal, self.view, self.facts,
+                  self.station.operator, lambda: self.stop.requested)
 
     def _units(self):  # -> Iterator[DeviceUnit]
         devices = self.spec.devices

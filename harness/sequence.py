@@ -18,13 +18,15 @@ from pathlib import Path
 
 from lineproof.check_standards import CheckStandardSpec, parse_check_standard
 from lineproof.errors import InputError
+from lineproof.gauge_study import StudySpec, parse_study
 from lineproof.station_file import StationSpec, parse_station
 from lineproof.toml_problems import KeyLines, Problems, TableReader, parse_toml
 from lineproof.touchstone import SERIAL_RULE, serial_problem
 from lineproof.values import BandLimit, SweepPlan
 
 #: Actions a ``[[step]]`` may ``do``.
-ACTIONS = ("identify", "calibrate", "qualify-termination", "verify", "measure-batch", "message", "route")
+ACTIONS = ("identify", "calibrate", "qualify-termination", "verify", "measure-batch", "repeatability-study",
+           "message", "route")
 #: How the serial numbers of a batch are known.
 DEVICE_ENTRY = ("listed", "scanned")
 DECISION_RULES = ("simple", "guard-banded")
@@ -120,6 +122,7 @@ class SequenceSpec:
     records_folder: str | None = None
     database: str | None = None
     notes: str = ""
+    study: StudySpec | None = None
 
     @property
     def folder(self) -> Path:
@@ -153,7 +156,7 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
         return None, problems
     root = TableReader(data, "", problems)
     root.reject_unknown({"sequence", "station", "sweep", "band", "calibration", "termination",
-                         "check_standard", "devices", "decision", "reverify", "step", "records"})
+                         "check_standard", "devices", "decision", "reverify", "step", "records", "study"})
     head = root.table("sequence", required=True)
     name, notes = None, ""
     if head is not None:
@@ -183,6 +186,7 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
         records_folder=records[0],
         database=records[1],
         notes=notes,
+        study=parse_study(root.table("study")),
     )
     if problems or station is None or plan is None:
         return None, problems

@@ -166,13 +166,14 @@ def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
         "qualify-termination": ("termination", "add a [termination] table with the termination's name"),
         "verify": ("check_standard", "add a [check_standard] table"),
         "measure-batch": ("devices", "add a [devices] table"),
+        "repeatability-study": ("study", 'add a [study] table with kind = "repeatability" and reconnections'),
     }
     seen: set[str] = set()
     for step in spec.steps:
         table, fix = needs.get(step.action, (None, ""))
         if table is not None and getattr(spec, table) is None:
             problems.add(step.key, f"step {step.action!r} needs a [{table}] table", fix)
-        if step.action in ("qualify-termination", "verify", "measure-batch") and "calibrate" not in seen:
+        if step.action in ("qualify-termination", "verify", "measure-batch", "repeatability-study") and "calibrate" not in seen:
             problems.add(step.key, f"step {step.action!r} comes before any calibrate step",
                          "put a do = \"calibrate\" step before it")
         if step.action == "measure-batch":
@@ -184,6 +185,8 @@ def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
             if spec.termination is None:
                 problems.add(step.key, "the batch needs a [termination] for the devices' outputs",
                              "add a [termination] table")
+        if step.action == "repeatability-study":
+            _check_study_step(spec, step, seen, problems)
         seen.add(step.action)
     if spec.reverify.any:
         if spec.check_standard is None:
@@ -191,6 +194,18 @@ def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
         if "measure-batch" not in seen:
             problems.add("reverify", "re-verification happens during a batch, and this sequence measures none",
                          "remove [reverify] or add a measure-batch step")
+
+
+def _check_study_step(spec: SequenceSpec, step, seen: set[str], problems: Problems) -> None:  # noqa: ANN001
+    if "qualify-termination" not in seen or spec.termination is None:
+        problems.add(step.key, "the study's devices would be measured on a termination nobody qualified",
+                     "put a do = \"qualify-termination\" step (and a [termination]) before it")
+    if spec.devices is None or spec.devices.entry != "listed" or len(spec.devices.units) < 2:
+        problems.add(step.key, "a repeatability study measures at least two listed devices",
+                     'list the devices in [devices] (entry = "listed")')
+    if "measure-batch" in seen or spec.has_step("measure-batch"):
+        problems.add(step.key, "a sequence is a batch or a repeatability study, not both",
+                     "keep one of measure-batch and repeatability-study")
 
 
 def _check_devices(spec: SequenceSpec, problems: Problems) -> None:

@@ -285,8 +285,11 @@ class ResultStore:
 
     def record_study(self, run_id: str, readings: Sequence[Mapping[str, object]],
                      results: Sequence[Mapping[str, object]]) -> None:
-        """A repeatability study's readings and its per-band results, in one transaction."""
+        """A repeatability study's readings and its per-band results, in one transaction (in
+        place of any the run recorded before: a resumed study is measured again whole)."""
         with self._transaction() as db:
+            for table in ("study_readings", "study_results"):
+                self._run(db, f"DELETE FROM {table} WHERE run_id = ?", (run_id,))
             for table, rows in (("study_readings", readings), ("study_results", results)):
                 for row in rows:
                     self._run(db, f"INSERT INTO {table} ({', '.join(row)}) VALUES ({', '.join('?' for _ in row)})",

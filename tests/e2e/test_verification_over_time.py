@@ -109,7 +109,9 @@ def test_the_check_standard_catches_the_drift_and_exactly_the_results_in_doubt_a
     assert [(c[0], c[1]) for c in checks] == [(0, 1), (4, 1), (8, 1), (12, 0), (12, 1), (16, 1)]
     failed = checks[3]
     assert failed[2] > 1 and failed[3] == 0 and "beyond the control limits" in failed[4]  # En and the chart agree
-    assert all(c[3] == 1 for c in checks if c[1]) and failed[5].startswith("En <= 1")
+    # The batch's first check completes the chart's baseline (nine earlier sessions + 1); every
+    # later passing check is in control, the calibration made at 35 deg C included.
+    assert checks[0][3] is None and all(c[3] == 1 for c in checks[1:] if c[1]) and failed[5].startswith("En <= 1")
     assert len(calibrations) == 2  # made again after the failed check, before device 13
     assert len(reasons) == 1 and "failed after device 12" in reasons.pop()
 
@@ -128,6 +130,22 @@ def test_suspect_results_are_marked_beside_their_files_and_in_the_summaries(drif
     assert summary["counts"]["suspect"] == 4
     html = (folder / "report.html").read_text(encoding="utf-8")
     assert "SUSPECT" in html and "Control chart" in html
+
+
+def test_the_history_command_prints_the_chart_and_plots_it(drifted, capsys: pytest.CaptureFixture[str]) -> None:
+    records, folder = drifted["records"], drifted["folder"]
+    capsys.readouterr()
+    assert main(["history", "--records", str(records), "--figure", "70cm", "--plot", str(folder / "chart.png")]) == 0
+    out = capsys.readouterr().out
+    assert "check standard mismatch-2to1, 70cm mean |Γ|" in out and "baseline of 10 checks" in out
+    statuses = [line.split()[-1] for line in out.splitlines() if line.strip()[:2].strip().isdigit()]
+    assert statuses.count("baseline") == 10 and "OUT: beyond the control limits" in out
+    assert (folder / "chart.png").read_bytes().startswith(b"\x89PNG\r\n\x1a\n")
+    assert main(["history", "--records", str(records), "--json"]) == 0
+    charts = json.loads(capsys.readouterr().out)
+    assert [c["figure"] for c in charts] == ["2m mean |Γ|", "70cm mean |Γ|"]
+    assert all(c["baseline"]["count"] == 10 for c in charts)
+    assert main(["history", "--records", str(records), "--check-standard", "none-such"]) == 3
 
 
 def test_suspect_results_are_measured_again(drifted, capsys: pytest.CaptureFixture[str]) -> None:
