@@ -146,8 +146,12 @@ def test_a_calibration_too_old_or_disproven_is_made_again_on_resume(tmp_path: Pa
     with sqlite3.connect(records / "results.sqlite") as db:
         calibrations = [c for (c,) in db.execute("SELECT calibration_id FROM calibrations ORDER BY created_utc")]
         used = dict(db.execute("SELECT serial, calibration_id FROM devices"))
-    assert len(calibrations) == 2 and set(used.values()) == set(calibrations)
-    assert used["TM150-0010"] == calibrations[1]
+    # The resumed run calibrates again at once; with a calibration valid for only 0.6 s the policy
+    # (a calibration holds while it is younger than valid_for_minutes) makes it new again before
+    # later devices too.  Every device after the interruption used a calibration made after it.
+    assert len(calibrations) >= 2 and set(used.values()) <= set(calibrations)
+    first = {serial for serial, cal in used.items() if cal == calibrations[0]}
+    assert len(first) >= 2 and used["TM150-0010"] == calibrations[-1]
 
     # A check standard that fails: the run halts, and a resumed run does not trust that calibration.
     strict = sequence_variant(replace={"tolerance = 0.015": "tolerance = 0.0001"})
