@@ -155,6 +155,7 @@ def _verification_items(verification: VerificationResult | None, position: int) 
         ("verification.last.worst_deviation", f"{verification.sweep_worst_deviation:.5f}"),
         ("verification.last.tolerance", f"{verification.tolerance:.5f}"),
         ("verification.last.result", "passed" if verification.passed else "failed"),
+        *([("verification.last.en", f"{verification.en:.3f}")] if verification.en is not None else []),
         # devices measured after that check and before this one
         ("verification.last.devices_between", position - 1 - verification.devices_before),
     ]

@@ -177,10 +177,9 @@ class CheckRunner:
                            suspect=list(suspects))
         self.view.step_finished("")
         self.view.verification(result, reused=False)
-        if suspects:
-            self.view.note(f"{len(suspects)} result(s) since the last passing check are now SUSPECT: "
-                           f"{', '.join(suspects)} (measure them again with lineproof run --remeasure-suspect "
-                           f"{self.facts.run_id})")
+        if suspects and window is not None:
+            self.view.suspect_results(list(suspects), window.reason,
+                                      f"lineproof run --remeasure-suspect {self.facts.run_id}")
         return RecordedCheck(result, row, suspects)
 
 

@@ -27,6 +27,7 @@ class RunView(Protocol):
     def qualification(self, result: TerminationQualification, reused: bool) -> None: ...
     def verification(self, result: VerificationResult, reused: bool) -> None: ...
     def note(self, text: str) -> None: ...
+    def suspect_results(self, serials: list[str], reason: str, command: str) -> None: ...
     def ask(self, prompt: str) -> str | None: ...
     def run_finished(self, summary: dict[str, Any]) -> None: ...
     def close(self) -> None: ...
@@ -110,6 +111,10 @@ class ConsoleRunView:
 
     def note(self, text: str) -> None:
         self._print(text)
+
+    def suspect_results(self, serials: list[str], reason: str, command: str) -> None:
+        self._print(f"{len(serials)} result(s) since the last passing check are now SUSPECT: {', '.join(serials)} "
+                    f"(measure them again with {command})", "bold red")
 
     def ask(self, prompt: str) -> str | None:
         with self._lock:
@@ -196,6 +201,9 @@ class JsonRunView:
 
     def note(self, text: str) -> None:
         self._emit("note", text=text)
+
+    def suspect_results(self, serials: list[str], reason: str, command: str) -> None:
+        self._emit("suspect", serials=serials, reason=reason, remeasure_command=command)
 
     def ask(self, prompt: str) -> str | None:
         self._emit("prompt", text=prompt)

@@ -8,6 +8,8 @@ starts its own simulated bench, exactly as ``lineproof run`` does.
 
 from __future__ import annotations
 
+import contextlib
+import io
 import json
 import sqlite3
 from pathlib import Path
@@ -15,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import skrf
-from record_checks import check_records_agree, device_rows
+from record_checks import check_records_agree, device_rows, run_cli
 
 from lineproof.cli import main
 from lineproof.simulators.bench import SimulatedBench
@@ -79,10 +81,13 @@ def drifted(tmp_path_factory: pytest.TempPathFactory) -> dict[str, object]:
         earlier = _variant(folder, f"earlier-{session}.toml", {**NO_TEMPERATURE_LIMIT, **CHECK_ONLY}, session)
         assert main(["run", str(earlier), "--records", str(records)]) == 0
     batch = _variant(folder, "batch.toml", NO_TEMPERATURE_LIMIT)
-    code = main(["run", str(batch), "--records", str(records), "--json"])
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed):
+        code = main(["run", str(batch), "--records", str(records), "--json"])
+    events = [json.loads(line) for line in printed.getvalue().splitlines()]
     with sqlite3.connect(records / "results.sqlite") as db:
         run_id = db.execute("SELECT run_id FROM runs ORDER BY rowid DESC LIMIT 1").fetchone()[0]
-    return {"records": records, "run_id": run_id, "code": code, "folder": folder}
+    return {"records": records, "run_id": run_id, "code": code, "folder": folder, "events": events}
 
 
 def test_the_check_standard_catches_the_drift_and_exactly_the_results_in_doubt_are_suspect(drifted) -> None:
@@ -114,6 +119,11 @@ def test_the_check_standard_catches_the_drift_and_exactly_the_results_in_doubt_a
     assert checks[0][3] is None and all(c[3] == 1 for c in checks[1:] if c[1]) and failed[5].startswith("En <= 1")
     assert len(calibrations) == 2  # made again after the failed check, before device 13
     assert len(reasons) == 1 and "failed after device 12" in reasons.pop()
+    # A line system is told in one event, with the command that measures them again.
+    told = [e for e in drifted["events"] if e["event"] == "suspect"]
+    assert [e["serials"] for e in told] == [SERIALS[8:12]] and run_id in told[0]["remeasure_command"]
+    checked = [e for e in drifted["events"] if e["event"] == "verification"]
+    assert [e["passed"] for e in checked] == [True, True, True, False, True, True] and checked[3]["en"] > 1
 
 
 def test_suspect_results_are_marked_beside_their_files_and_in_the_summaries(drifted) -> None:
@@ -174,3 +184,25 @@ def test_the_temperature_limit_makes_a_new_calibration_before_any_result_is_spoi
     assert temperatures == pytest.approx([23.0, 35.0])
     assert _actually_off(records, run_id) == set() and not any(r["suspect"] for r in device_rows(
         records / "results.sqlite", run_id))
+
+
+ATTENDED = {'connected_by = "simulated-operator"': 'connected_by = "operator"',
+            '"TM150-0211", "TM150-0212",\n           "TM150-0213", "TM150-0214", "TM150-0215", "TM150-0216"]': "]"}
+#: Enter at each prompt up to the one before device 10: the calibration's three standards, the
+#: termination, three connections of the check standard; devices 1-4, a check, 5-8, a check, 9.
+BEFORE_DEVICE_10 = 3 + 1 + 3 + 4 + 3 + 4 + 3 + 1
+
+
+def test_an_attended_run_stops_at_a_prompt_when_the_calibration_no_longer_holds(tmp_path: Path) -> None:
+    sequence = _variant(tmp_path, "attended.toml", ATTENDED)
+    stopped = run_cli("run", str(sequence), "--records", "stop", cwd=tmp_path,
+                      stdin="\n" * BEFORE_DEVICE_10 + "stop\n")
+    assert stopped.returncode == 2 and "interrupted" in stopped.stderr
+    assert ">>> The calibration no longer holds (the analyzer's temperature moved from 23.00 to 35.00" in stopped.stdout
+    assert len(device_rows(tmp_path / "stop" / "results.sqlite")) == 9
+    # Enter at that prompt: the person is asked for the standards again, then device 10.
+    went_on = run_cli("run", str(sequence), "--records", "on", cwd=tmp_path, stdin="\n" * 40)
+    assert went_on.returncode == 0, went_on.stdout[-2000:]
+    assert went_on.stdout.count("Connect the open standard") == 2
+    rows = device_rows(tmp_path / "on" / "results.sqlite")
+    assert len(rows) == 10 and rows[8]["calibration_id"] != rows[9]["calibration_id"]
