@@ -31,6 +31,14 @@ def describe(spec: SequenceSpec) -> list[str]:
         parts = [f"every {r.every_devices} devices" if r.every_devices else "",
                  f"every {r.every_minutes:g} min" if r.every_minutes else "", "at the end" if r.at_end else ""]
         lines.append("re-verify: " + ", ".join(p for p in parts if p))
+    check = spec.check_standard
+    if check is not None:
+        judged = ("En <= 1 per band" if check.criterion == "En" else f"largest deviation of |Γ| <= {check.tolerance:g}")
+        lines.append(f"check standard: {check.name}, judged by {judged}; {check.repeats} connection(s) per check; "
+                     f"control limits from the first {check.baseline_checks} checks")
+    if spec.study is not None:
+        operators = ", ".join(spec.study.operators) or "the run's operator"
+        lines.append(f"repeatability study: {spec.study.reconnections} connections of each device by {operators}")
     lines.append(f"decision: {spec.decision_rule} acceptance")
     return lines
 

@@ -169,7 +169,7 @@ def _verification_section(records: RunRecords) -> str:
         per_band = "; ".join(f"{b['band']}: |Γ| {b['measured_reflection']:.4f} vs {b['reference_reflection']:.4f}"
                              + ("" if b.get("en") is None else f" ± {b['tolerance']:.4f}, En {b['en']:.2f}")
                              for b in bands)
-        chart = {None: "baseline", 1: "in control", 0: f"OUT: {check.get('control_signals')}"}[check.get("in_control")]
+        chart = {None: "not judged (baseline)", 1: "in control", 0: f"OUT: {check.get('control_signals')}"}[check.get("in_control")]
         rows.append([_e(check["measured_utc"]), _e(check["devices_before"]), _e(check["check_standard"]),
                      _number(check["worst_deviation"], 5), _number(check.get("en"), 2), _e(chart),
                      _verdict("pass" if check["passed"] else "fail"), _e(per_band)])

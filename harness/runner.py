@@ -331,8 +331,10 @@ def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dic
         state.qualification = _kept_qualification(quals[-1])
     if checks:
         c = checks[-1]
+        signals = None if c.get("in_control") is None else tuple(filter(None, (c.get("control_signals") or "").split("; ")))
         result = VerificationResult(c["check_standard"], c["calibration_id"], c["measured_utc"], int(c["devices_before"]),
-                                    c["worst_deviation"], c["worst_frequency_hz"], c["tolerance"], ())
+                                    c["worst_deviation"], c["worst_frequency_hz"], c["tolerance"], (), c.get("en"),
+                                    signals, int(c.get("repeats") or 1), c.get("temperature_c"))
         state.last_check = (result, int(c["verification_id"]))
         state.checked_at_devices = result.devices_before
         state.checked_at_utc = datetime.fromisoformat(c["measured_utc"])
