@@ -12,6 +12,7 @@ import csv
 import html
 import io
 import json
+import math
 import os
 import tempfile
 from collections.abc import Iterable, Sequence
@@ -20,8 +21,10 @@ from pathlib import Path
 from typing import Any
 
 from lineproof import __version__
+from lineproof.figures import FIGURES, INPUT_MATCH, INSERTION_LOSS, OUTPUT_MATCH
+from lineproof.metrics import vswr_from_reflection
 from lineproof.report_data import DeviceRecord, RunRecords
-from lineproof.report_plots import device_plot, overlay_plot
+from lineproof.report_plots import device_plot, insertion_loss_plot, overlay_plot
 from lineproof.touchstone import make_readable
 
 _STYLE = """
@@ -54,7 +57,21 @@ def _verdict(value: object) -> str:
 
 
 def _number(value: object, digits: int = 4) -> str:
-    return "" if value is None else f"{float(value):.{digits}f}"  # type: ignore[arg-type]
+    if value is None:
+        return ""
+    number = float(value)  # type: ignore[arg-type]
+    return "none" if math.isinf(number) else f"{number:.{digits}f}"
+
+
+def _finite(value: Any) -> Any:
+    """JSON has no infinity: a limit a band does not set (inf) is written as null."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_finite(v) for v in value]
+    return value
 
 
 def _table(headers: Sequence[str], rows: Iterable[Sequence[str]], numeric: frozenset[int] = frozenset()) -> str:
@@ -82,6 +99,11 @@ def _run_section(records: RunRecords) -> str:
         ("devices", f"{counts['total']}: {counts['pass']} passed, {counts['fail']} failed, "
                     f"{counts['indeterminate']} indeterminate"),
     ]
+    first = next((d.metadata for d in records.devices if d.metadata), {})
+    if "figures.judged" in first:
+        judged = first["figures.judged"] + (f" (as-terminated {first['figures.as_terminated']})"
+                                            if "figures.as_terminated" in first else "")
+        items.append(("verdicts on", judged))
     return "<dl>" + "".join(f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in items) + "</dl>"
 
 
@@ -99,6 +121,41 @@ def _verdict_table(records: RunRecords) -> str:
             ])
     headers = ["#", "serial", "model", "band", "worst VSWR", "at MHz", "limit", "U(|Γ|), k=2", "band", "device"]
     return _table(headers, rows, frozenset({0, 4, 5, 6, 7}))
+
+
+_VERDICT_NAMES = {1.0: "pass", 0.0: "indeterminate", -1.0: "fail"}
+
+
+def _figure_cells(name: str, values: dict[str, float | None]) -> list[str]:
+    """worst, at MHz, U, limit, verdict of one recorded figure (VSWR for a match, dB for loss)."""
+    def shown(key: str, digits: int) -> str:
+        value = values.get(key)
+        if value is None:
+            return ""
+        return _number(value, digits) if name == INSERTION_LOSS or key == "expanded_uncertainty" else \
+            _number(float(vswr_from_reflection(value)), digits)
+    verdict = values.get("verdict")
+    at = values.get("worst_frequency")
+    return [shown("worst", 4), "" if at is None else _number(at / 1e6, 3), shown("expanded_uncertainty", 4 if name ==
+            INSERTION_LOSS else 5), shown("limit", 3), _verdict(_VERDICT_NAMES[verdict]) if verdict is not None
+            else "<span class='note'>reported</span>"]
+
+
+def _figures_table(records: RunRecords) -> str:
+    """Every figure of every band of the two-port records (empty for a one-port run)."""
+    rows = []
+    for device in records.devices:
+        for band in device.bands:
+            for name in FIGURES:
+                values = device.figure(str(band["band"]), name)
+                if values:
+                    rows.append([_e(device.serial), _e(band["band"]), _e(name), *_figure_cells(name, values)])
+    if not rows:
+        return ""
+    headers = ["serial", "band", "figure", "worst (VSWR or dB)", "at MHz", "U, k=2 (|Γ| or dB)", "limit", "verdict"]
+    note = ("<p class='note'>Match figures as VSWR and U of |Γ|; insertion loss and its U in dB. "
+            "'reported' figures are shown beside the judged ones.</p>")
+    return "<h2>Figures</h2>" + note + _table(headers, rows, frozenset({3, 4, 5, 6}))
 
 
 def _calibration_section(records: RunRecords) -> str:
@@ -143,6 +200,8 @@ def _plots_section(records: RunRecords) -> str:
             parts.append(f"<p class='note'>{_e(device.serial)}: {_e(device.problem)}</p>")
             continue
         parts.append(_image(device_plot(device, records.band_limits), f"VSWR of {device.serial}"))
+        if device.s_parameters is not None:
+            parts.append(_image(insertion_loss_plot(device, records.band_limits), f"insertion loss of {device.serial}"))
         if device.uncertainty is None:
             parts.append(f"<p class='note'>{_e(device.serial)}: uncertainty not evaluated (simple acceptance).</p>")
     return "".join(parts)
@@ -153,7 +212,8 @@ def render_html(records: RunRecords) -> str:
     return (
         f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>lineproof report {_e(run_id)}</title>"
         f"<style>{_STYLE}</style></head><body><h1>Run report: {_e(records.run['sequence_name'])}</h1>"
-        f"{_run_section(records)}<h2>Verdicts</h2>{_verdict_table(records)}{_calibration_section(records)}"
+        f"{_run_section(records)}<h2>Verdicts</h2>{_verdict_table(records)}{_figures_table(records)}"
+        f"{_calibration_section(records)}"
         f"{_verification_section(records)}{_plots_section(records)}"
         f"<p class='note'>Written by lineproof {_e(__version__)} from the run's records.</p></body></html>"
     )
@@ -170,7 +230,9 @@ def render_csv(records: RunRecords) -> str:
     writer = csv.writer(stream, lineterminator="\n")
     writer.writerow(["run_id", "position", "serial", "model", "measured_utc", "device_verdict", "band", "start_hz",
                      "stop_hz", "limit_vswr", "worst_vswr", "worst_frequency_hz", "mean_vswr", "worst_return_loss_db",
-                     "expanded_uncertainty", "band_verdict", "decision_rule", "calibration_id", "touchstone"])
+                     "expanded_uncertainty", "band_verdict", "decision_rule", "calibration_id", "touchstone",
+                     "figure", "input_match_worst_vswr", "output_match_worst_vswr", "insertion_loss_worst_db",
+                     "insertion_loss_limit_db", "insertion_loss_expanded_uncertainty_db", "insertion_loss_verdict"])
     for device in records.devices:
         row = device.row
         for band in device.bands:
@@ -179,8 +241,19 @@ def render_csv(records: RunRecords) -> str:
                 band["band"], band["start_hz"], band["stop_hz"], band["limit_vswr"], band["worst_vswr"],
                 band["worst_frequency_hz"], band["mean_vswr"], band["worst_return_loss_db"],
                 band["expanded_uncertainty"], band["verdict"], band["decision_rule"], row["calibration_id"],
-                row["touchstone"])])
+                row["touchstone"], device.metadata.get("figure", ""), *_two_port_cells(device, str(band["band"])))])
     return stream.getvalue()
+
+
+def _two_port_cells(device: DeviceRecord, band: str) -> list[object]:
+    def vswr(name: str) -> object:
+        worst = device.figure(band, name).get("worst")
+        return "" if worst is None else round(float(vswr_from_reflection(worst)), 5)
+
+    loss = device.figure(band, INSERTION_LOSS)
+    verdict = loss.get("verdict")
+    return [vswr(INPUT_MATCH), vswr(OUTPUT_MATCH), loss.get("worst", ""), loss.get("limit", ""),
+            loss.get("expanded_uncertainty", ""), "" if verdict is None else _VERDICT_NAMES[verdict]]
 
 
 def _device_json(device: DeviceRecord) -> dict[str, Any]:
@@ -189,10 +262,20 @@ def _device_json(device: DeviceRecord) -> dict[str, Any]:
         "position": row["position"], "serial": row["serial"], "model": row["model"], "verdict": row["verdict"],
         "measured_utc": row["measured_utc"], "touchstone": row["touchstone"], "file_sha256": row["file_sha256"],
         "calibration_id": row["calibration_id"], "suspect": bool(row.get("suspect")),
-        "bands": [{k: b[k] for k in ("band", "start_hz", "stop_hz", "limit_vswr", "worst_vswr", "worst_frequency_hz",
-                                     "mean_vswr", "worst_return_loss_db", "expanded_uncertainty", "verdict")}
+        "figure": device.metadata.get("figure"),
+        "bands": [{**{k: b[k] for k in ("band", "start_hz", "stop_hz", "limit_vswr", "worst_vswr", "worst_frequency_hz",
+                                        "mean_vswr", "worst_return_loss_db", "expanded_uncertainty", "verdict")},
+                   "figures": {name: _figure_json(device.figure(str(b["band"]), name)) for name in FIGURES
+                               if device.figure(str(b["band"]), name)}}
                   for b in device.bands],
     }
+
+
+def _figure_json(values: dict[str, float | None]) -> dict[str, object]:
+    found: dict[str, object] = {k: v for k, v in values.items() if k != "verdict"}
+    verdict = values.get("verdict")
+    found["verdict"] = "reported" if verdict is None else _VERDICT_NAMES[verdict]
+    return found
 
 
 def render_json(records: RunRecords) -> str:
@@ -206,7 +289,7 @@ def render_json(records: RunRecords) -> str:
                           for c in records.verifications],
         "devices": [_device_json(d) for d in records.devices],
     }
-    return json.dumps(summary, indent=2)
+    return json.dumps(_finite(summary), indent=2)
 
 
 def _replace_file(path: Path, text: str) -> None:
