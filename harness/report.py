@@ -12,6 +12,7 @@ import csv
 import html
 import io
 import json
+import math
 import os
 import tempfile
 from collections.abc import Iterable, Sequence
@@ -21,8 +22,10 @@ from typing import Any
 
 from lineproof import __version__
 from lineproof.check_history import ChartData
+from lineproof.figures import FIGURES, INPUT_MATCH, INSERTION_LOSS, OUTPUT_MATCH
+from lineproof.metrics import vswr_from_reflection
 from lineproof.report_data import DeviceRecord, RunRecords
-from lineproof.report_plots import control_chart_plot, device_plot, overlay_plot
+from lineproof.report_plots import control_chart_plot, device_plot, insertion_loss_plot, overlay_plot
 from lineproof.touchstone import make_readable
 
 _STYLE = """
@@ -55,7 +58,21 @@ def _verdict(value: object) -> str:
 
 
 def _number(value: object, digits: int = 4) -> str:
-    return "" if value is None else f"{float(value):.{digits}f}"  # type: ignore[arg-type]
+    if value is None:
+        return ""
+    number = float(value)  # type: ignore[arg-type]
+    return "none" if math.isinf(number) else f"{number:.{digits}f}"
+
+
+def _finite(value: Any) -> Any:
+    """JSON has no infinity: a limit a band does not set (inf) is written as null."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_finite(v) for v in value]
+    return value
 
 
 def _table(headers: Sequence[str], rows: Iterable[Sequence[str]], numeric: frozenset[int] = frozenset()) -> str:
@@ -86,6 +103,11 @@ def _run_section(records: RunRecords) -> str:
     ]
     if run.get("remeasure_of"):
         items.append(("measures again", f"the suspect results of run {run['remeasure_of']}"))
+    first = next((d.metadata for d in records.devices if d.metadata), {})
+    if "figures.judged" in first:
+        judged = first["figures.judged"] + (f" (as-terminated {first['figures.as_terminated']})"
+                                            if "figures.as_terminated" in first else "")
+        items.append(("verdicts on", judged))
     return "<dl>" + "".join(f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in items) + "</dl>"
 
 
@@ -143,6 +165,41 @@ def _study_section(records: RunRecords) -> str:
             f"{len(records.study_readings)} readings. Method: {_e(first['method'])}. The last three columns are "
             "shares of the tolerance (the band's VSWR limit - 1).</p>"
             + _table(headers, rows, frozenset(range(2, 10))))
+
+
+_VERDICT_NAMES = {1.0: "pass", 0.0: "indeterminate", -1.0: "fail"}
+
+
+def _figure_cells(name: str, values: dict[str, float | None]) -> list[str]:
+    """worst, at MHz, U, limit, verdict of one recorded figure (VSWR for a match, dB for loss)."""
+    def shown(key: str, digits: int) -> str:
+        value = values.get(key)
+        if value is None:
+            return ""
+        return _number(value, digits) if name == INSERTION_LOSS or key == "expanded_uncertainty" else \
+            _number(float(vswr_from_reflection(value)), digits)
+    verdict = values.get("verdict")
+    at = values.get("worst_frequency")
+    return [shown("worst", 4), "" if at is None else _number(at / 1e6, 3), shown("expanded_uncertainty", 4 if name ==
+            INSERTION_LOSS else 5), shown("limit", 3), _verdict(_VERDICT_NAMES[verdict]) if verdict is not None
+            else "<span class='note'>reported</span>"]
+
+
+def _figures_table(records: RunRecords) -> str:
+    """Every figure of every band of the two-port records (empty for a one-port run)."""
+    rows = []
+    for device in records.devices:
+        for band in device.bands:
+            for name in FIGURES:
+                values = device.figure(str(band["band"]), name)
+                if values:
+                    rows.append([_e(device.serial), _e(band["band"]), _e(name), *_figure_cells(name, values)])
+    if not rows:
+        return ""
+    headers = ["serial", "band", "figure", "worst (VSWR or dB)", "at MHz", "U, k=2 (|Γ| or dB)", "limit", "verdict"]
+    note = ("<p class='note'>Match figures as VSWR and U of |Γ|; insertion loss and its U in dB. "
+            "'reported' figures are shown beside the judged ones.</p>")
+    return "<h2>Figures</h2>" + note + _table(headers, rows, frozenset({3, 4, 5, 6}))
 
 
 def _calibration_section(records: RunRecords) -> str:
@@ -208,6 +265,8 @@ def _plots_section(records: RunRecords) -> str:
             parts.append(f"<p class='note'>{_e(device.serial)}: {_e(device.problem)}</p>")
             continue
         parts.append(_image(device_plot(device, records.band_limits), f"VSWR of {device.serial}"))
+        if device.s_parameters is not None:
+            parts.append(_image(insertion_loss_plot(device, records.band_limits), f"insertion loss of {device.serial}"))
         if device.uncertainty is None:
             parts.append(f"<p class='note'>{_e(device.serial)}: uncertainty not evaluated (simple acceptance).</p>")
     return "".join(parts)
@@ -219,7 +278,7 @@ def render_html(records: RunRecords) -> str:
         f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>lineproof report {_e(run_id)}</title>"
         f"<style>{_STYLE}</style></head><body><h1>Run report: {_e(records.run['sequence_name'])}</h1>"
         f"{_run_section(records)}{_study_section(records)}<h2>Verdicts</h2>{_verdict_table(records)}"
-        f"{_suspect_section(records)}"
+        f"{_figures_table(records)}{_suspect_section(records)}"
         f"{_calibration_section(records)}"
         f"{_verification_section(records)}{_plots_section(records)}"
         f"<p class='note'>Written by lineproof {_e(__version__)} from the run's records.</p></body></html>"
@@ -238,6 +297,8 @@ def render_csv(records: RunRecords) -> str:
     writer.writerow(["run_id", "position", "serial", "model", "measured_utc", "device_verdict", "band", "start_hz",
                      "stop_hz", "limit_vswr", "worst_vswr", "worst_frequency_hz", "mean_vswr", "worst_return_loss_db",
                      "expanded_uncertainty", "band_verdict", "decision_rule", "calibration_id", "touchstone",
+                     "figure", "input_match_worst_vswr", "output_match_worst_vswr", "insertion_loss_worst_db",
+                     "insertion_loss_limit_db", "insertion_loss_expanded_uncertainty_db", "insertion_loss_verdict",
                      "suspect", "suspect_reason"])
     for device in records.devices:
         row = device.row
@@ -247,8 +308,20 @@ def render_csv(records: RunRecords) -> str:
                 band["band"], band["start_hz"], band["stop_hz"], band["limit_vswr"], band["worst_vswr"],
                 band["worst_frequency_hz"], band["mean_vswr"], band["worst_return_loss_db"],
                 band["expanded_uncertainty"], band["verdict"], band["decision_rule"], row["calibration_id"],
-                row["touchstone"], int(bool(row.get("suspect"))), row.get("suspect_reason") or "")])
+                row["touchstone"], device.metadata.get("figure", ""), *_two_port_cells(device, str(band["band"])),
+                int(bool(row.get("suspect"))), row.get("suspect_reason") or "")])
     return stream.getvalue()
+
+
+def _two_port_cells(device: DeviceRecord, band: str) -> list[object]:
+    def vswr(name: str) -> object:
+        worst = device.figure(band, name).get("worst")
+        return "" if worst is None else round(float(vswr_from_reflection(worst)), 5)
+
+    loss = device.figure(band, INSERTION_LOSS)
+    verdict = loss.get("verdict")
+    return [vswr(INPUT_MATCH), vswr(OUTPUT_MATCH), loss.get("worst", ""), loss.get("limit", ""),
+            loss.get("expanded_uncertainty", ""), "" if verdict is None else _VERDICT_NAMES[verdict]]
 
 
 def _device_json(device: DeviceRecord) -> dict[str, Any]:
@@ -258,8 +331,11 @@ def _device_json(device: DeviceRecord) -> dict[str, Any]:
         "measured_utc": row["measured_utc"], "touchstone": row["touchstone"], "file_sha256": row["file_sha256"],
         "calibration_id": row["calibration_id"], "suspect": bool(row.get("suspect")),
         "suspect_reason": row.get("suspect_reason"), "suspect_verification_id": row.get("suspect_verification_id"),
-        "bands": [{k: b[k] for k in ("band", "start_hz", "stop_hz", "limit_vswr", "worst_vswr", "worst_frequency_hz",
-                                     "mean_vswr", "worst_return_loss_db", "expanded_uncertainty", "verdict")}
+        "figure": device.metadata.get("figure"),
+        "bands": [{**{k: b[k] for k in ("band", "start_hz", "stop_hz", "limit_vswr", "worst_vswr", "worst_frequency_hz",
+                                        "mean_vswr", "worst_return_loss_db", "expanded_uncertainty", "verdict")},
+                   "figures": {name: _figure_json(device.figure(str(b["band"]), name)) for name in FIGURES
+                               if device.figure(str(b["band"]), name)}}
                   for b in device.bands],
     }
 
@@ -278,6 +354,13 @@ def _chart_json(chart: ChartData) -> dict[str, Any]:
     }
 
 
+def _figure_json(values: dict[str, float | None]) -> dict[str, object]:
+    found: dict[str, object] = {k: v for k, v in values.items() if k != "verdict"}
+    verdict = values.get("verdict")
+    found["verdict"] = "reported" if verdict is None else _VERDICT_NAMES[verdict]
+    return found
+
+
 def render_json(records: RunRecords) -> str:
     def plain(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
         return [{k: v for k, v in r.items() if not isinstance(v, bytes)} for r in rows]
@@ -293,7 +376,7 @@ def render_json(records: RunRecords) -> str:
     }
     if records.study:
         summary["repeatability_study"] = {"results": plain(records.study), "readings": records.study_readings}
-    return json.dumps(summary, indent=2)
+    return json.dumps(_finite(summary), indent=2)
 
 
 def _replace_file(path: Path, text: str) -> None:

@@ -21,14 +21,27 @@ class DeviceRecord:
     bands: list[dict[str, Any]]
     file: Path
     frequencies_hz: np.ndarray | None = None
-    reflection: np.ndarray | None = None  # complex, as recorded
+    reflection: np.ndarray | None = None  # complex: the headline figure's reflection, as recorded
     uncertainty: np.ndarray | None = None  # expanded (k = 2) |Γ| per point, when evaluated
     metadata: dict[str, str] = field(default_factory=dict)
     problem: str | None = None  # why the trace could not be read, if it could not
+    #: Two-port records: the S-parameters (N, 2, 2) and the per-point arrays kept with the row
+    #: (each figure's expanded uncertainty, the as-terminated reflection).
+    s_parameters: np.ndarray | None = None
+    arrays: dict[str, np.ndarray] = field(default_factory=dict)
+    #: band -> metric -> (value, unit), from ``band_metrics``
+    metrics: dict[str, dict[str, tuple[float | None, str]]] = field(default_factory=dict)
 
     @property
     def serial(self) -> str:
         return str(self.row["serial"])
+
+    def figure(self, band: str, name: str) -> dict[str, float | None]:
+        """One figure of a band as recorded (empty for a one-port record): worst, mean, limit,
+        expanded_uncertainty, worst_upper, worst_frequency, worst_vswr, verdict (a number)."""
+        prefix = f"{name}."
+        return {metric[len(prefix):]: value for metric, (value, _) in self.metrics.get(band, {}).items()
+                if metric.startswith(prefix)}
 
 
 @dataclass
@@ -69,6 +82,13 @@ def _read_trace(record: DeviceRecord) -> None:
     record.frequencies_hz = np.asarray(network.f, dtype=float)
     record.reflection = np.asarray(network.s[:, 0, 0])
     record.metadata = read_metadata(network.comments)
+    if network.nports == 2:
+        record.s_parameters = np.asarray(network.s)
+        # the headline figure is the as-terminated reflection when the record has it
+        kept = record.arrays.get("as-terminated.reflection")
+        if kept is not None and kept.shape == record.reflection.shape and record.metadata.get(
+                "figure", "").startswith("as-terminated"):
+            record.reflection = kept
 
 
 def load_run_records(store: ResultStore, run_id: str, read_traces: bool = True) -> RunRecords:
@@ -83,7 +103,11 @@ def load_run_records(store: ResultStore, run_id: str, read_traces: bool = True) 
         bands = store.rows("SELECT * FROM band_results WHERE device_row = ? ORDER BY start_hz", (row["device_row"],))
         record = DeviceRecord(row, bands, base / str(row["touchstone"]))
         if row.get("uncertainty"):
-            record.uncertainty = unpack_arrays(row["uncertainty"]).get("expanded_uncertainty")
+            record.arrays = unpack_arrays(row["uncertainty"])
+            record.uncertainty = record.arrays.get("expanded_uncertainty")
+        for metric in store.rows("SELECT band, metric, value, unit FROM band_metrics WHERE device_row = ?",
+                                 (row["device_row"],)):
+            record.metrics.setdefault(metric["band"], {})[metric["metric"]] = (metric["value"], metric["unit"])
         if read_traces:
             _read_trace(record)
         devices.append(record)

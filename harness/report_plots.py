@@ -73,9 +73,50 @@ def device_plot(device: DeviceRecord, limits: Sequence[dict[str, Any]]) -> bytes
         axes.fill_between(f, low, np.minimum(high, top), color="#7fb3d5", alpha=0.5, zorder=2,
                           label="expanded uncertainty (k = 2)")
     colour = _VERDICT_COLOURS.get(str(device.row["verdict"]), "#333333")
-    axes.plot(f, vswr, color=colour, linewidth=1.4, zorder=4, label=f"{device.serial} ({device.row['verdict']})")
+    headline = device.metadata.get("figure", "as-terminated input reflection")
+    label = f"{device.serial} ({device.row['verdict']})" if device.s_parameters is None else headline
+    axes.plot(f, vswr, color=colour, linewidth=1.4, zorder=4, label=label)
+    if device.s_parameters is not None:  # the match figures reported beside, thinner
+        for (i, name), style in zip(((0, "S11, ideal termination"), (1, "S22, ideal source")), ("--", ":"),
+                                    strict=True):
+            if not headline.startswith(name[:3]):
+                axes.plot(f, np.minimum(metrics.vswr_from_reflection(np.abs(device.s_parameters[:, i, i])), top),
+                          color="#555555", linewidth=0.9, linestyle=style, zorder=3, label=name)
     axes.set_title(f"{device.serial}: {device.row['model']}", fontsize=10)
     axes.legend(loc="upper left", fontsize=8)
+    return _png(figure)
+
+
+def insertion_loss_plot(device: DeviceRecord, limits: Sequence[dict[str, Any]]) -> bytes:
+    """Insertion loss (dB) against frequency for a two-port record, with each band's limit
+    shaded above it and the expanded uncertainty as a band around the trace."""
+    figure, axes = _figure(height=2.6)
+    assert device.frequencies_hz is not None and device.s_parameters is not None
+    f = device.frequencies_hz / 1e6
+    loss = metrics.insertion_loss_db(device.s_parameters[:, 1, 0])
+    u = device.arrays.get("insertion-loss.expanded_uncertainty")
+    band_limits = [(b, device.figure(str(b["band"]), "insertion-loss").get("limit")) for b in limits]
+    top = max([float(np.nanmax(loss + (0 if u is None else u))) * 1.3]
+              + [float(limit) * 1.3 for _, limit in band_limits if limit is not None] + [0.05])
+    for band, limit in band_limits:
+        start, stop = band["start_hz"] / 1e6, band["stop_hz"] / 1e6
+        axes.axvspan(start, stop, color="#dde8f5", zorder=0)
+        if limit is not None:
+            axes.fill_between([start, stop], [limit, limit], [top, top], color="#f5c6c0", alpha=0.8, zorder=1, linewidth=0)
+            axes.hlines(limit, start, stop, colors="#c0392b", linewidth=1.2, zorder=3)
+            axes.annotate(f"{band['band']} ≤ {limit:g} dB", (start, limit), textcoords="offset points", xytext=(0, 3),
+                          fontsize=8, color="#7b241c")
+    if u is not None and u.shape == loss.shape:
+        axes.fill_between(f, loss - u, np.minimum(loss + u, top), color="#7fb3d5", alpha=0.5, zorder=2,
+                          label="expanded uncertainty (k = 2)")
+    axes.plot(f, loss, color=_VERDICT_COLOURS.get(str(device.row["verdict"]), "#333333"), linewidth=1.4, zorder=4,
+              label="insertion loss")
+    axes.set_xlabel("frequency (MHz)")
+    axes.set_ylabel("insertion loss (dB)")
+    axes.set_ylim(min(0.0, float(np.nanmin(loss)) - 0.01), top)
+    axes.grid(True, linewidth=0.4, alpha=0.6)
+    axes.set_title(f"{device.serial}: insertion loss", fontsize=10)
+    axes.legend(loc="lower right", fontsize=8)
     return _png(figure)
 
 

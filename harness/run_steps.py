@@ -17,8 +17,6 @@ from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 
-import numpy as np
-
 from lineproof import calibration, steps
 from lineproof.calkit import load_kit
 from lineproof.errors import InputError, RunHalted
@@ -27,8 +25,10 @@ from lineproof.journal import RunJournal
 from lineproof.operators import ConsoleOperator
 from lineproof.recording import MeasurementBasis, RecordedDevice, RunFacts, RunFolder, record_device
 from lineproof.run_checks import CalibrationPolicy, CheckRunner, failure_reason
+from lineproof.run_devices import Acquired, AsTerminatedDevices, TwoPortDevices
 from lineproof.run_view import RunView
 from lineproof.sequence import DeviceUnit, SequenceSpec, StepSpec, resolve_path
+from lineproof.sequence_methods import judged_figures
 from lineproof.stations import OpenStation
 from lineproof.steps import QualifiedTermination
 from lineproof.store import ResultStore
@@ -149,6 +149,7 @@ class StepRunner:
         self.recorded: list[RecordedDevice] = []
         self._record_lock = threading.Lock()
         self._pipeline: _RecordingPipeline | None = None
+        self._devices: AsTerminatedDevices | TwoPortDevices | None = None  # set by the batch
         self.measuring = steps.Station(station.analyzer, _ProgressOperator(station.operator, view),  # type: ignore[arg-type]
                                        station.identity, spec.plan, station.spec.analyzer.port,
                                        station.spec.uncertainty)
@@ -211,7 +212,10 @@ class StepRunner:
         if path is None:
             raise InputError("cal kit file not found", path=cal_spec.kit, key="calibration.kit")
         kit = load_kit(path)
-        self.view.step_started(f"calibrating ({cal_spec.method}, kit {kit.name})", total=3)
+        if cal_spec.chosen:
+            self.view.note(f"calibration method: {cal_spec.method}, chosen by lineproof as {cal_spec.chosen}")
+        connections = {"one-port": 3, "one-path": 4, "solt": 7}.get(cal_spec.method, 3)
+        self.view.step_started(f"calibrating ({cal_spec.method}, kit {kit.name})", total=connections)
         temperature = self.checks.read_temperature()
         cal = dataclasses.replace(steps.calibrate(self.measuring, kit, cal_spec.method), temperature_c=temperature)
         self.store.save_calibration(self.facts.run_id, cal, self.facts.station)
@@ -310,9 +314,18 @@ class StepRunner:
         return MeasurementBasis(state.calibration, qualified.qualification, row, measured_utc,
                                 check[0] if check else None, check[1] if check else None, qualified)
 
+    def _device_measurement(self) -> AsTerminatedDevices | TwoPortDevices:
+        """How the batch measures each device: as the calibration in use allows."""
+        cal, rule = self.state.calibration, self.spec.decision_rule
+        if cal is None or cal.method not in (calibration.ONE_PATH_METHOD, calibration.FULL_TWO_PORT_METHOD):
+            return AsTerminatedDevices(self.measuring, self.spec.bands, rule)  # type: ignore[arg-type]
+        return TwoPortDevices(self.measuring, self.spec.bands, rule, cal.method,  # type: ignore[arg-type]
+                              judged_figures(self.spec), self.spec.measurement.as_terminated)
+
     def _batch(self, index: int, step: StepSpec) -> None:
         devices, termination = self.spec.devices, self.spec.termination
         assert devices is not None and termination is not None
+        self._devices = self._device_measurement()
         overlap = not isinstance(self.station.operator, ConsoleOperator)
         pipeline = self._pipeline = _RecordingPipeline(overlap)
         self.measuring.operator.after_connect = pipeline.start  # type: ignore[attr-defined]
@@ -353,7 +366,9 @@ class StepRunner:
             if devices.max_count is not None and len(self.state.taken) >= devices.max_count:
                 self.view.note(f"batch complete: {devices.max_count} device(s), the most this sequence takes")
                 return
-            serial = operator.scan_device(self.measuring.port, devices.model, self.spec.termination.name, self.state.taken)
+            assert self._devices is not None
+            output = self._devices.scan_output or self.spec.termination.name
+            serial = operator.scan_device(self.measuring.port, devices.model, output, self.state.taken)
             if serial is None:
                 return
             yield DeviceUnit(serial, devices.model, None, "scanned")
@@ -361,29 +376,27 @@ class StepRunner:
     def _measure_one(self, unit: DeviceUnit, termination: str, pipeline: _RecordingPipeline) -> None:
         device = DeviceIdentity(unit.serial, unit.model)
         basis = self._basis()
-        self.view.step_started(f"{unit.serial}: connect and sweep", total=2)
+        measurement = self._devices
+        assert measurement is not None
+        connections = 1 if not measurement.two_port else (2 if self.measuring.paths == "forward" else 1) + (
+            self.spec.measurement.as_terminated == "measured")
+        self.view.step_started(f"{unit.serial}: connect and sweep", total=connections + 1)
         if self.spec.devices is not None and self.spec.devices.entry == "listed":
-            self.measuring.operator.connect(
-                self.measuring.port, unit.serial, termination,
-                f"Connect {unit.model} s/n {unit.serial} to port {self.measuring.port}, its output on {termination}")
-        frequencies, raw = self.measuring.measure_raw()
+            measurement.connect(device, termination)
+        acquired = measurement.acquire(device, termination)
         self.view.step_advanced("swept")
         self.state.measured += 1
         self.state.taken.add(unit.serial.lower())
         position = self.state.measured
-        pipeline.submit(lambda: self._record(device, position, frequencies, raw, basis))
+        pipeline.submit(lambda: self._record(device, position, acquired, basis))
 
-    def _record(self, device: DeviceIdentity, position: int, frequencies: np.ndarray, raw: np.ndarray,
-                basis: MeasurementBasis) -> None:
-        """Correct, judge with the uncertainty of every point (the termination's own mismatch
-        included), and record."""
-        corrected = calibration.correct_one_port(basis.calibration, frequencies, raw)
-        spread = steps.device_uncertainty(self.measuring, basis.calibration, frequencies, corrected,
-                                          basis.termination_data)
-        result = steps.judge(device, frequencies, corrected, self.spec.bands, self.spec.decision_rule,  # type: ignore[arg-type]
-                             spread.expanded, termination=basis.qualification)
-        recorded = record_device(self.store, self.journal, self.folder, self.facts, basis, result, position,
-                                 frequencies, corrected, spread.expanded)
+    def _record(self, device: DeviceIdentity, position: int, acquired: Acquired, basis: MeasurementBasis) -> None:
+        """Correct, judge with the uncertainty of every point, and record."""
+        assert self._devices is not None
+        evaluated = self._devices.evaluate(device, acquired, basis)
+        recorded = record_device(self.store, self.journal, self.folder, self.facts, basis, evaluated.result, position,
+                                 evaluated.frequencies_hz, evaluated.data, evaluated.uncertainty,
+                                 arrays=evaluated.arrays, data=evaluated.description)
         with self._record_lock:
             self.recorded.append(recorded)
         self.view.device_recorded(recorded)

@@ -10,12 +10,13 @@ run's threads; each serialises its own output.
 from __future__ import annotations
 
 import json
+import math
 import sys
 import threading
 from typing import Any, Protocol, TextIO
 
 from lineproof.recording import RecordedDevice
-from lineproof.values import TerminationQualification, VerificationResult
+from lineproof.values import BandResult, TerminationQualification, VerificationResult
 
 
 class RunView(Protocol):
@@ -33,12 +34,35 @@ class RunView(Protocol):
     def close(self) -> None: ...
 
 
+def _band_text(band: BandResult) -> str:
+    text = f"{band.limit.name} {band.worst_vswr:.3f}"
+    if not math.isinf(band.limit.max_vswr):
+        text += f" (limit {band.limit.max_vswr:.2f})"
+    if band.worst_insertion_loss_db is not None:
+        text += f" IL {band.worst_insertion_loss_db:.3f} dB"
+        if band.limit.max_insertion_loss_db is not None:
+            text += f" (limit {band.limit.max_insertion_loss_db:.2f})"
+    return f"{text} {band.verdict.value}"
+
+
 def device_line(recorded: RecordedDevice) -> str:
-    """One line per device: position, serial, verdict and each band's worst VSWR against its limit."""
+    """One line per device: position, serial, verdict and each band's worst VSWR (of the
+    headline figure) and insertion loss against their limits."""
     result = recorded.result
-    bands = "  ".join(f"{b.limit.name} {b.worst_vswr:.3f} (limit {b.limit.max_vswr:.2f}) {b.verdict.value}"
-                      for b in result.bands)
+    bands = "  ".join(_band_text(b) for b in result.bands)
     return f"{recorded.position:>4}  {result.device.serial:<16} {result.verdict.value.upper():<13} {bands}"
+
+
+def _band_json(band: BandResult) -> dict[str, Any]:
+    found: dict[str, Any] = {"band": band.limit.name, "worst_vswr": round(band.worst_vswr, 5),
+                             "limit_vswr": None if math.isinf(band.limit.max_vswr) else band.limit.max_vswr,
+                             "worst_frequency_hz": band.worst_frequency_hz,
+                             "verdict": band.verdict.value}
+    if band.figures and len(band.figures) > 1:
+        found["figures"] = [{"figure": f.figure, "worst": round(f.worst, 6), "worst_frequency_hz": f.worst_frequency_hz,
+                             "limit": f.limit, "expanded_uncertainty": f.expanded_uncertainty,
+                             "verdict": None if f.verdict is None else f.verdict.value} for f in band.figures]
+    return found
 
 
 def _read_line(stream: TextIO) -> str | None:
@@ -185,8 +209,7 @@ class JsonRunView:
         result = recorded.result
         self._emit("device", position=recorded.position, serial=result.device.serial, model=result.device.model,
                    verdict=result.verdict.value, measured_utc=result.measured_utc, file=str(recorded.file),
-                   bands=[{"band": b.limit.name, "worst_vswr": round(b.worst_vswr, 5), "limit_vswr": b.limit.max_vswr,
-                           "worst_frequency_hz": b.worst_frequency_hz, "verdict": b.verdict.value} for b in result.bands])
+                   figure=result.figure, bands=[_band_json(b) for b in result.bands])
 
     def qualification(self, result: TerminationQualification, reused: bool) -> None:
         self._emit("termination", name=result.name, worst_vswr=round(result.worst_vswr, 5),

@@ -34,6 +34,7 @@ from lineproof.run_checks import CalibrationPolicy, write_suspect_notes
 from lineproof.run_steps import RunState, StepRunner, StopSignal
 from lineproof.run_view import RunView
 from lineproof.sequence import SequenceSpec, check_sequence_text, resolve_path
+from lineproof.sequence_methods import TWO_PORT_METHODS, judged_figures
 from lineproof.stations import OpenStation, open_station
 from lineproof.steps import QualifiedTermination
 from lineproof.store import ResultStore, open_store, unpack_arrays
@@ -161,6 +162,9 @@ def _facts(spec: SequenceSpec, run_id: str, station: OpenStation, operator: str)
         sequence_file=Path(spec.source).name, sequence_sha256=spec.sha256, station=station.spec.name,
         operator=operator, analyzer=station.identity, profile=station.profile_name, plan=spec.plan,
         reference_plane=station.spec.reference_plane, decision_rule=spec.decision_rule,
+        figures_judged=judged_figures(spec), method_chosen=spec.calibration.chosen if spec.calibration else "",
+        as_terminated=spec.measurement.as_terminated if spec.calibration and spec.calibration.method in TWO_PORT_METHODS
+        else "",
     )
 
 

@@ -12,6 +12,7 @@ sequence is evaluated as code: values are strings, numbers and names compared wi
 from __future__ import annotations
 
 import hashlib
+import math
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -49,14 +50,30 @@ class SequenceProblems(InputError):
         return self.message
 
 
+#: ``[calibration] method`` when the sequence leaves the choice to the harness: the best
+#: method the analyzer allows and the station can carry out (:mod:`lineproof.sequence_methods`).
+AUTOMATIC_METHOD = "best"
+
+
 @dataclass(frozen=True)
 class CalibrationSpec:
-    method: str
+    method: str  # a short name of calibration.METHOD_NAMES, or AUTOMATIC_METHOD
     kit: str  # as written; resolved by :func:`resolve_path`
     valid_for_s: float
+    #: Why lineproof chose ``method`` when the sequence left the choice to it ("" if it did not).
+    chosen: str = ""
     #: The calibration holds while the analyzer's temperature stays within this of the
     #: temperature it was made at (None: not checked).
     max_temperature_change_k: float | None = 1.0
+
+
+@dataclass(frozen=True)
+class MeasurementSpec:
+    """``[measurement]``: the figures the verdicts are on (None: the default for the method,
+    see :mod:`lineproof.figures`) and how a two-port run finds the as-terminated figure."""
+
+    judge: tuple[str, ...] | None = None
+    as_terminated: str = "computed"
 
 
 @dataclass(frozen=True)
@@ -123,6 +140,7 @@ class SequenceSpec:
     database: str | None = None
     notes: str = ""
     study: StudySpec | None = None
+    measurement: MeasurementSpec = MeasurementSpec()
 
     @property
     def folder(self) -> Path:
@@ -156,7 +174,8 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
         return None, problems
     root = TableReader(data, "", problems)
     root.reject_unknown({"sequence", "station", "sweep", "band", "calibration", "termination",
-                         "check_standard", "devices", "decision", "reverify", "step", "records", "study"})
+                         "check_standard", "devices", "decision", "reverify", "step", "records", "study",
+                         "measurement"})
     head = root.table("sequence", required=True)
     name, notes = None, ""
     if head is not None:
@@ -187,6 +206,7 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
         database=records[1],
         notes=notes,
         study=parse_study(root.table("study")),
+        measurement=_measurement(root.table("measurement")),
     )
     if problems or station is None or plan is None:
         return None, problems
@@ -239,10 +259,10 @@ def _bands(root: TableReader, problems: Problems) -> tuple[BandLimit, ...]:
                      'add [[band]] with name, start_hz, stop_hz and max_vswr')
     bands, seen = [], set()
     for table in tables:
-        table.reject_unknown({"name", "start_hz", "stop_hz", "max_vswr"})
+        table.reject_unknown({"name", "start_hz", "stop_hz", "max_vswr", "min_return_loss_db", "max_insertion_loss_db"})
         name = table.get("name", str)
         start, stop = table.number("start_hz", above=0.0), table.number("stop_hz", above=0.0)
-        limit = table.number("max_vswr", above=1.0, fix="a VSWR limit is a ratio above 1, e.g. 1.2")
+        limits = _band_limits(table)
         if name is not None and not BAND_NAME.match(name):
             problems.add(table.key("name"), f"band name {name!r} is not allowed",
                          "use 1-32 lower-case letters, digits, '_' or '-', e.g. \"70cm\"")
@@ -253,10 +273,26 @@ def _bands(root: TableReader, problems: Problems) -> tuple[BandLimit, ...]:
         if start is not None and stop is not None and stop < start:
             problems.add(table.key("stop_hz"), "band stop is below its start", "swap start_hz and stop_hz")
             continue
-        if None not in (name, start, stop, limit):
+        if None not in (name, start, stop, limits):
             seen.add(name)
-            bands.append(BandLimit(name, start, stop, limit))
+            bands.append(BandLimit(name, start, stop, *limits))  # type: ignore[misc]
     return tuple(bands)
+
+
+def _band_limits(table: TableReader) -> tuple[float, float | None, float | None] | None:
+    """(max VSWR -- inf when the band sets no VSWR limit --, min return loss, max insertion loss)."""
+    vswr = table.number("max_vswr", None, above=1.0, fix="a VSWR limit is a ratio above 1, e.g. 1.2")
+    return_loss = table.number("min_return_loss_db", None, above=0.0, fix="a return-loss limit in dB, e.g. 20")
+    loss = table.number("max_insertion_loss_db", None, above=0.0, fix="an insertion-loss limit in dB, e.g. 0.3")
+    given = [key for key in ("max_vswr", "min_return_loss_db", "max_insertion_loss_db") if table.has(key)]
+    if not given:
+        table.problems.add(table.key("max_vswr"), "the band has no limit",
+                           "add max_vswr (and/or min_return_loss_db, max_insertion_loss_db)")
+        return None
+    values = {"max_vswr": vswr, "min_return_loss_db": return_loss, "max_insertion_loss_db": loss}
+    if any(values[key] is None for key in given):
+        return None  # a given limit was refused above
+    return (math.inf if vswr is None else vswr), return_loss, loss
 
 
 def _calibration(table: TableReader | None) -> CalibrationSpec | None:
@@ -265,7 +301,7 @@ def _calibration(table: TableReader | None) -> CalibrationSpec | None:
     from lineproof.calibration import METHOD_NAMES
 
     table.reject_unknown({"method", "kit", "valid_for_minutes", "max_temperature_change_k"})
-    method = table.choice("method", list(METHOD_NAMES), "one-port")
+    method = table.choice("method", [*METHOD_NAMES, AUTOMATIC_METHOD], AUTOMATIC_METHOD)
     kit = table.get("kit", str, fix='add kit = "kits/n50-illustrative.toml" (or your kit file)')
     minutes = table.number("valid_for_minutes", 480.0, above=0.0)
     # Common practice (from memory): analyzers state their corrected performance within
@@ -274,7 +310,7 @@ def _calibration(table: TableReader | None) -> CalibrationSpec | None:
                           fix="give the largest temperature change a calibration survives, e.g. 1.0")
     if None in (method, kit, minutes, kelvin):
         return None
-    return CalibrationSpec(method, kit, minutes * 60.0, kelvin)
+    return CalibrationSpec(method, kit, minutes * 60.0, max_temperature_change_k=kelvin)
 
 
 def _termination(table: TableReader | None) -> TerminationSpec | None:
@@ -380,6 +416,25 @@ def _steps(root: TableReader, problems: Problems) -> tuple[StepSpec, ...]:
     return tuple(steps)
 
 
+def _measurement(table: TableReader | None) -> MeasurementSpec:
+    if table is None:
+        return MeasurementSpec()
+    from lineproof.figures import AS_TERMINATED_WAYS, FIGURES
+
+    table.reject_unknown({"judge", "as_terminated"})
+    names = table.get("judge", list, None)
+    judged = None
+    if names is not None:
+        wrong = [n for n in names if n not in FIGURES]
+        if wrong or not names or len(set(names)) != len(names):
+            table.problems.add(table.key("judge"), f"must list figures once each from {', '.join(FIGURES)}, got "
+                               f"{names!r}"[:200], f'e.g. judge = ["{FIGURES[0]}", "{FIGURES[-1]}"]')
+        else:
+            judged = tuple(names)
+    way = table.choice("as_terminated", AS_TERMINATED_WAYS, "computed") or "computed"
+    return MeasurementSpec(judged, way)
+
+
 def _records(table: TableReader | None) -> tuple[str | None, str | None]:
     if table is None:
         return None, None
@@ -406,7 +461,7 @@ def check_sequence_text(text: str, source: str, station_text: tuple[str, str] | 
 
     spec, problems = parse_sequence(text, source, station_text)
     if spec is not None:
-        check_references(spec, problems)
+        spec = check_references(spec, problems)
     if problems:
         raise SequenceProblems(problems.items, source)
     assert spec is not None

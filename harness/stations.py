@@ -100,7 +100,7 @@ def _make_operator(sequence: SequenceSpec, station: OpenStation, ask: Callable[[
     if spec.connected_by == "switch":
         assert station.switch is not None and spec.switch is not None
         slots = {u.serial: u.slot for u in sequence.devices.units if u.slot} if sequence.devices else {}
-        return SwitchOperator(station.switch, spec.switch.wiring, slots)
+        return SwitchOperator(station.switch, spec.switch.wiring, slots, spec.switch.routes, spec.analyzer.port)
     control = station.bench.control_address if station.bench is not None else spec.bench_control
     hands = SimulatedOperator(control) if control is not None else None
     if spec.connected_by == "simulated-operator":

@@ -301,9 +301,15 @@ class ResultStore:
                       calibration_id: str | None = None, qualification_id: int | None = None,
                       verification_id: int | None = None, file_sha256: str | None = None,
                       uncertainty: np.ndarray | None = None,
-                      metrics: Mapping[tuple[str, str], tuple[float, str]] | None = None) -> int:
-        """One row per device, one per band and one per extra metric, in one transaction."""
-        packed = None if uncertainty is None else _pack_arrays({"expanded_uncertainty": uncertainty})
+                      metrics: Mapping[tuple[str, str], tuple[float, str]] | None = None,
+                      arrays: Mapping[str, np.ndarray] | None = None) -> int:
+        """One row per device, one per band and one per extra metric, in one transaction.
+        ``uncertainty`` (the headline figure's, per point) and ``arrays`` (more per-point arrays)
+        are kept in the row's ``uncertainty`` column (numpy .npz bytes)."""
+        kept = dict(arrays or {})
+        if uncertainty is not None:
+            kept["expanded_uncertainty"] = uncertainty
+        packed = _pack_arrays(kept) if kept else None
         with self._transaction() as db:
             cursor = self._run(db, "INSERT INTO devices (run_id, serial, model, measured_utc, verdict, touchstone, position,"
                                " calibration_id, qualification_id, verification_id, file_sha256, uncertainty)"

@@ -63,9 +63,21 @@ class UncertaintySettings:
     #: None: k = 2, or the factor of a dominant contribution of unknown phase (see
     #: :func:`coverage_factor`); a number fixes k.
     coverage_factor: float | None = None
+    #: |Γ| of the small fixed mismatch at each end of each switch path (the switch's data
+    #: sheet): standards, terminations and devices reached through different paths differ by it.
+    switch_path_mismatch: float = 0.0
 
     def repeatability(self, frequencies_hz: np.ndarray) -> np.ndarray:
         return self.connection_repeatability * np.asarray(frequencies_hz, dtype=float) / self.repeatability_reference_hz
+
+    def connection_variance(self, frequencies_hz: np.ndarray) -> np.ndarray:
+        """E|c|² of the reflection a connection adds: connector repeatability and, through a
+        switch, the path's own fixed mismatch at each of its two ends (each path differs)."""
+        return self.repeatability(frequencies_hz) ** 2 + 2 * self.switch_path_mismatch**2
+
+    @property
+    def connections(self) -> bool:
+        return bool(self.connection_repeatability or self.switch_path_mismatch)
 
 
 @dataclass(frozen=True, eq=False)
@@ -131,11 +143,11 @@ def standard_inputs(kit: CalKit, kind: str, frequencies_hz: np.ndarray, settings
             moved = (c[0] + _INDUCTANCE_STEP_H, c[1], c[2], c[3])
             step = _derivative(standard, f, z0, coefficients=moved) / _INDUCTANCE_STEP_H
             inputs.append(InputQuantity("short inductance", step, statement.short_inductance_uncertainty_h**2, True))
-    if settings.connection_repeatability:
+    if settings.connections:
         # A connector interface as a small impedance step: S11 = c, S22 = -c, S21 S12 = 1 - c²
         # (the scattering matrix of a step between two lines; D. M. Pozar, Microwave
         # Engineering, from memory), which moves a reflection Γ by c (1 - Γ²) to first order.
-        inputs.append(InputQuantity(f"{kind} connection", 1 - model**2, settings.repeatability(f) ** 2, False))
+        inputs.append(InputQuantity(f"{kind} connection", 1 - model**2, settings.connection_variance(f), False))
     if settings.trace_noise:
         inputs.append(InputQuantity(f"{kind} noise", np.ones(f.shape, complex), 2 * settings.trace_noise**2, False))
     return inputs
@@ -184,9 +196,24 @@ def transmission_model(kit: CalKit, frequencies_hz: np.ndarray, settings: Uncert
     statement = kit.uncertainty
     phase = (2 * np.pi * f * statement.thru_delay_uncertainty_s) ** 2
     magnitude = np.full(f.shape, statement.thru_loss_uncertainty**2)
-    connection = 2 * settings.repeatability(f) ** 2
+    connection = 2 * settings.connection_variance(f)
+    thru = kit.thru(f)
     return {"transmission.magnitude_variance": (magnitude + connection / 2).astype(complex),
-            "transmission.phase_variance": (phase + connection / 2).astype(complex)}
+            "transmission.phase_variance": (phase + connection / 2).astype(complex),
+            # the thru's model, which carries the residuals into S11 and S22 (see ThroughPath)
+            "thru.s11": thru[:, 0, 0].astype(complex), "thru.s21s12": (thru[:, 1, 0] * thru[:, 0, 1]).astype(complex),
+            "thru.s22": thru[:, 1, 1].astype(complex)}
+
+
+def through_path(residuals: Mapping[str, np.ndarray], product: np.ndarray, far_reflection: np.ndarray,
+                 load_match: np.ndarray, seen_from_port2: bool = False) -> ThroughPath:
+    """The :class:`ThroughPath` of a reading, with the calibration's thru model when it kept
+    one (a flush thru otherwise); ``seen_from_port2``: for S22, the thru turned round."""
+    if "thru.s21s12" not in residuals:
+        return ThroughPath(product, far_reflection, load_match)
+    near, far = ("thru.s22", "thru.s11") if seen_from_port2 else ("thru.s11", "thru.s22")
+    return ThroughPath(product, far_reflection, load_match,
+                       (residuals[near], residuals["thru.s21s12"], residuals[far]))
 
 
 def add_specified_residuals(residuals: Mapping[str, np.ndarray], prefix: str, directivity: np.ndarray | float,
@@ -216,14 +243,48 @@ def residuals_from_check_standard(known: np.ndarray, measured: np.ndarray, expec
     return math.sqrt(2) * missing / np.sqrt(1 + g**2 + g**4)
 
 
+@dataclass(frozen=True, eq=False)
+class ThroughPath:
+    """What carries the calibration's residual errors into a corrected S11 of full two-port
+    data (or into S22, seen from port 2): S21 S12 of the device, the reflection of its far
+    port, the analyzer's load match at that port, and the thru the load match was found with
+    (its reflection facing this port, S21 S12 and its far reflection; None: a flush thru)."""
+
+    product: np.ndarray
+    far_reflection: np.ndarray
+    load_match: np.ndarray
+    thru: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
+
+
 def _vector(gamma: np.ndarray, gamma_squared: np.ndarray,
-            transmission: tuple[np.ndarray, np.ndarray] | None) -> tuple[np.ndarray | None, np.ndarray, np.ndarray]:
-    """The components (v0, v1, v2) of v = (1, Γ, Γ²), plus S21 S12 (1, ELF, ELF²) with full
-    two-port data; v0 is None where it is exactly 1 (a one-port reading)."""
-    if transmission is None:
+            path: ThroughPath | None) -> tuple[np.ndarray | None, np.ndarray, np.ndarray]:
+    """The components (v0, v1, v2) of the vector the residual coefficients (D, τ, M) multiply:
+    (1, Γ, Γ²) for a one-port reading (v0 None: exactly 1).
+
+    With full two-port data the residual polynomial p acts twice (first order): on the reading
+    through port 1, Γin = S11 + S21 S12 L / (1 - S22 L) with L the load match, and -- with
+    the opposite sign, scaled -- on the load match the thru gave, δL = p(Γthru) (1 - t22 L)² /
+    (t21 t12) with Γthru = t11 + t21 t12 L / (1 - t22 L), which S11's correction removes as
+    S21 S12 δL / (1 - S22 L)².  So δS11 = p(Γin) - K p(Γthru), K = S21 S12 (1 - t22 L)² /
+    ((1 - S22 L)² t21 t12), and v = (1 - K, Γin - K Γthru, Γin² - K Γthru²): a device like the
+    thru reads as the thru was defined (K = 1, Γin = Γthru), whatever the residuals.  The other
+    port's residuals reach S11 only through S22 L and are left out.  tests/unit/test_two_port_residuals.py
+    holds this against the 12-term correction itself."""
+    if path is None:
         return None, gamma, gamma_squared
-    product, load_match = transmission
-    return 1 + product, gamma + product * load_match, gamma_squared + product * (load_match * load_match)
+    load = path.load_match
+    near = 1 - path.far_reflection * load
+    through_load = path.product * load / near
+    reading = gamma + through_load
+    if path.thru is None:  # flush: t11 = t22 = 0, t21 t12 = 1
+        scale, thru_reading = path.product / (near * near), load
+    else:
+        t11, t21t12, t22 = path.thru
+        far = 1 - t22 * load
+        scale = path.product * (far * far) / (near * near * t21t12)
+        thru_reading = t11 + t21t12 * load / far
+    scaled = scale * thru_reading
+    return 1 - scale, reading - scaled, reading * reading - scaled * thru_reading
 
 
 def _power(values: np.ndarray) -> np.ndarray:
@@ -376,23 +437,30 @@ def reflection_uncertainty(
     settings: UncertaintySettings = UncertaintySettings(),
     termination_reach: np.ndarray | float | None = None,
     interpolation_error: float | None = None,
-    transmission: tuple[np.ndarray, np.ndarray] | None = None,
+    transmission: ThroughPath | None = None,
     prefix: str = "port1",
+    reading: np.ndarray | None = None,
+    further: Mapping[str, np.ndarray] | None = None,
 ) -> ReflectionUncertainty:
     """Uncertainty of the corrected reflection ``gamma`` at each point.
 
     ``termination_reach``: the (RMS) reflection of the termination on the device's output in
-    an as-terminated measurement (:func:`termination_rms`); ``transmission``: (S21 S12, load
-    match) of full two-port data, whose corrected S11 also carries the residual load match
-    (p(ELF), reaching S11 through S21 S12).  The coverage factor is 2 unless a contribution of
-    unknown phase dominates (then from :func:`coverage_factor`), or ``settings.coverage_factor``."""
+    an as-terminated measurement (:func:`termination_rms`); ``transmission``: how full
+    two-port data carry the residuals into a corrected S11 (:class:`ThroughPath`, see
+    :func:`_vector`).  ``reading``: the figure whose magnitude is
+    reported when it is not ``gamma`` itself but lies close to it (an as-terminated reflection
+    computed from S11): the residual error sits on ``gamma``, its radial part is taken along
+    the reading.  ``further``: more standard uncertainties of |Γ| (of a normal kind), by name.
+    The coverage factor is 2 unless a contribution of unknown phase dominates (then from
+    :func:`coverage_factor`), or ``settings.coverage_factor``."""
     g = np.asarray(gamma, dtype=complex)
     f = np.asarray(frequencies_hz, dtype=float)
     g2 = g * g
     v0, v1, v2 = _vector(g, g2, transmission)
-    magnitude = np.abs(g)
+    read = g if reading is None else np.asarray(reading, dtype=complex)
+    magnitude = np.abs(read)
     v, w, load_v = _quadratic_forms(residuals, prefix, v0, v1, v2)
-    v += _along(w, g2, magnitude)
+    v += _along(w, g2 if reading is None else read * read, magnitude)
     v *= 0.5
     variance = np.maximum(v, 0.0, out=v)  # of |Γ| from the calibration's residuals
     calibration = np.sqrt(variance)
@@ -402,24 +470,32 @@ def reflection_uncertainty(
     noise = settings.trace_noise if settings.trace_noise is not None else estimate_trace_noise(g)
     budget["noise"] = np.full(f.shape, noise)
     total_variance = variance + noise * noise  # load² + others² = the calibration's variance
-    if settings.connection_repeatability:
+    if settings.connections:
         reach = np.abs(1 - g2)
         if transmission is not None:
-            reach += np.abs(transmission[0])
-        reach *= f
-        reach *= settings.connection_repeatability / (settings.repeatability_reference_hz * math.sqrt(2))
+            # the connection at the device's far port reaches S11 through S21 S12, and the
+            # thru's own connection through the load match it gave (K = 1 - v0, see _vector)
+            reach = np.sqrt((reach + np.abs(transmission.product)) ** 2 + _power(1 - v0))  # type: ignore[operator]
+        if settings.switch_path_mismatch:
+            reach *= np.sqrt(settings.connection_variance(f) / 2)
+        else:
+            reach *= f
+            reach *= settings.connection_repeatability / (settings.repeatability_reference_hz * math.sqrt(2))
         budget["connection"] = reach
         total_variance += reach * reach
     spread = residuals.get(f"{prefix}.load_spread")
     bounded = [(load, 1.0 if spread is None else float(spread[0].real))]
     if termination_reach is not None:
-        budget["termination"] = termination_bound(g, termination_reach) / math.sqrt(2)
+        budget["termination"] = termination_bound(read, termination_reach) / math.sqrt(2)
         bounded.append((budget["termination"], 1.0))
         total_variance += budget["termination"] ** 2
     if interpolation_error:
         budget["interpolation"] = np.full(f.shape, interpolation_error / math.sqrt(2))
         bounded.append((budget["interpolation"], 1.0))
         total_variance += interpolation_error**2 / 2
+    for name, part in (further or {}).items():
+        budget[name] = part
+        total_variance += part * part
     total = np.sqrt(total_variance, out=total_variance)
     return ReflectionUncertainty(magnitude, total, _coverage(bounded, total, settings), budget)
 
@@ -485,11 +561,27 @@ def transmission_uncertainty_traces_db(
     noise: float | None = None,
     s21_magnitude: np.ndarray | None = None,
 ) -> np.ndarray:
-    """Expanded uncertainty (dB) of |S21|: thru statement (tracking), residual source match
-    at port 1 times S11 and residual load match (the port-1 residual directivity it was
-    measured with) times S22, and noise; first order, the complex relative error taken as of
-    unknown phase except the tracking's magnitude part.  ``s21_magnitude``: |S21| when the
-    caller has it already."""
+    """Expanded uncertainty (dB) of |S21|: :func:`transmission_relative_uncertainty` times k
+    (2, or ``settings.coverage_factor``) in dB."""
+    relative = transmission_relative_uncertainty(residuals, s11, s21, s22, settings, noise, s21_magnitude)
+    relative *= (settings.coverage_factor or 2.0) * 20 / math.log(10)
+    return relative
+
+
+def transmission_relative_uncertainty(
+    residuals: Mapping[str, np.ndarray],
+    s11: np.ndarray,
+    s21: np.ndarray,
+    s22: np.ndarray,
+    settings: UncertaintySettings = UncertaintySettings(),
+    noise: float | None = None,
+    s21_magnitude: np.ndarray | None = None,
+) -> np.ndarray:
+    """Relative standard uncertainty of |S21|: thru statement (tracking), residual source
+    match at port 1 times S11 and residual load match (the port-1 residual directivity it
+    was measured with) times S22, and noise; first order, the complex relative error taken
+    as of unknown phase except the tracking's magnitude part.  ``s21_magnitude``: |S21| when
+    the caller has it already."""
     magnitude = residuals.get("transmission.magnitude_variance", np.zeros(s21.shape)).real
     mismatch: np.ndarray | float = 0.0
     variance = residuals.get("port1.variance")
@@ -497,8 +589,7 @@ def transmission_uncertainty_traces_db(
         mismatch = variance[:, 2, 2].real * _power(s11) + variance[:, 0, 0].real * _power(s22)
     sigma = noise if noise is not None else (settings.trace_noise or estimate_trace_noise(s21))
     through = np.abs(s21) if s21_magnitude is None else s21_magnitude
-    relative = np.sqrt(magnitude + 0.5 * mismatch + (sigma / np.maximum(through, 1e-12)) ** 2)
-    return (settings.coverage_factor or 2.0) * 20 / math.log(10) * relative
+    return np.sqrt(magnitude + 0.5 * mismatch + (sigma / np.maximum(through, 1e-12)) ** 2)
 
 
 # -- published mismatch formulas -------------------------------------------------------------

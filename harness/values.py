@@ -168,6 +168,31 @@ class MarkerReading:
 
 
 @dataclass(frozen=True)
+class FigureResult:
+    """One figure of one band (see :mod:`lineproof.figures`): a reflection figure in |Γ|
+    (``as-terminated``, ``input-match``, ``output-match``) or insertion loss in dB.
+
+    ``limit`` is the band's limit for it (|Γ| or dB; None: the band sets none);
+    ``expanded_uncertainty`` the largest expanded uncertainty in the band and ``worst_upper``
+    the largest value + U; ``verdict`` is None when the figure is reported beside the judged
+    ones rather than judged.
+    """
+
+    figure: str
+    worst: float
+    worst_frequency_hz: float
+    mean: float
+    limit: float | None
+    expanded_uncertainty: float | None
+    worst_upper: float | None
+    verdict: Verdict | None
+
+    @property
+    def judged(self) -> bool:
+        return self.verdict is not None
+
+
+@dataclass(frozen=True)
 class BandResult:
     """One band of one device: worst and mean figures and the verdict.
 
@@ -188,6 +213,11 @@ class BandResult:
     worst_insertion_loss_frequency_hz: float | None = None
     insertion_loss_uncertainty_db: float | None = None
     markers: tuple[MarkerReading, ...] = ()
+    #: Every figure of the band, judged or reported beside (two-port data), the headline first.
+    figures: tuple[FigureResult, ...] = ()
+
+    def figure(self, name: str) -> FigureResult | None:
+        return next((f for f in self.figures if f.figure == name), None)
 
     @property
     def worst_vswr(self) -> float:

@@ -22,6 +22,7 @@ from lineproof.uncertainty import (
     UncertaintySettings,
     reflection_uncertainty,
     residual_model,
+    through_path,
     transmission_model,
     transmission_uncertainty_traces_db,
 )
@@ -108,8 +109,8 @@ def two_port_processing() -> None:
 
     def ours() -> object:
         s11, s21, s12, s22 = correction.apply(F, *traces)
-        spread = reflection_uncertainty(cal.residuals, s11, F, SETTINGS,
-                                        transmission=(s21 * s12, cal.terms["forward.load_match"]))
+        path = through_path(cal.residuals, s21 * s12, s22, cal.terms["forward.load_match"])
+        spread = reflection_uncertainty(cal.residuals, s11, F, SETTINGS, transmission=path)
         through = np.abs(s21)
         loss = metrics.insertion_loss_db(through)
         loss_u = transmission_uncertainty_traces_db(cal.residuals, s11, s21, s22, SETTINGS, s21_magnitude=through)
