@@ -10,7 +10,8 @@ The layout (every key optional unless said; see the shipped scenarios for worked
   the clock on; see :mod:`.drift`);
 - ``[analyzer]`` -- or ``[[analyzer]]`` tables for several, named ``analyzer``,
   ``analyzer2``, ... -- with the fields of :class:`AnalyzerSimulationSettings` (``model``:
-  ``reflection`` | ``forward`` | ``full``), ``transport`` (``scpi`` over TCP, or ``serial``
+  ``reflection`` | ``forward`` | ``full``; ``session_seed``: another session at the same
+  bench, other connector draws and noise), ``transport`` (``scpi`` over TCP, or ``serial``
   on a pseudo-terminal) and ``baud_rate`` (serial), ``[[analyzer.port]]`` tables of
   :class:`PortErrorSettings` and an ``[analyzer.drift]`` table of :class:`DriftSettings`;
 - ``[standards]`` ``kit`` (required), ``deviation``, ``seed``;
