@@ -98,6 +98,18 @@ class ProfiledAnalyzer(ProfiledInstrument):
         self._configured_segment = None
         super().reset()
 
+    def read_temperature(self) -> float | None:
+        """The instrument's own temperature (°C), when its profile has ``read_temperature``
+        (a number reply); None when it does not say how to ask."""
+        if self.profile.operation("read_temperature") is None:
+            return None
+        values = self._read_values("read_temperature", 1, 1)
+        self._check_errors(self._op("read_temperature").send)
+        if values.size != 1:
+            raise ReplyError(f"a temperature reply has {values.size} numbers", resource=self.resource,
+                             command=self._op("read_temperature").send, expected="one number (degrees Celsius)")
+        return float(values[0])
+
     def measure(self, parameters: Sequence[str], corrected: bool = False) -> MeasuredSweep:
         """One sweep of the configured plan; one trace per parameter."""
         if self._plan is None:

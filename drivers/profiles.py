@@ -59,6 +59,7 @@ ANALYZER_OPERATIONS: dict[str, OperationSpec] = {
     "read_raw": OperationSpec(frozenset({"parameter"})),
     "read_corrected": OperationSpec(frozenset({"parameter"})),
     "read_frequencies": OperationSpec(),
+    "read_temperature": OperationSpec(),
 }
 REQUIRED_ANALYZER_OPERATIONS = ("identify", "trigger", "read_raw")
 
@@ -369,6 +370,10 @@ def _check_reads(operations: Mapping[str, Operation], capabilities: AnalyzerCapa
         if operation.reply == "block" and (link.needs_serial or capabilities.data_format == "ASCII"):
             raise InputError("a block reply needs message framing and a REAL data format", path=source,
                              key=f"operations.{name}.reply", fix='use reply = "rows" or "numbers"')
+    temperature = operations.get("read_temperature")
+    if temperature is not None and temperature.reply != "numbers":
+        raise InputError(f"a temperature read must reply numbers, not {temperature.reply!r}", path=source,
+                         key="operations.read_temperature.reply", fix='use reply = "numbers"')
 
 
 def parse_switch_profile(text: str, source: str) -> SwitchProfile:

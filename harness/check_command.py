@@ -4,10 +4,14 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 
 from lineproof.errors import InputError
+from lineproof.figures import AS_TERMINATED, FIGURES
 from lineproof.run_command import problems_as_json
 from lineproof.sequence import SequenceSpec, load_sequence
+from lineproof.sequence_methods import TWO_PORT_METHODS, judged_figures
+from lineproof.values import BandLimit
 
 
 def describe(spec: SequenceSpec) -> list[str]:
@@ -19,10 +23,13 @@ def describe(spec: SequenceSpec) -> list[str]:
         f"station: {station.name} ({where}; analyzer profile {station.analyzer.profile}, "
         f"{station.analyzer.transport}, port {station.analyzer.port}; connected by {station.connected_by})",
         f"sweep: {spec.plan.describe()}" + (" (in segments if needed)" if spec.allow_segments else ""),
-        "bands: " + ", ".join(f"{b.name} {b.start_hz / 1e6:g}-{b.stop_hz / 1e6:g} MHz <= {b.max_vswr:g}:1"
-                              for b in spec.bands),
+        "bands: " + "; ".join(f"{b.name} {b.start_hz / 1e6:g}-{b.stop_hz / 1e6:g} MHz {_limits(b)}" for b in spec.bands),
         "steps: " + ", ".join(step.action for step in spec.steps),
     ]
+    if spec.calibration is not None:
+        chosen = f" (chosen by lineproof: {spec.calibration.chosen})" if spec.calibration.chosen else ""
+        lines.append(f"calibration: {spec.calibration.method}{chosen}, kit {spec.calibration.kit}")
+        lines.append(_figures(spec))
     if spec.devices is not None:
         count = f"{len(spec.devices.units)} listed" if spec.devices.entry == "listed" else "serials entered at the bench"
         lines.append(f"devices: {spec.devices.model}, {count}")
@@ -31,8 +38,34 @@ def describe(spec: SequenceSpec) -> list[str]:
         parts = [f"every {r.every_devices} devices" if r.every_devices else "",
                  f"every {r.every_minutes:g} min" if r.every_minutes else "", "at the end" if r.at_end else ""]
         lines.append("re-verify: " + ", ".join(p for p in parts if p))
+    check = spec.check_standard
+    if check is not None:
+        judged = ("En <= 1 per band" if check.criterion == "En" else f"largest deviation of |Γ| <= {check.tolerance:g}")
+        lines.append(f"check standard: {check.name}, judged by {judged}; {check.repeats} connection(s) per check; "
+                     f"control limits from the first {check.baseline_checks} checks")
+    if spec.study is not None:
+        operators = ", ".join(spec.study.operators) or "the run's operator"
+        lines.append(f"repeatability study: {spec.study.reconnections} connections of each device by {operators}")
     lines.append(f"decision: {spec.decision_rule} acceptance")
     return lines
+
+
+def _limits(band: BandLimit) -> str:
+    parts = [] if math.isinf(band.max_vswr) else [f"VSWR <= {band.max_vswr:g}:1"]
+    if band.min_return_loss_db is not None:
+        parts.append(f"return loss >= {band.min_return_loss_db:g} dB")
+    if band.max_insertion_loss_db is not None:
+        parts.append(f"insertion loss <= {band.max_insertion_loss_db:g} dB")
+    return ", ".join(parts)
+
+
+def _figures(spec: SequenceSpec) -> str:
+    judged = judged_figures(spec)
+    two_port = spec.calibration is not None and spec.calibration.method in TWO_PORT_METHODS
+    text = "judged on: " + ", ".join(
+        f"{name} ({spec.measurement.as_terminated})" if name == AS_TERMINATED and two_port else name for name in judged)
+    beside = [name for name in FIGURES if name not in judged] if two_port else []
+    return text + (f"; reported beside: {', '.join(beside)}" if beside else "")
 
 
 def _command(arguments: argparse.Namespace) -> int:

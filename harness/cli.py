@@ -26,6 +26,7 @@ COMMAND_MODULES = (
     "lineproof.check_command",
     "lineproof.report_command",
     "lineproof.results_command",
+    "lineproof.history_command",
     "lineproof.instruments_command",
     "lineproof.sim_command",
 )

@@ -58,9 +58,16 @@ def band_mask(frequencies_hz: np.ndarray, band: BandLimit) -> np.ndarray:
     return (frequencies_hz >= band.start_hz) & (frequencies_hz <= band.stop_hz)
 
 
+def band_indices(frequencies_hz: np.ndarray, band: BandLimit) -> np.ndarray:
+    """Indices of the sweep points inside the band, edges included, on an ascending grid (as
+    every sweep's is): the points :func:`band_mask` selects, found by bisection."""
+    low = int(np.searchsorted(frequencies_hz, band.start_hz, "left"))
+    return np.arange(low, max(low, int(np.searchsorted(frequencies_hz, band.stop_hz, "right"))))
+
+
 def band_figures(frequencies_hz: np.ndarray, magnitude: np.ndarray, band: BandLimit) -> BandFigures:
     """Figures over the sweep points inside the band (inclusive of its edges)."""
-    indices = np.flatnonzero(band_mask(frequencies_hz, band))
+    indices = band_indices(frequencies_hz, band)
     if indices.size == 0:
         raise ValueError(
             f"band {band.name} ({band.start_hz / 1e6:g}-{band.stop_hz / 1e6:g} MHz) holds no sweep point"
@@ -105,7 +112,7 @@ def marker_index(frequencies_hz: np.ndarray, marker_hz: float) -> int:
 
 def worst_in_band(frequencies_hz: np.ndarray, values: np.ndarray, band: BandLimit) -> tuple[float, float]:
     """Largest value inside the band and the frequency where it occurs."""
-    indices = np.flatnonzero(band_mask(frequencies_hz, band))
+    indices = band_indices(frequencies_hz, band)
     if indices.size == 0:
         raise ValueError(
             f"band {band.name} ({band.start_hz / 1e6:g}-{band.stop_hz / 1e6:g} MHz) holds no sweep point"

@@ -17,6 +17,7 @@ from collections.abc import Callable, Collection, Mapping, Sequence
 
 from lineproof.errors import InputError, LinkError
 from lineproof.interfaces import Operator, Switch
+from lineproof.station_file import BETWEEN_WIRING, PORT2_WIRING, REVERSED_WIRING
 from lineproof.touchstone import SERIAL_RULE, serial_problem
 
 #: Words a person may type at any prompt to stop the run between devices.
@@ -91,8 +92,10 @@ class ConsoleOperator:
         A serial that is not safe as a record name, or one already measured in this run
         (``taken``, compared ignoring case), is refused with the reason and asked again.
         """
-        where = f", its output on {output}" if output else ""
-        prompt = (f"Connect the next {model} to port {port}{where}, then enter or scan its serial "
+        where = f" to port {port}, its output on {output}" if output else f" to port {port}"
+        if output is not None and output.startswith("port:"):
+            where = f" between port {port} (its input) and port {output[5:]} (its output)"
+        prompt = (f"Connect the next {model}{where}, then enter or scan its serial "
                   "(Enter alone ends the batch, stop stops the run)")
         taken_lower = {serial.lower() for serial in taken}
         while True:
@@ -120,26 +123,47 @@ class ConsoleOperator:
 
 class SwitchOperator:
     """Connects by routing a switch matrix: each object or slot name maps to the channels that
-    put it on the analyzer's port (the station's wiring); a device is found by its slot."""
+    put it where it is asked for (the station's wiring tables: the station's port, port 2,
+    between the ports, between them turned round); a device is found by its slot.
 
-    def __init__(self, switch: Switch, wiring: Mapping[str, Sequence[str]], slots: Mapping[str, str] | None = None) -> None:
+    A connection replaces whatever held the ports it involves and leaves the other port as it
+    was -- as a person's hands would: port 2's load stays on while port 1's is connected, so a
+    two-port calibration sweeps both at once.
+    """
+
+    def __init__(self, switch: Switch, wiring: Mapping[str, Sequence[str]], slots: Mapping[str, str] | None = None,
+                 routes: Mapping[str, Mapping[str, Sequence[str]]] | None = None, home_port: int = 1) -> None:
         self.switch = switch
-        self.wiring = dict(wiring)
+        self.tables: dict[str, Mapping[str, Sequence[str]]] = {"wiring": dict(wiring), **dict(routes or {})}
         self.slots = dict(slots or {})
+        self.home_port = home_port
         self.log: list[str] = []
+        self._held: dict[frozenset[int], tuple[str, ...]] = {}  # ports -> the channels holding them
+
+    @property
+    def wiring(self) -> Mapping[str, Sequence[str]]:
+        return self.tables["wiring"]
+
+    def _table(self, port: int, output: str | None, reversed: bool) -> str:
+        if reversed:
+            return REVERSED_WIRING
+        if output is not None and output.startswith("port:"):
+            return BETWEEN_WIRING
+        return "wiring" if port == self.home_port else PORT2_WIRING
 
     def connect(self, port: int, thing: str, output: str | None, instruction: str,
                 reversed: bool = False) -> None:
-        if reversed:
-            raise InputError(f"a switch cannot turn {thing} round", key="calibration.method",
-                             fix="on a switch station use a method that needs no reversed device (not one-path)")
         name = self.slots.get(thing, thing)
-        channels = self.wiring.get(name)
+        table = self._table(port, output, reversed)
+        channels = self.tables.get(table, {}).get(name)
         if channels is None:
-            raise InputError(f"{name!r} is not wired to the switch", key="station.switch.wiring",
-                             fix="add it to the station's switch wiring")
+            raise InputError(f"{name!r} is not wired to the switch for this connection ({instruction})",
+                             key=f"station.switch.{table}", fix=f"add it to the station's [switch.{table}]")
+        ports = frozenset({port, 1 if port == 2 else 2}) if table in (BETWEEN_WIRING, REVERSED_WIRING) else frozenset({port})
+        self._held = {held: kept for held, kept in self._held.items() if not held & ports}
+        self._held[ports] = tuple(channels)
         self.log.append(f"{instruction} (switch: {', '.join(channels)})")
-        self.switch.route(list(channels))
+        self.switch.route([channel for kept in self._held.values() for channel in kept])
 
     def close(self) -> None:
         self.switch.close()

@@ -20,12 +20,14 @@ from typing import Any
 import numpy as np
 
 from lineproof import metrics
+from lineproof.figures import INSERTION_LOSS
 from lineproof.journal import RunJournal
 from lineproof.store import ResultStore
-from lineproof.touchstone import format_one_port, write_new_file
+from lineproof.touchstone import format_one_port, format_two_port, write_new_file
 from lineproof.values import (
     CalibrationRecord,
     DeviceResult,
+    FigureResult,
     InstrumentIdentity,
     SweepPlan,
     TerminationQualification,
@@ -53,6 +55,12 @@ class RunFacts:
     plan: SweepPlan
     reference_plane: str
     decision_rule: str
+    #: The figures the verdicts are on (see :mod:`lineproof.figures`), and how a two-port run
+    #: finds the as-terminated figure ("" in a one-port run, where it is measured).
+    figures_judged: tuple[str, ...] = ("as-terminated",)
+    as_terminated: str = ""
+    #: Why lineproof chose the calibration method ("" when the sequence named it).
+    method_chosen: str = ""
 
 
 @dataclass(frozen=True)
@@ -83,8 +91,9 @@ def _age_seconds(since_utc: str, until_utc: str) -> float:
 
 
 def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResult, position: int,
-                    uncertainty: np.ndarray | None) -> list[tuple[str, object]]:
-    """The metadata header of one device's Touchstone file, in reading order."""
+                    uncertainty: np.ndarray | None, data: str | None = None) -> list[tuple[str, object]]:
+    """The metadata header of one device's Touchstone file, in reading order (``data`` says
+    what the file's data are, when they are not the as-terminated input reflection)."""
     plan, cal, q = facts.plan, basis.calibration, basis.qualification
     items: list[tuple[str, object]] = [
         ("software", facts.software),
@@ -98,7 +107,7 @@ def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResu
         ("device.model", result.device.model),
         ("device.position", position),
         ("measured_utc", result.measured_utc),
-        ("data", f"as-terminated input reflection, device output on {q.name}"),
+        ("data", data or f"as-terminated input reflection, device output on {q.name}"),
         ("reference_plane", facts.reference_plane),
         ("analyzer.identity", facts.analyzer.describe()),
         ("analyzer.resource", facts.analyzer.resource),
@@ -110,6 +119,7 @@ def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResu
         ("sweep.power_dbm", "instrument default" if plan.power_dbm is None else f"{plan.power_dbm:g}"),
         ("calibration.id", cal.calibration_id),
         ("calibration.method", cal.method),
+        ("calibration.method_chosen_by", f"lineproof: {facts.method_chosen}" if facts.method_chosen else "the sequence"),
         ("calibration.kit", cal.kit_name),
         ("calibration.kit_sha256", cal.kit_hash),
         ("calibration.created_utc", cal.created_utc),
@@ -139,6 +149,7 @@ def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResu
              else f"{float(metrics.vswr_from_reflection(band.worst_upper_reflection)):.4f}"),
             (f"{prefix}.verdict", band.verdict.value),
         ]
+    items += _figure_items(facts, result)
     items += _uncertainty_items(uncertainty)
     items += sorted(result.extra.items())
     items += [("decision_rule", result.bands[0].decision_rule if result.bands else facts.decision_rule),
@@ -155,6 +166,7 @@ def _verification_items(verification: VerificationResult | None, position: int) 
         ("verification.last.worst_deviation", f"{verification.sweep_worst_deviation:.5f}"),
         ("verification.last.tolerance", f"{verification.tolerance:.5f}"),
         ("verification.last.result", "passed" if verification.passed else "failed"),
+        *([("verification.last.en", f"{verification.en:.3f}")] if verification.en is not None else []),
         # devices measured after that check and before this one
         ("verification.last.devices_between", position - 1 - verification.devices_before),
     ]
@@ -177,13 +189,66 @@ def _uncertainty_items(uncertainty: np.ndarray | None) -> list[tuple[str, object
     ]
 
 
+def _figure_items(facts: RunFacts, result: DeviceResult) -> list[tuple[str, object]]:
+    """What the verdicts are on and, per band, every figure of a two-port measurement."""
+    items: list[tuple[str, object]] = [("figure", result.figure), ("figures.judged", ", ".join(facts.figures_judged))]
+    if facts.as_terminated:
+        items.append(("figures.as_terminated", AS_TERMINATED_WAYS[facts.as_terminated]))
+    for band in result.bands:
+        for figure in band.figures if len(band.figures) > 1 else ():  # one figure: the band's own keys
+            prefix = f"band.{band.limit.name}.{figure.figure}"
+            items += [(f"{prefix}.{name}", value) for name, value in figure_texts(figure)]
+    return items
+
+
+#: How a two-port run found the as-terminated figure, as the records say it.
+AS_TERMINATED_WAYS = {
+    "computed": "computed from the S-parameters and the termination's measured reflection",
+    "measured": "measured with the device's output on the termination",
+}
+#: Verdicts as numbers in ``band_metrics`` (whose values are numbers).
+VERDICT_CODES = {"pass": 1.0, "indeterminate": 0.0, "fail": -1.0}
+VERDICT_UNIT = "verdict: 1 pass, 0 indeterminate, -1 fail"
+
+
+def figure_texts(figure: FigureResult) -> list[tuple[str, str]]:
+    """One figure of one band as metadata values: VSWR for a match figure, dB for insertion loss."""
+    if figure.figure == INSERTION_LOSS:
+        shown = [("worst_db", figure.worst), ("mean_db", figure.mean), ("limit_db", figure.limit),
+                 ("expanded_uncertainty_db", figure.expanded_uncertainty), ("worst_upper_db", figure.worst_upper)]
+        texts = [(name, "none" if value is None else f"{value:.4f}") for name, value in shown]
+    else:
+        vswr = [("worst_vswr", figure.worst), ("mean_vswr", figure.mean), ("limit_vswr", figure.limit),
+                ("worst_upper_vswr", figure.worst_upper)]
+        texts = [(name, "none" if value is None else f"{float(metrics.vswr_from_reflection(value)):.4f}")
+                 for name, value in vswr]
+        texts.append(("expanded_uncertainty", "not evaluated" if figure.expanded_uncertainty is None
+                      else f"{figure.expanded_uncertainty:.5f}"))
+    texts.insert(1, ("worst_frequency_hz", f"{figure.worst_frequency_hz:.10g}"))
+    texts.append(("verdict", figure.verdict.value if figure.verdict is not None else "not judged"))
+    return texts
+
+
 def band_metrics(result: DeviceResult) -> dict[tuple[str, str], tuple[float, str]]:
-    """Further per-band figures kept in the database (``band_metrics``)."""
+    """Further per-band figures kept in the database (``band_metrics``); with two-port data,
+    each figure's worst, mean, where, uncertainty, limit and verdict (named ``<figure>.<what>``)."""
     found: dict[tuple[str, str], tuple[float, str]] = {}
     for band in result.bands:
         found[(band.limit.name, "worst_mismatch_loss")] = (float(metrics.mismatch_loss_db(band.worst_reflection)), "dB")
         found[(band.limit.name, "mean_return_loss")] = (float(metrics.return_loss_db(band.mean_reflection)), "dB")
         found[(band.limit.name, "worst_reflection")] = (band.worst_reflection, "1")
+        for figure in band.figures if len(band.figures) > 1 else ():
+            unit = "dB" if figure.figure == INSERTION_LOSS else "1"
+            values = {"worst": (figure.worst, unit), "mean": (figure.mean, unit),
+                      "worst_frequency": (figure.worst_frequency_hz, "Hz"),
+                      "expanded_uncertainty": (figure.expanded_uncertainty, unit), "limit": (figure.limit, unit),
+                      "worst_upper": (figure.worst_upper, unit)}
+            if figure.verdict is not None:
+                values["verdict"] = (VERDICT_CODES[figure.verdict.value], VERDICT_UNIT)
+            if unit == "1":
+                values["worst_vswr"] = (float(metrics.vswr_from_reflection(figure.worst)), "ratio")
+            found.update({(band.limit.name, f"{figure.figure}.{name}"): value for name, value in values.items()
+                          if value[0] is not None})
     return found
 
 
@@ -224,17 +289,25 @@ class RunFolder:
 def record_device(store: ResultStore, journal: RunJournal, folder: RunFolder, facts: RunFacts,
                   basis: MeasurementBasis, result: DeviceResult, position: int, frequencies: np.ndarray,
                   corrected: np.ndarray, uncertainty: np.ndarray | None = None,
-                  extra_metrics: Mapping[tuple[str, str], tuple[float, str]] | None = None) -> RecordedDevice:
-    """Write the file (atomically, never over another), commit the rows, journal the commit."""
-    text = format_one_port(frequencies, corrected, basis.calibration.reference_impedance_ohm,
-                           device_metadata(facts, basis, result, position, uncertainty))
-    path = write_new_file(folder.path, result.device.serial, ".s1p", text)
+                  extra_metrics: Mapping[tuple[str, str], tuple[float, str]] | None = None, *,
+                  arrays: Mapping[str, np.ndarray] | None = None, data: str | None = None) -> RecordedDevice:
+    """Write the file (atomically, never over another), commit the rows, journal the commit.
+
+    ``corrected`` is the as-terminated reflection (N,), written as ``.s1p``, or S-parameters
+    (N, 2, 2), written as ``.s2p`` (``data`` then says what they are); ``uncertainty`` the
+    headline figure's expanded uncertainty per point; ``arrays`` more per-point arrays kept
+    with the device's row (each figure's uncertainty, the as-terminated trace)."""
+    metadata = device_metadata(facts, basis, result, position, uncertainty, data)
+    z0 = basis.calibration.reference_impedance_ohm
+    two_port_data = np.ndim(corrected) == 3
+    text = (format_two_port if two_port_data else format_one_port)(frequencies, corrected, z0, metadata)
+    path = write_new_file(folder.path, result.device.serial, ".s2p" if two_port_data else ".s1p", text)
     digest = hashlib.sha256(text.encode("ascii")).hexdigest()
     row = store.record_device(
         facts.run_id, result, folder.relative(path, store.path), position=position,
         calibration_id=basis.calibration.calibration_id, qualification_id=basis.qualification_id,
         verification_id=basis.verification_id, file_sha256=digest, uncertainty=uncertainty,
-        metrics={**band_metrics(result), **(extra_metrics or {})},
+        metrics={**band_metrics(result), **(extra_metrics or {})}, arrays=arrays,
     )
     journal.write("device-committed", serial=result.device.serial, position=position, file=path.name, row=row)
     return RecordedDevice(result, position, path, row)

@@ -12,6 +12,7 @@ import csv
 import html
 import io
 import json
+import math
 import os
 import tempfile
 from collections.abc import Iterable, Sequence
@@ -20,8 +21,11 @@ from pathlib import Path
 from typing import Any
 
 from lineproof import __version__
+from lineproof.check_history import ChartData
+from lineproof.figures import FIGURES, INPUT_MATCH, INSERTION_LOSS, OUTPUT_MATCH
+from lineproof.metrics import vswr_from_reflection
 from lineproof.report_data import DeviceRecord, RunRecords
-from lineproof.report_plots import device_plot, overlay_plot
+from lineproof.report_plots import control_chart_plot, device_plot, insertion_loss_plot, overlay_plot
 from lineproof.touchstone import make_readable
 
 _STYLE = """
@@ -54,7 +58,21 @@ def _verdict(value: object) -> str:
 
 
 def _number(value: object, digits: int = 4) -> str:
-    return "" if value is None else f"{float(value):.{digits}f}"  # type: ignore[arg-type]
+    if value is None:
+        return ""
+    number = float(value)  # type: ignore[arg-type]
+    return "none" if math.isinf(number) else f"{number:.{digits}f}"
+
+
+def _finite(value: Any) -> Any:
+    """JSON has no infinity: a limit a band does not set (inf) is written as null."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {k: _finite(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_finite(v) for v in value]
+    return value
 
 
 def _table(headers: Sequence[str], rows: Iterable[Sequence[str]], numeric: frozenset[int] = frozenset()) -> str:
@@ -80,8 +98,16 @@ def _run_section(records: RunRecords) -> str:
         ("sweep", run["sweep_plan"]), ("reference plane", run.get("reference_plane")),
         ("decision rule", run.get("decision_rule")), ("started / finished (UTC)", f"{run['started_utc']} / {run.get('finished_utc') or '-'}"),
         ("devices", f"{counts['total']}: {counts['pass']} passed, {counts['fail']} failed, "
-                    f"{counts['indeterminate']} indeterminate"),
+                    f"{counts['indeterminate']} indeterminate"
+                    + (f"; {counts['suspect']} SUSPECT (see below)" if counts["suspect"] else "")),
     ]
+    if run.get("remeasure_of"):
+        items.append(("measures again", f"the suspect results of run {run['remeasure_of']}"))
+    first = next((d.metadata for d in records.devices if d.metadata), {})
+    if "figures.judged" in first:
+        judged = first["figures.judged"] + (f" (as-terminated {first['figures.as_terminated']})"
+                                            if "figures.as_terminated" in first else "")
+        items.append(("verdicts on", judged))
     return "<dl>" + "".join(f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in items) + "</dl>"
 
 
@@ -96,9 +122,84 @@ def _verdict_table(records: RunRecords) -> str:
                 _number(band["worst_frequency_hz"] / 1e6, 3), _number(band["limit_vswr"], 3),
                 _number(band["expanded_uncertainty"], 5), _verdict(band["verdict"]),
                 _verdict(device.row["verdict"]) if first else "",
+                _suspect_note(records, device) if first else "",
             ])
-    headers = ["#", "serial", "model", "band", "worst VSWR", "at MHz", "limit", "U(|Γ|), k=2", "band", "device"]
+    headers = ["#", "serial", "model", "band", "worst VSWR", "at MHz", "limit", "U(|Γ|), k=2", "band", "device",
+               "note"]
     return _table(headers, rows, frozenset({0, 4, 5, 6, 7}))
+
+
+def _suspect_note(records: RunRecords, device: DeviceRecord) -> str:
+    if not device.row.get("suspect"):
+        return ""
+    again = records.remeasured.get(device.serial)
+    later = f" (measured again in {_e(again[0])}: {_verdict(again[1])})" if again else ""
+    return f'<span class="fail">SUSPECT</span>{later}'
+
+
+def _suspect_section(records: RunRecords) -> str:
+    suspect = [d for d in records.devices if d.row.get("suspect")]
+    if not suspect:
+        return ""
+    rows = [[_e(d.row["position"]), _e(d.serial), _verdict(d.row["verdict"]), _e(d.row.get("suspect_reason")),
+             _suspect_note(records, d)] for d in suspect]
+    return ("<h2>Suspect results</h2><p class='note'>A check of the calibration failed after these devices were "
+            "measured and before any later passing check: their results are in doubt. Their files are unchanged; "
+            "a note beside each (<code>.suspect.json</code>) says so. Measure them again with "
+            f"<code>lineproof run --remeasure-suspect {_e(records.run['run_id'])}</code>.</p>"
+            + _table(["#", "serial", "verdict", "why", "now"], rows, frozenset({0})))
+
+
+def _study_section(records: RunRecords) -> str:
+    if not records.study:
+        return ""
+    first = records.study[0]
+    rows = [[_e(s["band"]), _e(s["figure"]), _number(s["repeatability_sd"], 5), _number(s["reproducibility_sd"], 5),
+             _number(s["gauge_sd"], 5), _number(s["part_sd"], 5), _number(s["tolerance"], 3),
+             f"{100 * s['repeatability_share']:.1f} %", f"{100 * s['reproducibility_share']:.1f} %",
+             f"{100 * s['gauge_share']:.1f} %"] for s in records.study]
+    headers = ["band", "figure", "repeatability σ", "reproducibility σ", "GR&R σ", "devices σ", "tolerance",
+               "repeatability", "reproducibility", "GR&R"]
+    return (f"<h2>Repeatability study</h2><p class='note'>{_e(first['devices'])} devices x "
+            f"{_e(first['reconnections'])} connections x {_e(first['operators'])} operator(s); "
+            f"{len(records.study_readings)} readings. Method: {_e(first['method'])}. The last three columns are "
+            "shares of the tolerance (the band's VSWR limit - 1).</p>"
+            + _table(headers, rows, frozenset(range(2, 10))))
+
+
+_VERDICT_NAMES = {1.0: "pass", 0.0: "indeterminate", -1.0: "fail"}
+
+
+def _figure_cells(name: str, values: dict[str, float | None]) -> list[str]:
+    """worst, at MHz, U, limit, verdict of one recorded figure (VSWR for a match, dB for loss)."""
+    def shown(key: str, digits: int) -> str:
+        value = values.get(key)
+        if value is None:
+            return ""
+        return _number(value, digits) if name == INSERTION_LOSS or key == "expanded_uncertainty" else \
+            _number(float(vswr_from_reflection(value)), digits)
+    verdict = values.get("verdict")
+    at = values.get("worst_frequency")
+    return [shown("worst", 4), "" if at is None else _number(at / 1e6, 3), shown("expanded_uncertainty", 4 if name ==
+            INSERTION_LOSS else 5), shown("limit", 3), _verdict(_VERDICT_NAMES[verdict]) if verdict is not None
+            else "<span class='note'>reported</span>"]
+
+
+def _figures_table(records: RunRecords) -> str:
+    """Every figure of every band of the two-port records (empty for a one-port run)."""
+    rows = []
+    for device in records.devices:
+        for band in device.bands:
+            for name in FIGURES:
+                values = device.figure(str(band["band"]), name)
+                if values:
+                    rows.append([_e(device.serial), _e(band["band"]), _e(name), *_figure_cells(name, values)])
+    if not rows:
+        return ""
+    headers = ["serial", "band", "figure", "worst (VSWR or dB)", "at MHz", "U, k=2 (|Γ| or dB)", "limit", "verdict"]
+    note = ("<p class='note'>Match figures as VSWR and U of |Γ|; insertion loss and its U in dB. "
+            "'reported' figures are shown beside the judged ones.</p>")
+    return "<h2>Figures</h2>" + note + _table(headers, rows, frozenset({3, 4, 5, 6}))
 
 
 def _calibration_section(records: RunRecords) -> str:
@@ -123,13 +224,34 @@ def _verification_section(records: RunRecords) -> str:
     for check in records.verifications:
         bands = records.verification_bands.get(int(check["verification_id"]), [])
         per_band = "; ".join(f"{b['band']}: |Γ| {b['measured_reflection']:.4f} vs {b['reference_reflection']:.4f}"
+                             + ("" if b.get("en") is None else f" ± {b['tolerance']:.4f}, En {b['en']:.2f}")
                              for b in bands)
+        chart = {None: "not judged (baseline)", 1: "in control", 0: f"OUT: {check.get('control_signals')}"}[check.get("in_control")]
         rows.append([_e(check["measured_utc"]), _e(check["devices_before"]), _e(check["check_standard"]),
-                     _number(check["worst_deviation"], 5), _number(check["worst_frequency_hz"] / 1e6, 3),
-                     _number(check["tolerance"], 5), _verdict("pass" if check["passed"] else "fail"), _e(per_band)])
-    headers = ["measured (UTC)", "after devices", "check standard", "largest |Δ|Γ||", "at MHz", "tolerance",
-               "result", "per band"]
-    return "<h2>Verification</h2>" + _table(headers, rows, frozenset({1, 3, 4, 5}))
+                     _number(check["worst_deviation"], 5), _number(check.get("en"), 2), _e(chart),
+                     _verdict("pass" if check["passed"] else "fail"), _e(per_band)])
+    headers = ["measured (UTC)", "after devices", "check standard", "largest |Δ|Γ||", "En", "control chart",
+               "result", "per band (mean |Γ| vs reference)"]
+    criteria = sorted({str(c["criterion"]) for c in records.verifications if c.get("criterion")})
+    note = f"<p class='note'>Criterion: {_e('; '.join(criteria))}.</p>" if criteria else ""
+    return "<h2>Verification</h2>" + note + _table(headers, rows, frozenset({1, 3, 4})) + _charts_section(records)
+
+
+def _charts_section(records: RunRecords) -> str:
+    if not records.charts:
+        return ""
+    parts = ["<h2>Control charts</h2><p class='note'>Each check standard's history on this station and analyzer "
+             "(NIST/SEMATECH e-Handbook of Statistical Methods, ch. 2): the first K checks that agreed with their "
+             "reference set the accepted value and the limits ±t(1-α/2; K-1)·s (α = 0.0027); the shaded zones at "
+             "1 s and 2 s serve the run rules that catch slow drift (Western Electric 1956: 2 of 3 beyond 2 s, 4 of "
+             "5 beyond 1 s, 8 on one side; Nelson 1984: 6 rising or falling). Below, the standard deviation of "
+             "each check's repeats against s1·sqrt(F).</p>"]
+    for chart in records.charts:
+        if chart.baseline is None:
+            parts.append(f"<p class='note'>{_e(chart.key.describe())}: {len(chart.rows)} check(s) so far; the "
+                         "limits are set once the baseline is complete.</p>")
+        parts.append(_image(control_chart_plot(chart), f"control chart of {chart.key.describe()}"))
+    return "".join(parts)
 
 
 def _plots_section(records: RunRecords) -> str:
@@ -143,6 +265,8 @@ def _plots_section(records: RunRecords) -> str:
             parts.append(f"<p class='note'>{_e(device.serial)}: {_e(device.problem)}</p>")
             continue
         parts.append(_image(device_plot(device, records.band_limits), f"VSWR of {device.serial}"))
+        if device.s_parameters is not None:
+            parts.append(_image(insertion_loss_plot(device, records.band_limits), f"insertion loss of {device.serial}"))
         if device.uncertainty is None:
             parts.append(f"<p class='note'>{_e(device.serial)}: uncertainty not evaluated (simple acceptance).</p>")
     return "".join(parts)
@@ -153,7 +277,9 @@ def render_html(records: RunRecords) -> str:
     return (
         f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>lineproof report {_e(run_id)}</title>"
         f"<style>{_STYLE}</style></head><body><h1>Run report: {_e(records.run['sequence_name'])}</h1>"
-        f"{_run_section(records)}<h2>Verdicts</h2>{_verdict_table(records)}{_calibration_section(records)}"
+        f"{_run_section(records)}{_study_section(records)}<h2>Verdicts</h2>{_verdict_table(records)}"
+        f"{_figures_table(records)}{_suspect_section(records)}"
+        f"{_calibration_section(records)}"
         f"{_verification_section(records)}{_plots_section(records)}"
         f"<p class='note'>Written by lineproof {_e(__version__)} from the run's records.</p></body></html>"
     )
@@ -170,7 +296,10 @@ def render_csv(records: RunRecords) -> str:
     writer = csv.writer(stream, lineterminator="\n")
     writer.writerow(["run_id", "position", "serial", "model", "measured_utc", "device_verdict", "band", "start_hz",
                      "stop_hz", "limit_vswr", "worst_vswr", "worst_frequency_hz", "mean_vswr", "worst_return_loss_db",
-                     "expanded_uncertainty", "band_verdict", "decision_rule", "calibration_id", "touchstone"])
+                     "expanded_uncertainty", "band_verdict", "decision_rule", "calibration_id", "touchstone",
+                     "figure", "input_match_worst_vswr", "output_match_worst_vswr", "insertion_loss_worst_db",
+                     "insertion_loss_limit_db", "insertion_loss_expanded_uncertainty_db", "insertion_loss_verdict",
+                     "suspect", "suspect_reason"])
     for device in records.devices:
         row = device.row
         for band in device.bands:
@@ -179,8 +308,20 @@ def render_csv(records: RunRecords) -> str:
                 band["band"], band["start_hz"], band["stop_hz"], band["limit_vswr"], band["worst_vswr"],
                 band["worst_frequency_hz"], band["mean_vswr"], band["worst_return_loss_db"],
                 band["expanded_uncertainty"], band["verdict"], band["decision_rule"], row["calibration_id"],
-                row["touchstone"])])
+                row["touchstone"], device.metadata.get("figure", ""), *_two_port_cells(device, str(band["band"])),
+                int(bool(row.get("suspect"))), row.get("suspect_reason") or "")])
     return stream.getvalue()
+
+
+def _two_port_cells(device: DeviceRecord, band: str) -> list[object]:
+    def vswr(name: str) -> object:
+        worst = device.figure(band, name).get("worst")
+        return "" if worst is None else round(float(vswr_from_reflection(worst)), 5)
+
+    loss = device.figure(band, INSERTION_LOSS)
+    verdict = loss.get("verdict")
+    return [vswr(INPUT_MATCH), vswr(OUTPUT_MATCH), loss.get("worst", ""), loss.get("limit", ""),
+            loss.get("expanded_uncertainty", ""), "" if verdict is None else _VERDICT_NAMES[verdict]]
 
 
 def _device_json(device: DeviceRecord) -> dict[str, Any]:
@@ -189,10 +330,35 @@ def _device_json(device: DeviceRecord) -> dict[str, Any]:
         "position": row["position"], "serial": row["serial"], "model": row["model"], "verdict": row["verdict"],
         "measured_utc": row["measured_utc"], "touchstone": row["touchstone"], "file_sha256": row["file_sha256"],
         "calibration_id": row["calibration_id"], "suspect": bool(row.get("suspect")),
-        "bands": [{k: b[k] for k in ("band", "start_hz", "stop_hz", "limit_vswr", "worst_vswr", "worst_frequency_hz",
-                                     "mean_vswr", "worst_return_loss_db", "expanded_uncertainty", "verdict")}
+        "suspect_reason": row.get("suspect_reason"), "suspect_verification_id": row.get("suspect_verification_id"),
+        "figure": device.metadata.get("figure"),
+        "bands": [{**{k: b[k] for k in ("band", "start_hz", "stop_hz", "limit_vswr", "worst_vswr", "worst_frequency_hz",
+                                        "mean_vswr", "worst_return_loss_db", "expanded_uncertainty", "verdict")},
+                   "figures": {name: _figure_json(device.figure(str(b["band"]), name)) for name in FIGURES
+                               if device.figure(str(b["band"]), name)}}
                   for b in device.bands],
     }
+
+
+def _chart_json(chart: ChartData) -> dict[str, Any]:
+    base = chart.baseline
+    return {
+        "station": chart.key.station, "analyzer": chart.key.analyzer, "check_standard": chart.key.check_standard,
+        "figure": chart.key.figure, "checks": len(chart.rows),
+        "baseline": None if base is None else {
+            "count": base.count, "accepted_value": base.center, "process_std": base.process_std,
+            "limit_factor": base.limit_factor, "lower": base.lower, "upper": base.upper,
+            "pooled_std": base.pooled_std, "pooled_dof": base.pooled_dof},
+        "last": None if not chart.rows else {"measured_utc": chart.rows[-1]["measured_utc"],
+                                             "value": chart.rows[-1]["value"], "signals": chart.rows[-1]["signals"]},
+    }
+
+
+def _figure_json(values: dict[str, float | None]) -> dict[str, object]:
+    found: dict[str, object] = {k: v for k, v in values.items() if k != "verdict"}
+    verdict = values.get("verdict")
+    found["verdict"] = "reported" if verdict is None else _VERDICT_NAMES[verdict]
+    return found
 
 
 def render_json(records: RunRecords) -> str:
@@ -205,8 +371,12 @@ def render_json(records: RunRecords) -> str:
         "verifications": [{**plain([c])[0], "bands": plain(records.verification_bands.get(int(c["verification_id"]), []))}
                           for c in records.verifications],
         "devices": [_device_json(d) for d in records.devices],
+        "remeasured": {serial: {"run_id": run, "verdict": verdict} for serial, (run, verdict) in records.remeasured.items()},
+        "control_charts": [_chart_json(c) for c in records.charts],
     }
-    return json.dumps(summary, indent=2)
+    if records.study:
+        summary["repeatability_study"] = {"results": plain(records.study), "readings": records.study_readings}
+    return json.dumps(_finite(summary), indent=2)
 
 
 def _replace_file(path: Path, text: str) -> None:

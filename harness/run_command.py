@@ -1,7 +1,7 @@
 """``lineproof run SEQUENCE``: a whole run, with progress bars, live verdicts and prompts.
 
-Exit codes (see :mod:`lineproof.cli`): 0 every device passed, 1 a device failed or was
-indeterminate, 2 the run could not complete (the reason is printed; ``--resume RUN_ID``
+Exit codes (see :mod:`lineproof.cli`): 0 every device passed, 1 a device failed, was
+indeterminate or is suspect, 2 the run could not complete (the reason is printed; ``--resume RUN_ID``
 continues it), 3 invalid input (nothing was touched).  ``--json`` writes one JSON object per
 event for a line system.  Ctrl-C stops between devices; a second Ctrl-C stops at once.
 """
@@ -57,11 +57,20 @@ def _command(arguments: argparse.Namespace) -> int:
                          station_file=Path(arguments.station) if arguments.station else None)
     stop = StopSignal()
     try:
-        if arguments.sequence is None and arguments.resume is None:
+        if arguments.sequence is None and arguments.resume is None and arguments.remeasure_suspect is None:
             raise InputError("no sequence given", key="SEQUENCE",
                              fix="lineproof run SEQUENCE.toml, or lineproof run --resume RUN_ID")
         with stop_on_ctrl_c(stop, view):
-            if arguments.resume is not None:
+            if arguments.remeasure_suspect is not None:
+                if arguments.resume is not None or arguments.sequence or arguments.station:
+                    raise InputError("--remeasure-suspect takes no sequence, --resume or --station",
+                                     key="--remeasure-suspect",
+                                     fix="lineproof run --remeasure-suspect RUN_ID [--records DIR]: the run's own "
+                                     "sequence and station are used")
+                from lineproof.remeasure import remeasure_suspect
+
+                outcome = remeasure_suspect(arguments.remeasure_suspect, options, view, stop)
+            elif arguments.resume is not None:
                 if arguments.station:
                     raise InputError("--station cannot change the station of a run being resumed", key="--station",
                                      fix="resume without --station: the run continues on the station it began on")
@@ -106,6 +115,9 @@ def register(commands: argparse._SubParsersAction) -> None:
     )
     run.add_argument("sequence", nargs="?", metavar="SEQUENCE", help="the sequence file (.toml)")
     run.add_argument("--resume", metavar="RUN_ID", help="continue an interrupted run (no device lost or repeated)")
+    run.add_argument("--remeasure-suspect", metavar="RUN_ID",
+                     help="measure again the results a failed check made suspect in RUN_ID (a new run of its "
+                     "sequence, its suspect devices only)")
     run.add_argument("--operator", metavar="NAME", help="who runs it, for the records (default: your login name)")
     run.add_argument("--station", metavar="FILE", help="a station file that replaces the sequence's [station]")
     run.add_argument("--records", metavar="DIR",

@@ -9,14 +9,13 @@ device is routed and swept, so the analyzer is never idle waiting for the disk.
 
 from __future__ import annotations
 
+import dataclasses
 import threading
 import time
 from collections.abc import Callable
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-
-import numpy as np
 
 from lineproof import calibration, steps
 from lineproof.calkit import load_kit
@@ -25,13 +24,15 @@ from lineproof.interfaces import Operator
 from lineproof.journal import RunJournal
 from lineproof.operators import ConsoleOperator
 from lineproof.recording import MeasurementBasis, RecordedDevice, RunFacts, RunFolder, record_device
+from lineproof.run_checks import CalibrationPolicy, CheckRunner, failure_reason
+from lineproof.run_devices import Acquired, AsTerminatedDevices, TwoPortDevices
 from lineproof.run_view import RunView
 from lineproof.sequence import DeviceUnit, SequenceSpec, StepSpec, resolve_path
+from lineproof.sequence_methods import judged_figures
 from lineproof.stations import OpenStation
 from lineproof.steps import QualifiedTermination
 from lineproof.store import ResultStore
 from lineproof.values import CalibrationRecord, DeviceIdentity, VerificationResult
-from lineproof.verification import reference_magnitude, verify_with_check_standard
 
 
 class StopSignal:
@@ -55,6 +56,8 @@ class RunState:
     taken: set[str] = field(default_factory=set)  # serials committed in this run, lower case
     checked_at_devices: int = 0
     checked_at_utc: datetime = field(default_factory=lambda: datetime.now(UTC))
+    #: Why the calibration in use no longer holds (a failed check), until it is made again.
+    calibration_doubt: str | None = None
 
 
 class _ProgressOperator:
@@ -146,10 +149,12 @@ class StepRunner:
         self.recorded: list[RecordedDevice] = []
         self._record_lock = threading.Lock()
         self._pipeline: _RecordingPipeline | None = None
-        self._reference: np.ndarray | None = None
+        self._devices: AsTerminatedDevices | TwoPortDevices | None = None  # set by the batch
         self.measuring = steps.Station(station.analyzer, _ProgressOperator(station.operator, view),  # type: ignore[arg-type]
                                        station.identity, spec.plan, station.spec.analyzer.port,
                                        station.spec.uncertainty)
+        self.checks = CheckRunner(spec, store, journal, folder, facts, view, self.measuring)
+        self.policy = CalibrationPolicy.of(spec)
 
     def run(self) -> None:
         """Every step in order; raises RunHalted when a step finds the run must not go on."""
@@ -159,6 +164,7 @@ class StepRunner:
         handlers: dict[str, Callable[[int, StepSpec], None]] = {
             "identify": self._identify, "calibrate": self._calibrate, "qualify-termination": self._qualify,
             "verify": self._verify_step, "measure-batch": self._batch, "message": self._message, "route": self._route,
+            "repeatability-study": self._study,
         }
         for index, step in enumerate(self.spec.steps):
             if self.stop.requested:
@@ -206,12 +212,16 @@ class StepRunner:
         if path is None:
             raise InputError("cal kit file not found", path=cal_spec.kit, key="calibration.kit")
         kit = load_kit(path)
-        self.view.step_started(f"calibrating ({cal_spec.method}, kit {kit.name})", total=3)
-        cal = steps.calibrate(self.measuring, kit, cal_spec.method)
+        if cal_spec.chosen:
+            self.view.note(f"calibration method: {cal_spec.method}, chosen by lineproof as {cal_spec.chosen}")
+        connections = {"one-port": 3, "one-path": 4, "solt": 7}.get(cal_spec.method, 3)
+        self.view.step_started(f"calibrating ({cal_spec.method}, kit {kit.name})", total=connections)
+        temperature = self.checks.read_temperature()
+        cal = dataclasses.replace(steps.calibrate(self.measuring, kit, cal_spec.method), temperature_c=temperature)
         self.store.save_calibration(self.facts.run_id, cal, self.facts.station)
         self.journal.write("calibrated", calibration_id=cal.calibration_id, reused=False)
         state.calibration, state.qualification, state.last_check = cal, None, None
-        state.reuse_calibration = False
+        state.reuse_calibration, state.calibration_doubt = False, None
         self.view.step_finished(f"calibrated: {cal.method}, kit {kit.name} -> {cal.calibration_id}")
 
     def _qualify(self, index: int, step: StepSpec) -> None:
@@ -240,31 +250,50 @@ class StepRunner:
         self.verify()
 
     def verify(self) -> None:
-        """Measure the check standard with the calibration in use; a failed check halts the run."""
-        check, state = self.spec.check_standard, self.state
-        assert check is not None and state.calibration is not None
-        if self._reference is None:
-            path = resolve_path(check.reference_file, self.spec) if check.reference_file else None
-            self._reference = reference_magnitude(self.spec.plan.frequencies(), path, check.reference_vswr)
-        self.view.step_started(f"verifying with check standard {check.name}", total=1)
-        result = verify_with_check_standard(self.measuring, state.calibration, check.name, self._reference,
-                                            check.tolerance, self.spec.bands, state.measured)
-        if self._pipeline is not None:
-            self._pipeline.drain()  # recorded during the check's sweep: the lines stay in order
-        row = self.store.record_verification(self.facts.run_id, result, self.facts.station,
-                                             self.station.identity.describe())
-        self.journal.write("verified", verification_id=row, passed=result.passed, devices_before=state.measured)
-        self.view.step_finished("")
-        self.view.verification(result, reused=False)
+        """Measure the check standard with the calibration in use (:mod:`lineproof.run_checks`).
+        A failed first check of a calibration halts the run; a later one leaves the
+        calibration in doubt (the results since the last passing check are marked suspect),
+        and it is made again before the next device."""
+        state = self.state
+        assert self.spec.check_standard is not None and state.calibration is not None
+        last = state.last_check[0] if state.last_check else None
+        recorded = self.checks.check(state.calibration, state.measured, last, self._drain)
         state.checked_at_devices, state.checked_at_utc = state.measured, datetime.now(UTC)
-        if not result.passed:
+        result = recorded.result
+        if result.passed:
+            state.last_check = (result, recorded.row)
+            return
+        if last is None:
             raise RunHalted(
-                f"check standard {check.name} failed verification after {state.measured} device(s): "
-                f"|Γ| off its reference by {result.sweep_worst_deviation:.4f} at "
-                f"{result.sweep_worst_frequency_hz / 1e6:.3f} MHz (tolerance {check.tolerance:.4f}). The calibration "
-                "no longer holds; results since the last passing check are in doubt. Check the connections and "
-                "resume the run: it will calibrate again")
-        state.last_check = (result, row)
+                f"check standard {result.check_standard} failed verification after {state.measured} device(s): "
+                f"{failure_reason(result)}. The calibration does not hold; results since the last passing check "
+                "are in doubt. Check the connections and the standards and resume the run: it will calibrate again")
+        state.calibration_doubt = f"its last check failed ({failure_reason(result)})"
+
+    def _drain(self) -> None:
+        if self._pipeline is not None:
+            self._pipeline.drain()
+
+    def _keep_calibration_valid(self) -> None:
+        """Before a device: calibrate again if the calibration no longer holds (the policy of
+        :mod:`lineproof.run_checks`); an attended run first stops at a prompt."""
+        state = self.state
+        assert state.calibration is not None
+        problem = state.calibration_doubt or self.policy.problem(state.calibration, self.checks.read_temperature())
+        if problem is None:
+            return
+        self._drain()  # the lines of the devices measured so far come first
+        self.view.note(f"the calibration no longer holds: {problem}")
+        self.journal.write("calibration-no-longer-holds", reason=problem)
+        operator = self.station.operator
+        if isinstance(operator, ConsoleOperator):
+            operator.acknowledge(f"The calibration no longer holds ({problem}). Have the calibration standards "
+                                 "ready: it is made again now")
+        self._calibrate(-1, StepSpec("calibrate"))
+        if self.spec.termination is not None:
+            self._qualify(-1, StepSpec("qualify-termination"))
+        if self.spec.check_standard is not None:
+            self.verify()
 
     def _check_due(self) -> bool:
         reverify, state = self.spec.reverify, self.state
@@ -285,9 +314,18 @@ class StepRunner:
         return MeasurementBasis(state.calibration, qualified.qualification, row, measured_utc,
                                 check[0] if check else None, check[1] if check else None, qualified)
 
+    def _device_measurement(self) -> AsTerminatedDevices | TwoPortDevices:
+        """How the batch measures each device: as the calibration in use allows."""
+        cal, rule = self.state.calibration, self.spec.decision_rule
+        if cal is None or cal.method not in (calibration.ONE_PATH_METHOD, calibration.FULL_TWO_PORT_METHOD):
+            return AsTerminatedDevices(self.measuring, self.spec.bands, rule)  # type: ignore[arg-type]
+        return TwoPortDevices(self.measuring, self.spec.bands, rule, cal.method,  # type: ignore[arg-type]
+                              judged_figures(self.spec), self.spec.measurement.as_terminated)
+
     def _batch(self, index: int, step: StepSpec) -> None:
         devices, termination = self.spec.devices, self.spec.termination
         assert devices is not None and termination is not None
+        self._devices = self._device_measurement()
         overlap = not isinstance(self.station.operator, ConsoleOperator)
         pipeline = self._pipeline = _RecordingPipeline(overlap)
         self.measuring.operator.after_connect = pipeline.start  # type: ignore[attr-defined]
@@ -295,6 +333,7 @@ class StepRunner:
             for unit in self._units():
                 if self._check_due():
                     self.verify()
+                self._keep_calibration_valid()
                 self._measure_one(unit, termination.name, pipeline)
                 if self.stop.requested:
                     break
@@ -304,6 +343,12 @@ class StepRunner:
             self.measuring.operator.after_connect = None  # type: ignore[attr-defined]
             self._pipeline = None
             pipeline.close()
+
+    def _study(self, index: int, step: StepSpec) -> None:
+        from lineproof.study_steps import run_study
+
+        run_study(self.spec, self.measuring, self._basis(), self.store, self.journal, self.view, self.facts,
+                  self.station.operator, lambda: self.stop.requested)
 
     def _units(self):  # -> Iterator[DeviceUnit]
         devices = self.spec.devices
@@ -321,7 +366,9 @@ class StepRunner:
             if devices.max_count is not None and len(self.state.taken) >= devices.max_count:
                 self.view.note(f"batch complete: {devices.max_count} device(s), the most this sequence takes")
                 return
-            serial = operator.scan_device(self.measuring.port, devices.model, self.spec.termination.name, self.state.taken)
+            assert self._devices is not None
+            output = self._devices.scan_output or self.spec.termination.name
+            serial = operator.scan_device(self.measuring.port, devices.model, output, self.state.taken)
             if serial is None:
                 return
             yield DeviceUnit(serial, devices.model, None, "scanned")
@@ -329,29 +376,27 @@ class StepRunner:
     def _measure_one(self, unit: DeviceUnit, termination: str, pipeline: _RecordingPipeline) -> None:
         device = DeviceIdentity(unit.serial, unit.model)
         basis = self._basis()
-        self.view.step_started(f"{unit.serial}: connect and sweep", total=2)
+        measurement = self._devices
+        assert measurement is not None
+        connections = 1 if not measurement.two_port else (2 if self.measuring.paths == "forward" else 1) + (
+            self.spec.measurement.as_terminated == "measured")
+        self.view.step_started(f"{unit.serial}: connect and sweep", total=connections + 1)
         if self.spec.devices is not None and self.spec.devices.entry == "listed":
-            self.measuring.operator.connect(
-                self.measuring.port, unit.serial, termination,
-                f"Connect {unit.model} s/n {unit.serial} to port {self.measuring.port}, its output on {termination}")
-        frequencies, raw = self.measuring.measure_raw()
+            measurement.connect(device, termination)
+        acquired = measurement.acquire(device, termination)
         self.view.step_advanced("swept")
         self.state.measured += 1
         self.state.taken.add(unit.serial.lower())
         position = self.state.measured
-        pipeline.submit(lambda: self._record(device, position, frequencies, raw, basis))
+        pipeline.submit(lambda: self._record(device, position, acquired, basis))
 
-    def _record(self, device: DeviceIdentity, position: int, frequencies: np.ndarray, raw: np.ndarray,
-                basis: MeasurementBasis) -> None:
-        """Correct, judge with the uncertainty of every point (the termination's own mismatch
-        included), and record."""
-        corrected = calibration.correct_one_port(basis.calibration, frequencies, raw)
-        spread = steps.device_uncertainty(self.measuring, basis.calibration, frequencies, corrected,
-                                          basis.termination_data)
-        result = steps.judge(device, frequencies, corrected, self.spec.bands, self.spec.decision_rule,  # type: ignore[arg-type]
-                             spread.expanded, termination=basis.qualification)
-        recorded = record_device(self.store, self.journal, self.folder, self.facts, basis, result, position,
-                                 frequencies, corrected, spread.expanded)
+    def _record(self, device: DeviceIdentity, position: int, acquired: Acquired, basis: MeasurementBasis) -> None:
+        """Correct, judge with the uncertainty of every point, and record."""
+        assert self._devices is not None
+        evaluated = self._devices.evaluate(device, acquired, basis)
+        recorded = record_device(self.store, self.journal, self.folder, self.facts, basis, evaluated.result, position,
+                                 evaluated.frequencies_hz, evaluated.data, evaluated.uncertainty,
+                                 arrays=evaluated.arrays, data=evaluated.description)
         with self._record_lock:
             self.recorded.append(recorded)
         self.view.device_recorded(recorded)

@@ -10,12 +10,13 @@ run's threads; each serialises its own output.
 from __future__ import annotations
 
 import json
+import math
 import sys
 import threading
 from typing import Any, Protocol, TextIO
 
 from lineproof.recording import RecordedDevice
-from lineproof.values import TerminationQualification, VerificationResult
+from lineproof.values import BandResult, TerminationQualification, VerificationResult
 
 
 class RunView(Protocol):
@@ -27,17 +28,41 @@ class RunView(Protocol):
     def qualification(self, result: TerminationQualification, reused: bool) -> None: ...
     def verification(self, result: VerificationResult, reused: bool) -> None: ...
     def note(self, text: str) -> None: ...
+    def suspect_results(self, serials: list[str], reason: str, command: str) -> None: ...
     def ask(self, prompt: str) -> str | None: ...
     def run_finished(self, summary: dict[str, Any]) -> None: ...
     def close(self) -> None: ...
 
 
+def _band_text(band: BandResult) -> str:
+    text = f"{band.limit.name} {band.worst_vswr:.3f}"
+    if not math.isinf(band.limit.max_vswr):
+        text += f" (limit {band.limit.max_vswr:.2f})"
+    if band.worst_insertion_loss_db is not None:
+        text += f" IL {band.worst_insertion_loss_db:.3f} dB"
+        if band.limit.max_insertion_loss_db is not None:
+            text += f" (limit {band.limit.max_insertion_loss_db:.2f})"
+    return f"{text} {band.verdict.value}"
+
+
 def device_line(recorded: RecordedDevice) -> str:
-    """One line per device: position, serial, verdict and each band's worst VSWR against its limit."""
+    """One line per device: position, serial, verdict and each band's worst VSWR (of the
+    headline figure) and insertion loss against their limits."""
     result = recorded.result
-    bands = "  ".join(f"{b.limit.name} {b.worst_vswr:.3f} (limit {b.limit.max_vswr:.2f}) {b.verdict.value}"
-                      for b in result.bands)
+    bands = "  ".join(_band_text(b) for b in result.bands)
     return f"{recorded.position:>4}  {result.device.serial:<16} {result.verdict.value.upper():<13} {bands}"
+
+
+def _band_json(band: BandResult) -> dict[str, Any]:
+    found: dict[str, Any] = {"band": band.limit.name, "worst_vswr": round(band.worst_vswr, 5),
+                             "limit_vswr": None if math.isinf(band.limit.max_vswr) else band.limit.max_vswr,
+                             "worst_frequency_hz": band.worst_frequency_hz,
+                             "verdict": band.verdict.value}
+    if band.figures and len(band.figures) > 1:
+        found["figures"] = [{"figure": f.figure, "worst": round(f.worst, 6), "worst_frequency_hz": f.worst_frequency_hz,
+                             "limit": f.limit, "expanded_uncertainty": f.expanded_uncertainty,
+                             "verdict": None if f.verdict is None else f.verdict.value} for f in band.figures]
+    return found
 
 
 def _read_line(stream: TextIO) -> str | None:
@@ -111,6 +136,10 @@ class ConsoleRunView:
     def note(self, text: str) -> None:
         self._print(text)
 
+    def suspect_results(self, serials: list[str], reason: str, command: str) -> None:
+        self._print(f"{len(serials)} result(s) since the last passing check are now SUSPECT: {', '.join(serials)} "
+                    f"(measure them again with {command})", "bold red")
+
     def ask(self, prompt: str) -> str | None:
         with self._lock:
             if self._started:
@@ -130,8 +159,9 @@ class ConsoleRunView:
         counts = summary.get("counts", {})
         self._print(f"\nrun {summary['run_id']} {summary['status']}"
                     + (f": {summary['reason']}" if summary.get("reason") else ""), "bold")
+        suspect = f", {counts['suspect']} SUSPECT (a failed check put them in doubt)" if counts.get("suspect") else ""
         self._print(f"{counts.get('total', 0)} device(s): {counts.get('pass', 0)} passed, {counts.get('fail', 0)} failed, "
-                    f"{counts.get('indeterminate', 0)} indeterminate")
+                    f"{counts.get('indeterminate', 0)} indeterminate{suspect}")
         for label, key in (("Touchstone files", "run_folder"), ("Results database", "database"), ("Report", "report")):
             if summary.get(key):
                 self._print(f"{label}: {summary[key]}")
@@ -179,8 +209,7 @@ class JsonRunView:
         result = recorded.result
         self._emit("device", position=recorded.position, serial=result.device.serial, model=result.device.model,
                    verdict=result.verdict.value, measured_utc=result.measured_utc, file=str(recorded.file),
-                   bands=[{"band": b.limit.name, "worst_vswr": round(b.worst_vswr, 5), "limit_vswr": b.limit.max_vswr,
-                           "worst_frequency_hz": b.worst_frequency_hz, "verdict": b.verdict.value} for b in result.bands])
+                   figure=result.figure, bands=[_band_json(b) for b in result.bands])
 
     def qualification(self, result: TerminationQualification, reused: bool) -> None:
         self._emit("termination", name=result.name, worst_vswr=round(result.worst_vswr, 5),
@@ -189,10 +218,15 @@ class JsonRunView:
     def verification(self, result: VerificationResult, reused: bool) -> None:
         self._emit("verification", check_standard=result.check_standard, devices_before=result.devices_before,
                    worst_deviation=round(result.sweep_worst_deviation, 6), tolerance=result.tolerance,
+                   en=None if result.en is None else round(result.en, 4), agrees=result.agrees,
+                   control_signals=None if result.control_signals is None else list(result.control_signals),
                    passed=result.passed, reused=reused)
 
     def note(self, text: str) -> None:
         self._emit("note", text=text)
+
+    def suspect_results(self, serials: list[str], reason: str, command: str) -> None:
+        self._emit("suspect", serials=serials, reason=reason, remeasure_command=command)
 
     def ask(self, prompt: str) -> str | None:
         self._emit("prompt", text=prompt)

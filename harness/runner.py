@@ -30,9 +30,11 @@ from lineproof.errors import CalibrationError, InputError, LineproofError, RunHa
 from lineproof.journal import JOURNAL_NAME, RunJournal, read_journal
 from lineproof.operators import StopRequested
 from lineproof.recording import RecordedDevice, RunFacts, RunFolder
+from lineproof.run_checks import CalibrationPolicy, write_suspect_notes
 from lineproof.run_steps import RunState, StepRunner, StopSignal
 from lineproof.run_view import RunView
 from lineproof.sequence import SequenceSpec, check_sequence_text, resolve_path
+from lineproof.sequence_methods import TWO_PORT_METHODS, judged_figures
 from lineproof.stations import OpenStation, open_station
 from lineproof.steps import QualifiedTermination
 from lineproof.store import ResultStore, open_store, unpack_arrays
@@ -66,10 +68,12 @@ class RunOutcome:
 
     @property
     def exit_code(self) -> int:
-        """0 all devices passed, 1 a device failed or was indeterminate, 2 the run did not complete."""
+        """0 all devices passed, 1 a device failed, was indeterminate or is suspect (a failed
+        check put it in doubt), 2 the run did not complete."""
         if self.status != "complete":
             return 2
-        return 1 if self.counts.get("fail", 0) or self.counts.get("indeterminate", 0) else 0
+        counts = self.counts
+        return 1 if counts.get("fail", 0) or counts.get("indeterminate", 0) or counts.get("suspect", 0) else 0
 
     def summary(self) -> dict[str, object]:
         summary: dict[str, object] = {
@@ -147,6 +151,8 @@ def _counts(store: ResultStore, run_id: str) -> dict[str, int]:
                                        (run_id,)):
         counts[str(verdict)] = int(number)  # type: ignore[arg-type]
         counts["total"] += int(number)  # type: ignore[arg-type]
+    counts["suspect"] = int(store.query("SELECT COUNT(*) FROM devices WHERE run_id = ? AND suspect = 1",  # type: ignore[arg-type]
+                                        (run_id,))[0][0])
     return counts
 
 
@@ -156,6 +162,9 @@ def _facts(spec: SequenceSpec, run_id: str, station: OpenStation, operator: str)
         sequence_file=Path(spec.source).name, sequence_sha256=spec.sha256, station=station.spec.name,
         operator=operator, analyzer=station.identity, profile=station.profile_name, plan=spec.plan,
         reference_plane=station.spec.reference_plane, decision_rule=spec.decision_rule,
+        figures_judged=judged_figures(spec), method_chosen=spec.calibration.chosen if spec.calibration else "",
+        as_terminated=spec.measurement.as_terminated if spec.calibration and spec.calibration.method in TWO_PORT_METHODS
+        else "",
     )
 
 
@@ -189,6 +198,11 @@ def _execute(runner: StepRunner, store: ResultStore, journal: RunJournal, outcom
     return outcome
 
 
+def run_kind(spec: SequenceSpec) -> str:
+    """What a run does: a batch, or a repeatability study."""
+    return "repeatability-study" if spec.has_step("repeatability-study") else "batch"
+
+
 def _asker(view: RunView, stop: StopSignal) -> Callable[[str], str | None]:
     def ask(prompt: str) -> str | None:
         stop.at_prompt = True
@@ -200,8 +214,10 @@ def _asker(view: RunView, stop: StopSignal) -> Callable[[str], str | None]:
     return ask
 
 
-def start_run(spec: SequenceSpec, options: RunOptions, view: RunView, stop: StopSignal) -> RunOutcome:
-    """A new run of ``spec`` (already checked)."""
+def start_run(spec: SequenceSpec, options: RunOptions, view: RunView, stop: StopSignal,
+              remeasure_of: str | None = None) -> RunOutcome:
+    """A new run of ``spec`` (already checked); ``remeasure_of`` names the run whose suspect
+    results this one measures again (its sequence is that run's, its devices those results)."""
     records, database = records_location(spec, options.records)
     operator = _operator_name(options.operator)
     with open_store(database) as store, open_station(spec, _asker(view, stop)) as station:
@@ -222,7 +238,7 @@ def start_run(spec: SequenceSpec, options: RunOptions, view: RunView, stop: Stop
                 "station_file": None if station.spec.source == spec.source else str(Path(station.spec.source).resolve()),
                 "analyzer_profile": station.profile_name, "decision_rule": spec.decision_rule,
                 "reference_plane": station.spec.reference_plane, "run_folder": folder.relative(folder.path, database),
-                "planned_devices": planned,
+                "planned_devices": planned, "kind": run_kind(spec), "remeasure_of": remeasure_of,
             })
             journal = RunJournal(folder.path)
             try:
@@ -240,7 +256,7 @@ def start_run(spec: SequenceSpec, options: RunOptions, view: RunView, stop: Stop
 # -- resuming -------------------------------------------------------------------------------------
 
 
-def _kept_sequence(folder: RunFolder, row: dict[str, object]) -> SequenceSpec:
+def kept_sequence(folder: RunFolder, row: dict[str, object]) -> SequenceSpec:
     """The sequence the run started with, from the copy in its folder (checked against the hash
     the database holds), anchored at the original file's folder for its relative paths."""
     copy = folder.path / SEQUENCE_COPY
@@ -263,7 +279,7 @@ def _kept_sequence(folder: RunFolder, row: dict[str, object]) -> SequenceSpec:
 
 
 def calibration_problem(cal: CalibrationRecord | None, spec: SequenceSpec, identity: InstrumentIdentity,
-                        last_check_passed: bool | None) -> str | None:
+                        last_check_passed: bool | None, temperature_c: float | None = None) -> str | None:
     """Why a calibration from before the interruption cannot be kept, or None if it can."""
     if cal is None or spec.calibration is None:
         return "no calibration was finished"
@@ -272,6 +288,9 @@ def calibration_problem(cal: CalibrationRecord | None, spec: SequenceSpec, ident
         calstore.check_age(cal, spec.calibration.valid_for_s)
     except CalibrationError as exc:
         return str(exc)
+    moved = CalibrationPolicy(None, spec.calibration.max_temperature_change_k).problem(cal, temperature_c)
+    if moved is not None:
+        return moved
     if cal.plan != spec.plan:
         return "it was made for another sweep"
     path = resolve_path(spec.calibration.kit, spec)
@@ -293,7 +312,8 @@ def _kept_qualification(row: dict[str, Any]) -> tuple[QualifiedTermination, int,
 
 
 def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dict[str, object],
-                   identity: InstrumentIdentity, steps_done: set[int]) -> tuple[RunState, str | None]:
+                   identity: InstrumentIdentity, steps_done: set[int],
+                   temperature_c: float | None = None) -> tuple[RunState, str | None]:
     state = RunState(steps_done=set(steps_done))
     devices = store.rows("SELECT serial, position FROM devices WHERE run_id = ?", (run_id,))
     state.taken = {str(d["serial"]).lower() for d in devices}
@@ -305,7 +325,7 @@ def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dic
         return state, f"its saved terms cannot be read ({exc.problem})"
     checks = store.rows("SELECT * FROM verifications WHERE run_id = ? AND calibration_id = ? ORDER BY verification_id",
                         (run_id, cal_id))
-    problem = calibration_problem(cal, spec, identity, bool(checks[-1]["passed"]) if checks else None)
+    problem = calibration_problem(cal, spec, identity, bool(checks[-1]["passed"]) if checks else None, temperature_c)
     if problem is not None:
         return state, problem
     state.calibration, state.reuse_calibration = cal, True
@@ -315,8 +335,10 @@ def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dic
         state.qualification = _kept_qualification(quals[-1])
     if checks:
         c = checks[-1]
+        signals = None if c.get("in_control") is None else tuple(filter(None, (c.get("control_signals") or "").split("; ")))
         result = VerificationResult(c["check_standard"], c["calibration_id"], c["measured_utc"], int(c["devices_before"]),
-                                    c["worst_deviation"], c["worst_frequency_hz"], c["tolerance"], ())
+                                    c["worst_deviation"], c["worst_frequency_hz"], c["tolerance"], (), c.get("en"),
+                                    signals, int(c.get("repeats") or 1), c.get("temperature_c"))
         state.last_check = (result, int(c["verification_id"]))
         state.checked_at_devices = result.devices_before
         state.checked_at_utc = datetime.fromisoformat(c["measured_utc"])
@@ -360,13 +382,20 @@ def resume_run(run_id: str, options: RunOptions, view: RunView, stop: StopSignal
     with open_store(database) as store:
         row, folder = _resumable(store, run_id, records)
         with _run_lock(folder.path):
-            spec = _kept_sequence(folder, row)
+            spec = kept_sequence(folder, row)
+            if row.get("remeasure_of"):
+                from lineproof.remeasure import restricted_to, suspect_units
+
+                spec = restricted_to(spec, suspect_units(store, str(row["remeasure_of"]), spec, skip_done=False))
             journal_state = read_journal(folder.path / JOURNAL_NAME)
             committed = {Path(str(d[0])).name for d in store.query("SELECT touchstone FROM devices WHERE run_id = ?",
                                                                    (run_id,))}
             set_aside = folder.tidy(committed)
             with open_station(spec, _asker(view, stop)) as station:
-                state, problem = _restore_state(store, spec, run_id, row, station.identity, journal_state.steps_done())
+                temperature = getattr(station.analyzer, "read_temperature", lambda: None)()
+                state, problem = _restore_state(store, spec, run_id, row, station.identity, journal_state.steps_done(),
+                                                temperature)
+                write_suspect_notes(store, folder, run_id)  # a kill may have come between the marks and the notes
                 store.set_run_status(run_id, "running")
                 journal = RunJournal(folder.path)
                 try:

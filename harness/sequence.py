@@ -12,18 +12,22 @@ sequence is evaluated as code: values are strings, numbers and names compared wi
 from __future__ import annotations
 
 import hashlib
+import math
 import re
 from dataclasses import dataclass
 from pathlib import Path
 
+from lineproof.check_standards import CheckStandardSpec, parse_check_standard
 from lineproof.errors import InputError
+from lineproof.gauge_study import StudySpec, parse_study
 from lineproof.station_file import StationSpec, parse_station
 from lineproof.toml_problems import KeyLines, Problems, TableReader, parse_toml
 from lineproof.touchstone import SERIAL_RULE, serial_problem
 from lineproof.values import BandLimit, SweepPlan
 
 #: Actions a ``[[step]]`` may ``do``.
-ACTIONS = ("identify", "calibrate", "qualify-termination", "verify", "measure-batch", "message", "route")
+ACTIONS = ("identify", "calibrate", "qualify-termination", "verify", "measure-batch", "repeatability-study",
+           "message", "route")
 #: How the serial numbers of a batch are known.
 DEVICE_ENTRY = ("listed", "scanned")
 DECISION_RULES = ("simple", "guard-banded")
@@ -46,28 +50,36 @@ class SequenceProblems(InputError):
         return self.message
 
 
+#: ``[calibration] method`` when the sequence leaves the choice to the harness: the best
+#: method the analyzer allows and the station can carry out (:mod:`lineproof.sequence_methods`).
+AUTOMATIC_METHOD = "best"
+
+
 @dataclass(frozen=True)
 class CalibrationSpec:
-    method: str
+    method: str  # a short name of calibration.METHOD_NAMES, or AUTOMATIC_METHOD
     kit: str  # as written; resolved by :func:`resolve_path`
     valid_for_s: float
+    #: Why lineproof chose ``method`` when the sequence left the choice to it ("" if it did not).
+    chosen: str = ""
+    #: The calibration holds while the analyzer's temperature stays within this of the
+    #: temperature it was made at (None: not checked).
+    max_temperature_change_k: float | None = 1.0
+
+
+@dataclass(frozen=True)
+class MeasurementSpec:
+    """``[measurement]``: the figures the verdicts are on (None: the default for the method,
+    see :mod:`lineproof.figures`) and how a two-port run finds the as-terminated figure."""
+
+    judge: tuple[str, ...] | None = None
+    as_terminated: str = "computed"
 
 
 @dataclass(frozen=True)
 class TerminationSpec:
     name: str
     max_vswr: float
-
-
-@dataclass(frozen=True)
-class CheckStandardSpec:
-    """A check standard and what it should read: a Touchstone reference or a nominal VSWR,
-    with the largest deviation of |Γ| accepted at any point of a band."""
-
-    name: str
-    tolerance: float
-    reference_file: str | None = None
-    reference_vswr: float | None = None
 
 
 @dataclass(frozen=True)
@@ -127,6 +139,8 @@ class SequenceSpec:
     records_folder: str | None = None
     database: str | None = None
     notes: str = ""
+    study: StudySpec | None = None
+    measurement: MeasurementSpec = MeasurementSpec()
 
     @property
     def folder(self) -> Path:
@@ -160,7 +174,8 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
         return None, problems
     root = TableReader(data, "", problems)
     root.reject_unknown({"sequence", "station", "sweep", "band", "calibration", "termination",
-                         "check_standard", "devices", "decision", "reverify", "step", "records"})
+                         "check_standard", "devices", "decision", "reverify", "step", "records", "study",
+                         "measurement"})
     head = root.table("sequence", required=True)
     name, notes = None, ""
     if head is not None:
@@ -182,7 +197,7 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
         bands=bands,
         calibration=_calibration(root.table("calibration")),
         termination=_termination(root.table("termination")),
-        check_standard=_check_standard(root.table("check_standard")),
+        check_standard=parse_check_standard(root.table("check_standard"), _object_name),
         devices=_devices(root.table("devices"), problems),
         decision_rule=_decision(root.table("decision")),
         reverify=_reverify(root.table("reverify")),
@@ -190,6 +205,8 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
         records_folder=records[0],
         database=records[1],
         notes=notes,
+        study=parse_study(root.table("study")),
+        measurement=_measurement(root.table("measurement")),
     )
     if problems or station is None or plan is None:
         return None, problems
@@ -242,10 +259,10 @@ def _bands(root: TableReader, problems: Problems) -> tuple[BandLimit, ...]:
                      'add [[band]] with name, start_hz, stop_hz and max_vswr')
     bands, seen = [], set()
     for table in tables:
-        table.reject_unknown({"name", "start_hz", "stop_hz", "max_vswr"})
+        table.reject_unknown({"name", "start_hz", "stop_hz", "max_vswr", "min_return_loss_db", "max_insertion_loss_db"})
         name = table.get("name", str)
         start, stop = table.number("start_hz", above=0.0), table.number("stop_hz", above=0.0)
-        limit = table.number("max_vswr", above=1.0, fix="a VSWR limit is a ratio above 1, e.g. 1.2")
+        limits = _band_limits(table)
         if name is not None and not BAND_NAME.match(name):
             problems.add(table.key("name"), f"band name {name!r} is not allowed",
                          "use 1-32 lower-case letters, digits, '_' or '-', e.g. \"70cm\"")
@@ -256,10 +273,26 @@ def _bands(root: TableReader, problems: Problems) -> tuple[BandLimit, ...]:
         if start is not None and stop is not None and stop < start:
             problems.add(table.key("stop_hz"), "band stop is below its start", "swap start_hz and stop_hz")
             continue
-        if None not in (name, start, stop, limit):
+        if None not in (name, start, stop, limits):
             seen.add(name)
-            bands.append(BandLimit(name, start, stop, limit))
+            bands.append(BandLimit(name, start, stop, *limits))  # type: ignore[misc]
     return tuple(bands)
+
+
+def _band_limits(table: TableReader) -> tuple[float, float | None, float | None] | None:
+    """(max VSWR -- inf when the band sets no VSWR limit --, min return loss, max insertion loss)."""
+    vswr = table.number("max_vswr", None, above=1.0, fix="a VSWR limit is a ratio above 1, e.g. 1.2")
+    return_loss = table.number("min_return_loss_db", None, above=0.0, fix="a return-loss limit in dB, e.g. 20")
+    loss = table.number("max_insertion_loss_db", None, above=0.0, fix="an insertion-loss limit in dB, e.g. 0.3")
+    given = [key for key in ("max_vswr", "min_return_loss_db", "max_insertion_loss_db") if table.has(key)]
+    if not given:
+        table.problems.add(table.key("max_vswr"), "the band has no limit",
+                           "add max_vswr (and/or min_return_loss_db, max_insertion_loss_db)")
+        return None
+    values = {"max_vswr": vswr, "min_return_loss_db": return_loss, "max_insertion_loss_db": loss}
+    if any(values[key] is None for key in given):
+        return None  # a given limit was refused above
+    return (math.inf if vswr is None else vswr), return_loss, loss
 
 
 def _calibration(table: TableReader | None) -> CalibrationSpec | None:
@@ -267,13 +300,17 @@ def _calibration(table: TableReader | None) -> CalibrationSpec | None:
         return None
     from lineproof.calibration import METHOD_NAMES
 
-    table.reject_unknown({"method", "kit", "valid_for_minutes"})
-    method = table.choice("method", list(METHOD_NAMES), "one-port")
+    table.reject_unknown({"method", "kit", "valid_for_minutes", "max_temperature_change_k"})
+    method = table.choice("method", [*METHOD_NAMES, AUTOMATIC_METHOD], AUTOMATIC_METHOD)
     kit = table.get("kit", str, fix='add kit = "kits/n50-illustrative.toml" (or your kit file)')
     minutes = table.number("valid_for_minutes", 480.0, above=0.0)
-    if None in (method, kit, minutes):
+    # Common practice (from memory): analyzers state their corrected performance within
+    # +-1 K of the temperature the calibration was made at.
+    kelvin = table.number("max_temperature_change_k", 1.0, above=0.0,
+                          fix="give the largest temperature change a calibration survives, e.g. 1.0")
+    if None in (method, kit, minutes, kelvin):
         return None
-    return CalibrationSpec(method, kit, minutes * 60.0)
+    return CalibrationSpec(method, kit, minutes * 60.0, max_temperature_change_k=kelvin)
 
 
 def _termination(table: TableReader | None) -> TerminationSpec | None:
@@ -284,23 +321,6 @@ def _termination(table: TableReader | None) -> TerminationSpec | None:
     # Common practice, no published source: a termination for a DUT's output is 1.05:1 or better.
     limit = table.number("max_vswr", 1.05, above=1.0, fix="a VSWR limit is a ratio above 1, e.g. 1.05")
     return None if None in (name, limit) else TerminationSpec(name, limit)
-
-
-def _check_standard(table: TableReader | None) -> CheckStandardSpec | None:
-    if table is None:
-        return None
-    table.reject_unknown({"name", "reference_file", "reference_vswr", "tolerance"})
-    name = _object_name(table, "name")
-    reference_file = table.get("reference_file", str, None)
-    reference_vswr = table.number("reference_vswr", None, minimum=1.0)
-    tolerance = table.number("tolerance", above=0.0, fix="give the largest accepted deviation of |Γ|, e.g. 0.01")
-    if (reference_file is None) == (reference_vswr is None):
-        table.problems.add(table.key("reference_file"), "say what the check standard should read, in one way",
-                           "give reference_file = \"<touchstone .s1p>\" or reference_vswr = <ratio>, not both")
-        return None
-    if None in (name, tolerance):
-        return None
-    return CheckStandardSpec(name, tolerance, reference_file, reference_vswr)
 
 
 def _object_name(table: TableReader, key: str) -> str | None:
@@ -396,6 +416,25 @@ def _steps(root: TableReader, problems: Problems) -> tuple[StepSpec, ...]:
     return tuple(steps)
 
 
+def _measurement(table: TableReader | None) -> MeasurementSpec:
+    if table is None:
+        return MeasurementSpec()
+    from lineproof.figures import AS_TERMINATED_WAYS, FIGURES
+
+    table.reject_unknown({"judge", "as_terminated"})
+    names = table.get("judge", list, None)
+    judged = None
+    if names is not None:
+        wrong = [n for n in names if n not in FIGURES]
+        if wrong or not names or len(set(names)) != len(names):
+            table.problems.add(table.key("judge"), f"must list figures once each from {', '.join(FIGURES)}, got "
+                               f"{names!r}"[:200], f'e.g. judge = ["{FIGURES[0]}", "{FIGURES[-1]}"]')
+        else:
+            judged = tuple(names)
+    way = table.choice("as_terminated", AS_TERMINATED_WAYS, "computed") or "computed"
+    return MeasurementSpec(judged, way)
+
+
 def _records(table: TableReader | None) -> tuple[str | None, str | None]:
     if table is None:
         return None, None
@@ -422,7 +461,7 @@ def check_sequence_text(text: str, source: str, station_text: tuple[str, str] | 
 
     spec, problems = parse_sequence(text, source, station_text)
     if spec is not None:
-        check_references(spec, problems)
+        spec = check_references(spec, problems)
     if problems:
         raise SequenceProblems(problems.items, source)
     assert spec is not None
@@ -441,3 +480,20 @@ def resolve_path(written: str, spec: SequenceSpec) -> Path | None:
         return candidate
     shipped = resources.files("lineproof.sequences") / written
     return Path(str(shipped)) if shipped.is_file() else None
+
+
+def profile_argument(station_source: str, written: str) -> str:
+    """An instrument profile named in a station: a file beside the station (or sequence)
+    file, else in the current folder, else one shipped in ``sequences/`` (``profiles/...``),
+    else as written (a shipped profile's name)."""
+    from importlib import resources
+
+    if not written.endswith(".toml"):
+        return written
+    local = Path(station_source).parent / written
+    if local.is_file():
+        return str(local)
+    if Path(written).is_file():
+        return written
+    shipped = resources.files("lineproof.sequences") / written
+    return str(shipped) if shipped.is_file() else written

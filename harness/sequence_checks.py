@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from lineproof.errors import InputError
-from lineproof.sequence import SequenceSpec, resolve_path
+from lineproof.sequence import SequenceSpec, profile_argument, resolve_path
 from lineproof.toml_problems import Problems
 
 #: Standards a kit must define for each calibration method (short names of
@@ -24,19 +24,23 @@ METHOD_STANDARDS: dict[str, tuple[str, ...]] = {
     "solt": ("open", "short", "load", "thru"),
     "thru-response": ("thru",),
 }
-#: The methods the runner can carry out in this version.
-RUNNABLE_METHODS = frozenset({"one-port"})
 
 
-def check_references(spec: SequenceSpec, problems: Problems) -> None:
-    """Add every problem of ``spec`` that needs another file or a capability to see."""
+def check_references(spec: SequenceSpec, problems: Problems) -> SequenceSpec:
+    """Add every problem of ``spec`` that needs another file or a capability to see; returns
+    ``spec`` with its calibration method made concrete (see :mod:`lineproof.sequence_methods`)."""
+    from lineproof.sequence_methods import check_two_port, resolve_method
+
     capabilities = _check_analyzer(spec, problems)
+    spec, _ = resolve_method(spec, getattr(capabilities, "paths", None))
     _check_calibration(spec, problems, capabilities)
     _check_check_standard(spec, problems)
     _check_steps(spec, problems)
     _check_devices(spec, problems)
     _check_switch(spec, problems)
     _check_simulated_bench(spec, problems)
+    check_two_port(spec, problems, capabilities)
+    return spec
 
 
 def _station_key(spec: SequenceSpec, key: str) -> tuple[str, str]:
@@ -47,8 +51,7 @@ def _station_key(spec: SequenceSpec, key: str) -> tuple[str, str]:
 
 
 def _profile_path(spec: SequenceSpec, written: str) -> str:
-    local = Path(spec.station.source).parent / written
-    return str(local) if written.endswith(".toml") and local.is_file() else written
+    return profile_argument(spec.station.source, written)
 
 
 def _check_analyzer(spec: SequenceSpec, problems: Problems):  # -> AnalyzerCapabilities | None
@@ -117,9 +120,6 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
             if cal.method == "one-port" and f"S{port}{port}" not in caps.parameters:
                 problems.add("calibration.method", f"the analyzer does not measure S{port}{port} for a one-port "
                              "calibration", "use the port its profile measures")
-            elif cal.method not in RUNNABLE_METHODS:
-                problems.add("calibration.method", f"lineproof run measures batches as-terminated at one port; a "
-                             f"{cal.method} calibration is not part of a run yet", "use method = \"one-port\"")
     path = resolve_path(cal.kit, spec)
     if path is None:
         problems.add("calibration.kit", f"cal kit file {cal.kit!r} not found (looked beside the sequence, "
@@ -133,7 +133,7 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
         problems.absorb(exc, "calibration.kit")
         return
     kinds = {standard.kind for standard in kit.standards.values()}
-    missing = [kind for kind in METHOD_STANDARDS[cal.method] if kind not in kinds]
+    missing = [kind for kind in METHOD_STANDARDS.get(cal.method, ()) if kind not in kinds]
     if missing:
         problems.add("calibration.kit", f"kit {kit.name} has no {', '.join(missing)} standard for a {cal.method} calibration",
                      f"add the standards to {path} or use another kit")
@@ -167,13 +167,14 @@ def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
         "qualify-termination": ("termination", "add a [termination] table with the termination's name"),
         "verify": ("check_standard", "add a [check_standard] table"),
         "measure-batch": ("devices", "add a [devices] table"),
+        "repeatability-study": ("study", 'add a [study] table with kind = "repeatability" and reconnections'),
     }
     seen: set[str] = set()
     for step in spec.steps:
         table, fix = needs.get(step.action, (None, ""))
         if table is not None and getattr(spec, table) is None:
             problems.add(step.key, f"step {step.action!r} needs a [{table}] table", fix)
-        if step.action in ("qualify-termination", "verify", "measure-batch") and "calibrate" not in seen:
+        if step.action in ("qualify-termination", "verify", "measure-batch", "repeatability-study") and "calibrate" not in seen:
             problems.add(step.key, f"step {step.action!r} comes before any calibrate step",
                          "put a do = \"calibrate\" step before it")
         if step.action == "measure-batch":
@@ -185,6 +186,8 @@ def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
             if spec.termination is None:
                 problems.add(step.key, "the batch needs a [termination] for the devices' outputs",
                              "add a [termination] table")
+        if step.action == "repeatability-study":
+            _check_study_step(spec, step, seen, problems)
         seen.add(step.action)
     if spec.reverify.any:
         if spec.check_standard is None:
@@ -192,6 +195,18 @@ def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
         if "measure-batch" not in seen:
             problems.add("reverify", "re-verification happens during a batch, and this sequence measures none",
                          "remove [reverify] or add a measure-batch step")
+
+
+def _check_study_step(spec: SequenceSpec, step, seen: set[str], problems: Problems) -> None:  # noqa: ANN001
+    if "qualify-termination" not in seen or spec.termination is None:
+        problems.add(step.key, "the study's devices would be measured on a termination nobody qualified",
+                     "put a do = \"qualify-termination\" step (and a [termination]) before it")
+    if spec.devices is None or spec.devices.entry != "listed" or len(spec.devices.units) < 2:
+        problems.add(step.key, "a repeatability study measures at least two listed devices",
+                     'list the devices in [devices] (entry = "listed")')
+    if "measure-batch" in seen or spec.has_step("measure-batch"):
+        problems.add(step.key, "a sequence is a batch or a repeatability study, not both",
+                     "keep one of measure-batch and repeatability-study")
 
 
 def _check_devices(spec: SequenceSpec, problems: Problems) -> None:
@@ -209,8 +224,9 @@ def _check_devices(spec: SequenceSpec, problems: Problems) -> None:
                              "give each device a [[devices.unit]] table with serial and slot")
 
 
-def _needed_objects(spec: SequenceSpec) -> list[tuple[str, str]]:
-    """(object name, the key that names it) for everything the run will connect."""
+def _needed_objects(spec: SequenceSpec, port_1_only: bool = False) -> list[tuple[str, str]]:
+    """(object name, the key that names it) for everything the run will connect (with
+    ``port_1_only``, what it connects to the station's port alone: no thru)."""
     found: list[tuple[str, str]] = []
     if spec.termination is not None:
         found.append((spec.termination.name, "termination.name"))
@@ -229,7 +245,7 @@ def _needed_objects(spec: SequenceSpec) -> list[tuple[str, str]]:
         except InputError:
             return found  # reported by _check_calibration
         found += [(name, "calibration.kit") for name, standard in kit.standards.items()
-                  if standard.kind in METHOD_STANDARDS[cal.method]]
+                  if standard.kind in METHOD_STANDARDS.get(cal.method, ()) and not (port_1_only and standard.kind == "thru")]
     return found
 
 
@@ -238,10 +254,11 @@ def _check_switch(spec: SequenceSpec, problems: Problems) -> None:
     if switch is None or spec.station.connected_by != "switch":
         return
     key, source = _station_key(spec, "switch.wiring")
-    for name, used_at in _needed_objects(spec):
+    for name, used_at in _needed_objects(spec, port_1_only=True):
         if name not in switch.wiring:
             problems.add(used_at, f"{name!r} is not wired to the switch", f"add it to [{key}] in {source}")
-    for unit in spec.devices.units if spec.devices else ():
+    two_port = spec.calibration is not None and spec.calibration.method in ("solt", "one-path")
+    for unit in spec.devices.units if spec.devices and not two_port else ():  # two-port routes: sequence_methods
         if unit.slot is not None and unit.slot not in switch.wiring:
             problems.add(unit.key.replace(".serial", ".slot"), f"slot {unit.slot!r} of {unit.serial} is not wired to the switch",
                          f"add it to [{key}] in {source}")

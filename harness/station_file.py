@@ -31,12 +31,28 @@ class AnalyzerSpec:
     baud_rate: int | None = None
 
 
+#: The switch's wiring tables besides ``wiring`` (to the station's analyzer port), for
+#: two-port methods: what each name connects to port 2, between the ports (the thru; a
+#: device slot with its output on port 2), and between the ports turned round (a device's
+#: output on port 1: the reverse direction on a one-path analyzer).
+PORT2_WIRING = "wiring_port2"
+BETWEEN_WIRING = "wiring_between_ports"
+REVERSED_WIRING = "wiring_between_ports_reversed"
+WIRING_TABLES = ("wiring", PORT2_WIRING, BETWEEN_WIRING, REVERSED_WIRING)
+
+
 @dataclass(frozen=True)
 class SwitchSpec:
     profile: str
     resource: str | None
     #: object or slot name -> the channels to close to connect it to the analyzer's port
     wiring: Mapping[str, tuple[str, ...]]
+    #: the other wiring tables by their key (see WIRING_TABLES), each name -> channels
+    routes: Mapping[str, Mapping[str, tuple[str, ...]]] = field(default_factory=dict)
+
+    def table(self, key: str) -> Mapping[str, tuple[str, ...]]:
+        """A wiring table by its key (empty when the station has none)."""
+        return self.wiring if key == "wiring" else self.routes.get(key, MappingProxyType({}))
 
 
 @dataclass(frozen=True)
@@ -86,17 +102,20 @@ def parse_station(table: TableReader, source: str) -> StationSpec | None:
 
 def _uncertainty(table: TableReader | None) -> UncertaintySettings | None:
     """``[station.uncertainty]``: connector repeatability from a repeatability study (RMS |Γ| a
-    reconnection adds at ``repeatability_reference_hz``), trace noise (None: from the data)."""
+    reconnection adds at ``repeatability_reference_hz``), trace noise (None: from the data),
+    the coverage factor (None: from the budget), the mismatch at each end of a switch path."""
     if table is None:
         return None
-    table.reject_unknown({"connection_repeatability", "repeatability_reference_hz", "trace_noise", "coverage_factor"})
+    table.reject_unknown({"connection_repeatability", "repeatability_reference_hz", "trace_noise", "coverage_factor",
+                          "switch_path_mismatch"})
     repeatability = table.number("connection_repeatability", 0.0, minimum=0.0)
     reference = table.number("repeatability_reference_hz", 1e9, above=0.0)
     noise = table.number("trace_noise", None, minimum=0.0)
     coverage = table.number("coverage_factor", None, above=0.0)
-    if None in (repeatability, reference):
+    path = table.number("switch_path_mismatch", 0.0, minimum=0.0, fix="give |Γ| of a switch path's end, e.g. 0.001")
+    if None in (repeatability, reference, path):
         return None
-    return UncertaintySettings(repeatability, reference, noise, coverage)
+    return UncertaintySettings(repeatability, reference, noise, coverage, path)
 
 
 def _analyzer(table: TableReader | None, simulated: bool) -> AnalyzerSpec | None:
@@ -125,25 +144,31 @@ def _analyzer(table: TableReader | None, simulated: bool) -> AnalyzerSpec | None
 def _switch(table: TableReader | None, simulated: bool) -> SwitchSpec | None:
     if table is None:
         return None
-    table.reject_unknown({"profile", "resource", "wiring"})
+    table.reject_unknown({"profile", "resource", *WIRING_TABLES})
     profile = table.get("profile", str, fix='add profile = "generic-scpi-switch"')
     resource = table.get("resource", str, None)
     if resource is None and not simulated:
         table.problems.add(table.key("resource"), "missing key: a real station needs the switch's address",
                            'add resource = "TCPIP::<host>::<port>::SOCKET"')
     wiring_table = table.table("wiring", required=True)
+    wiring = _wiring(table, wiring_table)
+    routes = {key: MappingProxyType(_wiring(table, table.table(key))) for key in WIRING_TABLES[1:] if table.has(key)}
+    if profile is None or wiring_table is None:
+        return None
+    return SwitchSpec(profile, resource, MappingProxyType(wiring), MappingProxyType(routes))
+
+
+def _wiring(table: TableReader, wiring_table: TableReader | None) -> dict[str, tuple[str, ...]]:
     wiring: dict[str, tuple[str, ...]] = {}
     for name, value in (wiring_table.data.items() if wiring_table else ()):
-        key = wiring_table.key(_quoted(name))
+        key = wiring_table.key(_quoted(name))  # type: ignore[union-attr]
         channels = [value] if isinstance(value, str) else value
         if not isinstance(channels, list) or not channels or not all(isinstance(c, str) and CHANNEL.match(c) for c in channels):
             table.problems.add(key, f"must be a channel such as \"1!3\" or a list of them, got {value!r}"[:120],
                                "write the channels to close, e.g. [\"1!1\", \"2!1\"] (module!channel)")
             continue
         wiring[name] = tuple(channels)
-    if profile is None or wiring_table is None:
-        return None
-    return SwitchSpec(profile, resource, MappingProxyType(wiring))
+    return wiring
 
 
 def _quoted(name: str) -> str:

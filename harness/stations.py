@@ -13,7 +13,7 @@ from typing import Any
 from lineproof.errors import InputError, LineproofError
 from lineproof.interfaces import Analyzer, Operator, Switch
 from lineproof.operators import ConsoleOperator, SimulatedOperator, SwitchOperator
-from lineproof.sequence import SequenceSpec
+from lineproof.sequence import SequenceSpec, profile_argument
 from lineproof.station_file import StationSpec
 from lineproof.values import InstrumentIdentity
 
@@ -47,8 +47,7 @@ class OpenStation:
 
 
 def _profile_argument(spec: StationSpec, written: str) -> str:
-    local = Path(spec.source).parent / written
-    return str(local) if written.endswith(".toml") and local.is_file() else written
+    return profile_argument(spec.source, written)
 
 
 def _start_bench(spec: StationSpec) -> Any:
@@ -101,7 +100,7 @@ def _make_operator(sequence: SequenceSpec, station: OpenStation, ask: Callable[[
     if spec.connected_by == "switch":
         assert station.switch is not None and spec.switch is not None
         slots = {u.serial: u.slot for u in sequence.devices.units if u.slot} if sequence.devices else {}
-        return SwitchOperator(station.switch, spec.switch.wiring, slots)
+        return SwitchOperator(station.switch, spec.switch.wiring, slots, spec.switch.routes, spec.analyzer.port)
     control = station.bench.control_address if station.bench is not None else spec.bench_control
     hands = SimulatedOperator(control) if control is not None else None
     if spec.connected_by == "simulated-operator":

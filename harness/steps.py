@@ -9,13 +9,12 @@ from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
 
 import numpy as np
 
-from lineproof import calibration, metrics
+from lineproof import calibration, figures, metrics
 from lineproof.calkit import CalKit
-from lineproof.decision import RULE_TEXT, DecisionRule, judge_upper_limit
+from lineproof.decision import DecisionRule
 from lineproof.deembed import Adapter, remove_from_reflection
 from lineproof.errors import InputError, RunHalted
 from lineproof.interfaces import Analyzer, Operator
@@ -28,21 +27,18 @@ from lineproof.uncertainty import (
 )
 from lineproof.values import (
     BandLimit,
-    BandResult,
     CalibrationRecord,
     DeviceIdentity,
     DeviceResult,
     InstrumentIdentity,
-    MarkerReading,
     SweepPlan,
     TerminationQualification,
-    Verdict,
 )
 
 #: Common practice, no published source: a termination used to terminate a DUT's output
 #: should itself be 1.05:1 or better across the sweep.
 DEFAULT_TERMINATION_LIMIT_VSWR = 1.05
-AS_TERMINATED = "as-terminated input reflection"
+AS_TERMINATED = figures.DESCRIPTIONS[figures.AS_TERMINATED]
 
 
 @dataclass
@@ -152,45 +148,6 @@ def qualify_termination(
     return measure_termination(station, cal, name, limit_vswr).qualification
 
 
-def _markers(frequencies: np.ndarray, magnitude: np.ndarray, band: BandLimit, markers: Mapping[str, float],
-             expanded: np.ndarray | None, insertion_loss: np.ndarray | None) -> tuple[MarkerReading, ...]:
-    readings = []
-    for name, hz in markers.items():
-        if not band.start_hz <= hz <= band.stop_hz:
-            continue
-        i = metrics.marker_index(frequencies, hz)
-        readings.append(MarkerReading(
-            name, float(frequencies[i]), float(magnitude[i]),
-            None if expanded is None else float(expanded[i]),
-            None if insertion_loss is None else float(insertion_loss[i])))
-    return tuple(readings)
-
-
-def _band_result(band: BandLimit, frequencies: np.ndarray, magnitude: np.ndarray, rule: DecisionRule,
-                 expanded: np.ndarray | None, insertion_loss: np.ndarray | None,
-                 insertion_loss_u: np.ndarray | None, markers: Mapping[str, float]) -> BandResult:
-    figures = metrics.band_figures(frequencies, magnitude, band)
-    in_band_u = None if expanded is None else expanded[figures.indices]
-    verdicts = [judge_upper_limit(magnitude[figures.indices], band.max_reflection, in_band_u, rule)]
-    worst_loss = worst_loss_hz = loss_u = None
-    if band.max_insertion_loss_db is not None:
-        if insertion_loss is None:
-            raise InputError(f"band {band.name} has an insertion-loss limit, but this measurement has no "
-                             "transmission data", key=f"bands.{band.name}.max_insertion_loss_db",
-                             fix="measure with a two-port calibration, or drop the insertion-loss limit")
-        band_u = None if insertion_loss_u is None else insertion_loss_u[figures.indices]
-        verdicts.append(judge_upper_limit(insertion_loss[figures.indices], band.max_insertion_loss_db, band_u, rule))
-        worst_loss, worst_loss_hz = metrics.worst_in_band(frequencies, insertion_loss, band)
-        loss_u = None if band_u is None else float(np.max(band_u))
-    upper = None if in_band_u is None else float(np.max(magnitude[figures.indices] + in_band_u))
-    return BandResult(
-        band, figures.worst_reflection, figures.worst_frequency_hz, figures.mean_reflection,
-        None if in_band_u is None else float(np.max(in_band_u)), Verdict.combine(verdicts), RULE_TEXT[rule],
-        upper, worst_loss, worst_loss_hz, loss_u,
-        _markers(frequencies, magnitude, band, markers, expanded, insertion_loss),
-    )
-
-
 def judge(
     device: DeviceIdentity,
     frequencies: np.ndarray,
@@ -207,15 +164,21 @@ def judge(
     extra: Mapping[str, str] | None = None,
 ) -> DeviceResult:
     """Per-band worst and mean figures, marker readings and the verdict of each band under
-    ``rule`` (the rule's text goes into every band result)."""
-    magnitude = np.abs(reflection)
-    results = tuple(
-        _band_result(band, frequencies, magnitude, rule, expanded_uncertainty, insertion_loss_db,
-                     insertion_loss_uncertainty_db, markers or {})
-        for band in bands
-    )
-    return DeviceResult(device, results, datetime.now(UTC).isoformat(timespec="seconds"), dict(extra or {}),
-                        termination, figure)
+    ``rule`` (the rule's text goes into every band result): the reflection, described by
+    ``figure``, and insertion loss where a band limits it (see :mod:`lineproof.figures` for
+    judging a chosen set of figures)."""
+    name = next((n for n, text in figures.DESCRIPTIONS.items() if text == figure), figures.AS_TERMINATED)
+    traces = [figures.FigureTrace(name, np.abs(reflection), expanded_uncertainty, reflection)]
+    if insertion_loss_db is not None:
+        traces.append(figures.FigureTrace(figures.INSERTION_LOSS, insertion_loss_db, insertion_loss_uncertainty_db))
+    else:
+        for band in bands:
+            if band.max_insertion_loss_db is not None:
+                raise InputError(f"band {band.name} has an insertion-loss limit, but this measurement has no "
+                                 "transmission data", key=f"bands.{band.name}.max_insertion_loss_db",
+                                 fix="measure with a two-port calibration, or drop the insertion-loss limit")
+    return figures.judge_figures(device, frequencies, traces, bands, rule, {name, figures.INSERTION_LOSS},
+                                 markers=markers, termination=termination, extra=extra, description=figure)
 
 
 def termination_reach(termination: str | QualifiedTermination, frequencies: np.ndarray) -> np.ndarray | float:

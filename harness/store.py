@@ -13,8 +13,9 @@ from __future__ import annotations
 import io
 import sqlite3
 import threading
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -29,6 +30,18 @@ from lineproof.values import (
     TerminationQualification,
     VerificationResult,
 )
+
+
+@dataclass(frozen=True)
+class SuspectWindow:
+    """The devices a failed check makes suspect: those of the run measured with
+    ``calibration_id`` at positions after the last passing check, up to the failed one."""
+
+    calibration_id: str
+    after_position: int
+    up_to_position: int
+    reason: str
+
 
 #: Where saved calibrations live, beside the database.
 CALIBRATIONS_FOLDER = "calibrations"
@@ -223,21 +236,64 @@ class ResultStore:
                       (q.name, q.worst_vswr, q.limit_vswr, int(q.passed), run_id))
             return int(cursor.lastrowid)
 
-    def record_verification(self, run_id: str, result: VerificationResult, station: str, analyzer: str) -> int:
+    def record_verification(self, run_id: str, result: VerificationResult, station: str, analyzer: str,
+                            criterion: str = "", history: Sequence[Mapping[str, object]] = (),
+                            suspect: SuspectWindow | None = None) -> int:
+        """A check-standard verification with its bands, the figures it adds to the check
+        standard's history (``history``: columns of ``check_history``) and, when it failed,
+        the devices it makes suspect -- all in one transaction."""
+        signals = None if result.control_signals is None else "; ".join(result.control_signals)
+        in_control = None if result.control_signals is None else int(not result.control_signals)
         with self._transaction() as db:
             cursor = self._run(db, "INSERT INTO verifications (run_id, calibration_id, check_standard, measured_utc,"
-                               " devices_before, worst_deviation, worst_frequency_hz, tolerance, passed, station, analyzer)"
-                               " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                               " devices_before, worst_deviation, worst_frequency_hz, tolerance, passed, station, analyzer,"
+                               " criterion, en, repeats, temperature_c, in_control, control_signals)"
+                               " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                                (run_id, result.calibration_id, result.check_standard, result.measured_utc,
                                 result.devices_before, result.sweep_worst_deviation, result.sweep_worst_frequency_hz,
-                                result.tolerance, int(result.passed), station, analyzer))
+                                result.tolerance, int(result.passed), station, analyzer, criterion, result.en,
+                                result.repeats, result.temperature_c, in_control, signals))
             verification_id = int(cursor.lastrowid)
             for band in result.bands:
-                self._run(db, "INSERT INTO verification_bands VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                self._run(db, "INSERT INTO verification_bands (verification_id, band, start_hz, stop_hz,"
+                          " measured_reflection, reference_reflection, worst_deviation, worst_frequency_hz, tolerance,"
+                          " passed, en, measured_uncertainty, reference_uncertainty)"
+                          " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                           (verification_id, band.name, band.start_hz, band.stop_hz, band.measured_reflection,
                            band.reference_reflection, band.worst_deviation, band.worst_frequency_hz, band.tolerance,
-                           int(band.passed)))
+                           int(band.passed), band.en, band.measured_uncertainty, band.reference_uncertainty))
+            for entry in history:
+                row = {**entry, "verification_id": verification_id, "run_id": run_id}
+                columns = ", ".join(row)
+                self._run(db, f"INSERT INTO check_history ({columns}) VALUES ({', '.join('?' for _ in row)})",
+                          tuple(row.values()))
+            if suspect is not None:
+                self._run(db, "UPDATE devices SET suspect = 1, suspect_reason = ?, suspect_verification_id = ?"
+                          " WHERE run_id = ? AND calibration_id = ? AND position > ? AND position <= ? AND suspect = 0",
+                          (suspect.reason, verification_id, run_id, suspect.calibration_id, suspect.after_position,
+                           suspect.up_to_position))
             return verification_id
+
+    def check_history(self, station: str, analyzer: str, check_standard: str, figure: str) -> list[dict[str, Any]]:
+        """One check standard's history of one figure on one station and analyzer, oldest first."""
+        # A check in the baseline passed exactly when it agreed with its reference (the chart
+        # does not judge it): "check_passed" is what decides whether it may set the limits.
+        return self.rows("SELECT h.*, v.passed AS check_passed"
+                         " FROM check_history h JOIN verifications v ON v.verification_id = h.verification_id"
+                         " WHERE h.station = ? AND h.analyzer = ? AND h.check_standard = ? AND h.figure = ?"
+                         " ORDER BY h.history_id", (station, analyzer, check_standard, figure))
+
+    def record_study(self, run_id: str, readings: Sequence[Mapping[str, object]],
+                     results: Sequence[Mapping[str, object]]) -> None:
+        """A repeatability study's readings and its per-band results, in one transaction (in
+        place of any the run recorded before: a resumed study is measured again whole)."""
+        with self._transaction() as db:
+            for table in ("study_readings", "study_results"):
+                self._run(db, f"DELETE FROM {table} WHERE run_id = ?", (run_id,))
+            for table, rows in (("study_readings", readings), ("study_results", results)):
+                for row in rows:
+                    self._run(db, f"INSERT INTO {table} ({', '.join(row)}) VALUES ({', '.join('?' for _ in row)})",
+                              tuple(row.values()))
 
     # -- devices ----------------------------------------------------------------------------------
 
@@ -245,9 +301,15 @@ class ResultStore:
                       calibration_id: str | None = None, qualification_id: int | None = None,
                       verification_id: int | None = None, file_sha256: str | None = None,
                       uncertainty: np.ndarray | None = None,
-                      metrics: Mapping[tuple[str, str], tuple[float, str]] | None = None) -> int:
-        """One row per device, one per band and one per extra metric, in one transaction."""
-        packed = None if uncertainty is None else _pack_arrays({"expanded_uncertainty": uncertainty})
+                      metrics: Mapping[tuple[str, str], tuple[float, str]] | None = None,
+                      arrays: Mapping[str, np.ndarray] | None = None) -> int:
+        """One row per device, one per band and one per extra metric, in one transaction.
+        ``uncertainty`` (the headline figure's, per point) and ``arrays`` (more per-point arrays)
+        are kept in the row's ``uncertainty`` column (numpy .npz bytes)."""
+        kept = dict(arrays or {})
+        if uncertainty is not None:
+            kept["expanded_uncertainty"] = uncertainty
+        packed = _pack_arrays(kept) if kept else None
         with self._transaction() as db:
             cursor = self._run(db, "INSERT INTO devices (run_id, serial, model, measured_utc, verdict, touchstone, position,"
                                " calibration_id, qualification_id, verification_id, file_sha256, uncertainty)"

@@ -6,7 +6,7 @@ migration in order, so the upgrade path is exercised by every new database.  Sta
 :class:`Dialect` renders for SQLite (the default, an embedded file) or for PostgreSQL (a URL,
 for a line of several stations; its driver is not part of this version).
 
-Tables (schema 2)::
+Tables (schema 3)::
 
     lineproof_meta        key/value: application, schema_version
     runs                  one per run: sequence and its hash, station, operator, analyzer, status
@@ -18,6 +18,12 @@ Tables (schema 2)::
     devices               one per measured device of a run: verdict, file, calibration, last check
     band_results          per device and band: worst/mean VSWR, return loss, uncertainty, verdict
     band_metrics          per device, band and named metric: further figures (unit given)
+    check_history         one row per verification and figure (a band's mean |Γ| of the check
+                          standard): station, analyzer, check standard, value, spread, En, what
+                          its control chart said -- the history the charts are drawn from
+    study_readings        each reading of a repeatability study: device, operator, repeat, band
+    study_results         per band of a study: repeatability, reproducibility, GR&R, part
+                          variation (standard deviations) and their shares of the tolerance
 """
 
 from __future__ import annotations
@@ -25,7 +31,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 APPLICATION = "lineproof"
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 
 
 @dataclass(frozen=True)
@@ -194,5 +200,74 @@ MIGRATION_2 = (
     "CREATE INDEX verifications_by_run ON verifications (run_id)",
 )
 
+#: Schema 2 -> 3: verification over time.  Verifications gain their criterion (En or a fixed
+#: tolerance), En, repeats, temperature and what the control chart said; the history of each
+#: check standard's figures; suspect results (the column kept in schema 2 gains its reason and
+#: the failed check that made it); runs gain their kind and, for a run that measured suspect
+#: results again, the run it remeasured; repeatability studies.  Only additions.
+MIGRATION_3 = (
+    "ALTER TABLE verifications ADD COLUMN criterion TEXT",
+    "ALTER TABLE verifications ADD COLUMN en {real}",
+    "ALTER TABLE verifications ADD COLUMN repeats INTEGER",
+    "ALTER TABLE verifications ADD COLUMN temperature_c {real}",
+    "ALTER TABLE verifications ADD COLUMN in_control INTEGER",
+    "ALTER TABLE verifications ADD COLUMN control_signals TEXT",
+    "ALTER TABLE verification_bands ADD COLUMN en {real}",
+    "ALTER TABLE verification_bands ADD COLUMN measured_uncertainty {real}",
+    "ALTER TABLE verification_bands ADD COLUMN reference_uncertainty {real}",
+    """CREATE TABLE check_history (
+        history_id {id},
+        verification_id INTEGER NOT NULL REFERENCES verifications(verification_id),
+        run_id TEXT NOT NULL REFERENCES runs(run_id),
+        calibration_id TEXT,
+        station TEXT NOT NULL,
+        analyzer TEXT NOT NULL,
+        check_standard TEXT NOT NULL,
+        figure TEXT NOT NULL,
+        measured_utc TEXT NOT NULL,
+        value {real} NOT NULL,
+        std_dev {real},
+        repeats INTEGER NOT NULL,
+        reference {real},
+        en {real},
+        temperature_c {real},
+        signals TEXT
+    )""",
+    "CREATE INDEX check_history_by_key ON check_history (station, analyzer, check_standard, figure, history_id)",
+    "ALTER TABLE devices ADD COLUMN suspect_reason TEXT",
+    "ALTER TABLE devices ADD COLUMN suspect_verification_id INTEGER",
+    "ALTER TABLE runs ADD COLUMN kind TEXT",
+    "ALTER TABLE runs ADD COLUMN remeasure_of TEXT",
+    """CREATE TABLE study_readings (
+        reading_id {id},
+        run_id TEXT NOT NULL REFERENCES runs(run_id),
+        serial TEXT NOT NULL,
+        operator TEXT NOT NULL,
+        repeat INTEGER NOT NULL,
+        band TEXT NOT NULL,
+        figure TEXT NOT NULL,
+        value {real} NOT NULL,
+        measured_utc TEXT NOT NULL
+    )""",
+    """CREATE TABLE study_results (
+        run_id TEXT NOT NULL REFERENCES runs(run_id),
+        band TEXT NOT NULL,
+        figure TEXT NOT NULL,
+        devices INTEGER NOT NULL,
+        operators INTEGER NOT NULL,
+        reconnections INTEGER NOT NULL,
+        tolerance {real} NOT NULL,
+        repeatability_sd {real} NOT NULL,
+        reproducibility_sd {real} NOT NULL,
+        gauge_sd {real} NOT NULL,
+        part_sd {real} NOT NULL,
+        repeatability_share {real} NOT NULL,
+        reproducibility_share {real} NOT NULL,
+        gauge_share {real} NOT NULL,
+        method TEXT NOT NULL,
+        PRIMARY KEY (run_id, band)
+    )""",
+)
+
 #: schema version -> the statements that bring the previous version to it.
-MIGRATIONS: dict[int, tuple[str, ...]] = {2: MIGRATION_2}
+MIGRATIONS: dict[int, tuple[str, ...]] = {2: MIGRATION_2, 3: MIGRATION_3}

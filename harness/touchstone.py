@@ -106,6 +106,19 @@ def format_one_port(frequencies_hz: np.ndarray, reflection: np.ndarray, z0: floa
     return format_header(metadata) + f"# Hz S RI R {z0:g}\n" + body
 
 
+def format_two_port(frequencies_hz: np.ndarray, s: np.ndarray, z0: float,
+                    metadata: Iterable[tuple[str, object]]) -> str:
+    """Touchstone 1.1 two-port text: header, option line, one row per frequency with
+    ``f  S11  S21  S12  S22`` (real and imaginary parts) -- the order Touchstone 1.1 gives
+    two-port data in (its N21 before N12)."""
+    columns = [frequencies_hz]
+    for i, j in ((0, 0), (1, 0), (0, 1), (1, 1)):
+        columns += [np.real(s[:, i, j]), np.imag(s[:, i, j])]
+    rows = np.column_stack(columns)
+    body = "".join(f"{row[0]:.10g} " + " ".join(f"{x:.12g}" for x in row[1:]) + "\n" for row in rows)
+    return format_header(metadata) + f"# Hz S RI R {z0:g}\n" + body
+
+
 def make_readable(descriptor: int) -> None:
     """Give a file made by ``tempfile.mkstemp`` (owner-only) the usual permissions (umask)."""
     if hasattr(os, "fchmod"):

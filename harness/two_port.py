@@ -138,32 +138,74 @@ def _direction(calibration: CalibrationRecord, direction: str) -> tuple[np.ndarr
     return tuple(calibration.terms[f"{direction}.{t}"] for t in DIRECTION_TERMS)
 
 
-def correct_two_port(calibration: CalibrationRecord, frequencies_hz: np.ndarray, raw: np.ndarray) -> np.ndarray:
-    """Corrected S-parameters (N, 2, 2) from raw ones with the 12-term formulas::
+Traces = tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]
 
-        N11 = (S11m - EDF)/ERF   N21 = (S21m - EXF)/ETF   N12 = (S12m - EXR)/ETR   N22 = (S22m - EDR)/ERR
-        D   = (1 + N11 ESF)(1 + N22 ESR) - N21 N12 ELF ELR
-        S11 = (N11 (1 + N22 ESR) - ELF N21 N12) / D      S21 = N21 (1 + N22 (ESR - ELF)) / D
-        S22 = (N22 (1 + N11 ESF) - ELR N21 N12) / D      S12 = N12 (1 + N11 (ESF - ELR)) / D
-    """
-    require_grid(calibration, frequencies_hz)
-    edf, esf, erf, elf, etf, exf = _direction(calibration, "forward")
-    edr, esr, err, elr, etr, exr = _direction(calibration, "reverse")
-    n11 = (raw[:, 0, 0] - edf) / erf
-    n21 = (raw[:, 1, 0] - exf) / etf
-    n12 = (raw[:, 0, 1] - exr) / etr
-    n22 = (raw[:, 1, 1] - edr) / err
-    product = n21 * n12
-    forward = 1 + n11 * esf   # 1 + N11 ESF
-    reverse = 1 + n22 * esr   # 1 + N22 ESR
-    through_load = product * elf
-    inverse = 1 / (forward * reverse - through_load * elr)
-    return s_matrix(
-        (n11 * reverse - through_load) * inverse,
-        n21 * (reverse - n22 * elf) * inverse,
-        n12 * (forward - n11 * elr) * inverse,
-        (n22 * forward - elr * product) * inverse,
-    )
+
+class TwelveTermCorrection:
+    """A two-port calibration made ready to apply to many sweeps: its twelve terms, with the
+    four tracking terms inverted once (a complex multiplication costs a fifth of a complex
+    division).  Build one per calibration; :meth:`apply` corrects the traces of a sweep."""
+
+    def __init__(self, calibration: CalibrationRecord) -> None:
+        self.calibration = calibration
+        edf, esf, erf, elf, etf, exf = _direction(calibration, "forward")
+        edr, esr, err, elr, etr, exr = _direction(calibration, "reverse")
+        self._forward = (edf, esf, 1 / erf, elf, 1 / etf, exf)
+        self._reverse = (edr, esr, 1 / err, elr, 1 / etr, exr)
+
+    def apply(self, frequencies_hz: np.ndarray, s11m: np.ndarray, s21m: np.ndarray, s12m: np.ndarray,
+              s22m: np.ndarray) -> Traces:
+        """Corrected (S11, S21, S12, S22) from the raw traces, with the 12-term formulas::
+
+            N11 = (S11m - EDF)/ERF   N21 = (S21m - EXF)/ETF   N12 = (S12m - EXR)/ETR   N22 = (S22m - EDR)/ERR
+            D   = (1 + N11 ESF)(1 + N22 ESR) - N21 N12 ELF ELR
+            S11 = (N11 (1 + N22 ESR) - ELF N21 N12) / D      S21 = N21 (1 + N22 (ESR - ELF)) / D
+            S22 = (N22 (1 + N11 ESF) - ELR N21 N12) / D      S12 = N12 (1 + N11 (ESF - ELR)) / D
+        """
+        require_grid(self.calibration, frequencies_hz)
+        edf, esf, inverse_erf, elf, inverse_etf, exf = self._forward
+        edr, esr, inverse_err, elr, inverse_etr, exr = self._reverse
+        # In place where a temporary is free again: fewer passes through memory (0.2 ms
+        # instead of 0.3 ms at 10,001 points; tests/bench/bench_calibration.py).
+        n11 = s11m - edf
+        n11 *= inverse_erf
+        n21 = s21m - exf
+        n21 *= inverse_etf
+        n12 = s12m - exr
+        n12 *= inverse_etr
+        n22 = s22m - edr
+        n22 *= inverse_err
+        product = n21 * n12
+        forward = n11 * esf   # 1 + N11 ESF
+        forward += 1
+        reverse = n22 * esr   # 1 + N22 ESR
+        reverse += 1
+        through_load = product * elf
+        inverse = forward * reverse
+        inverse -= through_load * elr
+        np.reciprocal(inverse, out=inverse)
+        s11 = n11 * reverse
+        s11 -= through_load
+        s11 *= inverse
+        s21 = np.subtract(reverse, n22 * elf)
+        s21 *= n21
+        s21 *= inverse
+        s12 = np.subtract(forward, n11 * elr)
+        s12 *= n12
+        s12 *= inverse
+        s22 = n22 * forward
+        product *= elr
+        s22 -= product
+        s22 *= inverse
+        return s11, s21, s12, s22
+
+
+def correct_two_port(calibration: CalibrationRecord, frequencies_hz: np.ndarray, raw: np.ndarray) -> np.ndarray:
+    """Corrected S-parameters (N, 2, 2) from raw ones (N, 2, 2); see
+    :meth:`TwelveTermCorrection.apply` for the formulas (and for many sweeps with one calibration)."""
+    corrected = TwelveTermCorrection(calibration).apply(frequencies_hz, raw[:, 0, 0], raw[:, 1, 0], raw[:, 0, 1],
+                                                         raw[:, 1, 1])
+    return s_matrix(*corrected)
 
 
 def embed_two_port(terms: Mapping[str, np.ndarray], s: np.ndarray) -> np.ndarray:

@@ -9,25 +9,20 @@ sweeps S11 and S21; the operator then turns the device round for its reverse dir
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Collection, Mapping, Sequence
 
 import numpy as np
 
-from lineproof import calibration, metrics, two_port
+from lineproof import calibration, figures, metrics, two_port
 from lineproof.calkit import CalKit
 from lineproof.decision import DecisionRule
 from lineproof.deembed import Adapter, remove_from_two_port
 from lineproof.errors import CalibrationError
-from lineproof.steps import QualifiedTermination, Station, judge
-from lineproof.uncertainty import (
-    reflection_uncertainty,
-    residual_model,
-    transmission_model,
-    transmission_uncertainty_db,
-)
+from lineproof.steps import QualifiedTermination, Station, device_uncertainty
+from lineproof.uncertainty import residual_model, transmission_model
 from lineproof.values import BandLimit, CalibrationRecord, DeviceIdentity, DeviceResult
 
-IDEAL_TERMINATION = "S11 (device with an ideal termination, from full S-parameters)"
+IDEAL_TERMINATION = figures.DESCRIPTIONS[figures.INPUT_MATCH]
 REFLECTS = ("open", "short", "load")
 
 
@@ -99,28 +94,84 @@ def calibrate_two_port(station: Station, kit: CalKit, method: str, isolation: bo
                                    kit.sha256, kit.reference_impedance_ohm, residuals)
 
 
+#: The raw traces of a device swept for a two-port method (see :func:`sweep_device`).
+RawDevice = dict[str, np.ndarray]
+#: Raw trace names of a device turned round (one-path) and of its output on the termination.
+REVERSED = "reversed "
+TERMINATED = "terminated S11"
+
+
+def connect_between_ports(station: Station, device: DeviceIdentity) -> None:
+    station.operator.connect(1, device.serial, "port:2", f"Connect {device.model} s/n {device.serial} between "
+                             "port 1 (its input) and port 2 (its output)")
+
+
+def sweep_device(station: Station, method: str, device: DeviceIdentity, *, connected: bool = False,
+                 terminated_on: str | None = None) -> tuple[np.ndarray, RawDevice]:
+    """The raw traces of a device for a two-port ``method`` (a long name of
+    :mod:`lineproof.calibration`): connected between the ports (unless ``connected`` says it
+    is already), all four parameters in one sweep on a full analyzer; on a forward-only one,
+    S11 and S21, then -- turned round -- the same again.  With ``terminated_on``, the device's
+    output is then put on that termination and its input reflection swept too (the
+    as-terminated figure measured directly)."""
+    if method not in (calibration.FULL_TWO_PORT_METHOD, calibration.ONE_PATH_METHOD):
+        raise CalibrationError(f"a {method} calibration cannot measure full S-parameters; use SOLT or one-path")
+    if not connected:
+        connect_between_ports(station, device)
+    if method == calibration.FULL_TWO_PORT_METHOD:
+        f, raw = _sweep(station, ["S11", "S21", "S12", "S22"])
+    else:
+        f, raw = _sweep(station, ["S11", "S21"])
+        station.operator.connect(1, device.serial, "port:2", f"Turn {device.model} s/n {device.serial} round: its "
+                                 "output on port 1, its input on port 2", reversed=True)
+        f2, backward = _sweep(station, ["S11", "S21"])
+        _same(f, f2, "the two directions of a one-path measurement")
+        raw.update({REVERSED + name: trace for name, trace in backward.items()})
+    if terminated_on is not None:
+        station.operator.connect(1, device.serial, terminated_on, f"Connect {device.model} s/n {device.serial} to "
+                                 f"port 1, its output on {terminated_on}")
+        f3, terminated = _sweep(station, ["S11"])
+        _same(f, f3, "the as-terminated sweep and the two-port sweep")
+        raw[TERMINATED] = terminated["S11"]
+    return f, raw
+
+
+def _same(a: np.ndarray, b: np.ndarray, what: str) -> None:
+    if not calibration.same_grid(a, b):
+        raise CalibrationError(f"{what} were swept on different grids; keep one sweep plan")
+
+
+def correct_device(correction: two_port.TwelveTermCorrection, frequencies: np.ndarray, raw: RawDevice) -> two_port.Traces:
+    """Corrected (S11, S21, S12, S22) of :func:`sweep_device`'s traces: a device turned round
+    gives the reverse direction (its S11m and S21m stand for S22m and S12m)."""
+    if "S22" in raw:
+        return correction.apply(frequencies, raw["S11"], raw["S21"], raw["S12"], raw["S22"])
+    return correction.apply(frequencies, raw["S11"], raw["S21"], raw[REVERSED + "S21"], raw[REVERSED + "S11"])
+
+
 def measure_s(station: Station, cal: CalibrationRecord, device: DeviceIdentity) -> tuple[np.ndarray, np.ndarray]:
     """The device's corrected S-parameters (N, 2, 2) between port 1 (its input) and port 2."""
-    if cal.method == calibration.FULL_TWO_PORT_METHOD:
-        station.operator.connect(1, device.serial, "port:2",
-                                 f"Connect {device.model} s/n {device.serial} between port 1 (input) and port 2")
-        f, raw = _sweep(station, ["S11", "S21", "S12", "S22"])
-        data = two_port.s_matrix(raw["S11"], raw["S21"], raw["S12"], raw["S22"])
-    elif cal.method == calibration.ONE_PATH_METHOD:
-        station.operator.connect(1, device.serial, "port:2",
-                                 f"Connect {device.model} s/n {device.serial} between port 1 (input) and port 2")
-        f, forward = _sweep(station, ["S11", "S21"])
-        station.operator.connect(1, device.serial, "port:2",
-                                 f"Turn {device.model} s/n {device.serial} round: its output on port 1, input on port 2",
-                                 reversed=True)
-        f2, backward = _sweep(station, ["S11", "S21"])
-        if not calibration.same_grid(f, f2):
-            raise CalibrationError("the two directions of a one-path measurement were swept on different grids")
-        data = two_port.compose_one_path((forward["S11"], forward["S21"]), (backward["S11"], backward["S21"]))
-    else:
-        raise CalibrationError(f"calibration {cal.calibration_id} is {cal.method}; measuring full S-parameters "
-                               "needs a SOLT or one-path calibration")
-    return f, two_port.correct_two_port(cal, f, data)
+    f, raw = sweep_device(station, cal.method, device)
+    return f, two_port.s_matrix(*correct_device(two_port.TwelveTermCorrection(cal), f, raw))
+
+
+def device_figures(station: Station, cal: CalibrationRecord, frequencies: np.ndarray, s: two_port.Traces,
+                   termination: QualifiedTermination | None, terminated_raw: np.ndarray | None = None,
+                   ) -> list[figures.FigureTrace]:
+    """The figures of corrected traces ``s``: input and output match, insertion loss, and the
+    as-terminated figure -- measured (``terminated_raw``, the device's output on the
+    termination) or computed from the S-parameters and the termination's measured reflection."""
+    known = None
+    if termination is not None and terminated_raw is None:
+        if not calibration.same_grid(termination.frequencies_hz, frequencies):
+            raise CalibrationError(f"termination {termination.name} was qualified on another sweep")
+        known = (termination.reflection, termination.standard_uncertainty)
+    found = figures.two_port_figures(cal, frequencies, s, station.uncertainty, known)
+    if terminated_raw is not None:
+        corrected = calibration.correct_one_port(cal, frequencies, terminated_raw)
+        spread = device_uncertainty(station, cal, frequencies, corrected, termination)
+        found.insert(0, figures.FigureTrace(figures.AS_TERMINATED, spread.magnitude, spread.expanded, corrected))
+    return found
 
 
 def measure_two_port_device(
@@ -132,28 +183,25 @@ def measure_two_port_device(
     termination: QualifiedTermination | None = None,
     markers: Mapping[str, float] | None = None,
     adapters: tuple[Adapter | None, Adapter | None] = (None, None),
+    judged: Collection[str] = (figures.INPUT_MATCH, figures.INSERTION_LOSS),
 ) -> tuple[DeviceResult, np.ndarray, np.ndarray]:
-    """Measure full S-parameters; judge S11 with an ideal termination (and insertion loss
-    where a band limits it), and record output match and the as-terminated figure beside it.
+    """Measure full S-parameters; judge the ``judged`` figures (by default S11 with an ideal
+    termination, and insertion loss where a band limits it) and report the others beside
+    them (output match; the as-terminated figure on the qualified termination, computed).
     ``adapters`` (input side, output side -- the latter with its port 1 at analyzer port 2)
     are removed from the data; the uncertainty is carried through unchanged (first order,
     for low-loss well-matched adapters)."""
     f, s = measure_s(station, cal, device)
     if any(adapter is not None for adapter in adapters):
         s = remove_from_two_port(f, s, *adapters)
-    product = s[:, 1, 0] * s[:, 0, 1]
-    spread = reflection_uncertainty(cal.residuals, s[:, 0, 0], f, station.uncertainty,
-                                    interpolation_error=cal.interpolation_error,
-                                    transmission=(product, cal.terms["forward.load_match"]))
-    loss = metrics.insertion_loss_db(s[:, 1, 0])
-    loss_u = transmission_uncertainty_db(cal.residuals, s, station.uncertainty)
+    traces = (s[:, 0, 0], s[:, 1, 0], s[:, 0, 1], s[:, 1, 1])
+    found = figures.headline_first(device_figures(station, cal, f, traces, termination), judged)
     extra = side_figures(f, s, bands, termination)
     extra.update({f"reference_plane.{side}_adapter_removed": adapter.name
                   for side, adapter in zip(("input", "output"), adapters, strict=True) if adapter is not None})
-    result = judge(device, f, s[:, 0, 0], bands, rule, spread.expanded, insertion_loss_db=loss,
-                   insertion_loss_uncertainty_db=loss_u, markers=markers,
-                   termination=None if termination is None else termination.qualification,
-                   figure=IDEAL_TERMINATION, extra=extra)
+    result = figures.judge_figures(device, f, found, bands, rule, judged, markers=markers,
+                                   termination=None if termination is None else termination.qualification,
+                                   extra=extra)
     return result, f, s
 
 

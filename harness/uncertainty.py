@@ -63,9 +63,21 @@ class UncertaintySettings:
     #: None: k = 2, or the factor of a dominant contribution of unknown phase (see
     #: :func:`coverage_factor`); a number fixes k.
     coverage_factor: float | None = None
+    #: |Γ| of the small fixed mismatch at each end of each switch path (the switch's data
+    #: sheet): standards, terminations and devices reached through different paths differ by it.
+    switch_path_mismatch: float = 0.0
 
     def repeatability(self, frequencies_hz: np.ndarray) -> np.ndarray:
         return self.connection_repeatability * np.asarray(frequencies_hz, dtype=float) / self.repeatability_reference_hz
+
+    def connection_variance(self, frequencies_hz: np.ndarray) -> np.ndarray:
+        """E|c|² of the reflection a connection adds: connector repeatability and, through a
+        switch, the path's own fixed mismatch at each of its two ends (each path differs)."""
+        return self.repeatability(frequencies_hz) ** 2 + 2 * self.switch_path_mismatch**2
+
+    @property
+    def connections(self) -> bool:
+        return bool(self.connection_repeatability or self.switch_path_mismatch)
 
 
 @dataclass(frozen=True, eq=False)
@@ -131,11 +143,11 @@ def standard_inputs(kit: CalKit, kind: str, frequencies_hz: np.ndarray, settings
             moved = (c[0] + _INDUCTANCE_STEP_H, c[1], c[2], c[3])
             step = _derivative(standard, f, z0, coefficients=moved) / _INDUCTANCE_STEP_H
             inputs.append(InputQuantity("short inductance", step, statement.short_inductance_uncertainty_h**2, True))
-    if settings.connection_repeatability:
+    if settings.connections:
         # A connector interface as a small impedance step: S11 = c, S22 = -c, S21 S12 = 1 - c²
         # (the scattering matrix of a step between two lines; D. M. Pozar, Microwave
         # Engineering, from memory), which moves a reflection Γ by c (1 - Γ²) to first order.
-        inputs.append(InputQuantity(f"{kind} connection", 1 - model**2, settings.repeatability(f) ** 2, False))
+        inputs.append(InputQuantity(f"{kind} connection", 1 - model**2, settings.connection_variance(f), False))
     if settings.trace_noise:
         inputs.append(InputQuantity(f"{kind} noise", np.ones(f.shape, complex), 2 * settings.trace_noise**2, False))
     return inputs
@@ -184,9 +196,24 @@ def transmission_model(kit: CalKit, frequencies_hz: np.ndarray, settings: Uncert
     statement = kit.uncertainty
     phase = (2 * np.pi * f * statement.thru_delay_uncertainty_s) ** 2
     magnitude = np.full(f.shape, statement.thru_loss_uncertainty**2)
-    connection = 2 * settings.repeatability(f) ** 2
+    connection = 2 * settings.connection_variance(f)
+    thru = kit.thru(f)
     return {"transmission.magnitude_variance": (magnitude + connection / 2).astype(complex),
-            "transmission.phase_variance": (phase + connection / 2).astype(complex)}
+            "transmission.phase_variance": (phase + connection / 2).astype(complex),
+            # the thru's model, which carries the residuals into S11 and S22 (see ThroughPath)
+            "thru.s11": thru[:, 0, 0].astype(complex), "thru.s21s12": (thru[:, 1, 0] * thru[:, 0, 1]).astype(complex),
+            "thru.s22": thru[:, 1, 1].astype(complex)}
+
+
+def through_path(residuals: Mapping[str, np.ndarray], product: np.ndarray, far_reflection: np.ndarray,
+                 load_match: np.ndarray, seen_from_port2: bool = False) -> ThroughPath:
+    """The :class:`ThroughPath` of a reading, with the calibration's thru model when it kept
+    one (a flush thru otherwise); ``seen_from_port2``: for S22, the thru turned round."""
+    if "thru.s21s12" not in residuals:
+        return ThroughPath(product, far_reflection, load_match)
+    near, far = ("thru.s22", "thru.s11") if seen_from_port2 else ("thru.s11", "thru.s22")
+    return ThroughPath(product, far_reflection, load_match,
+                       (residuals[near], residuals["thru.s21s12"], residuals[far]))
 
 
 def add_specified_residuals(residuals: Mapping[str, np.ndarray], prefix: str, directivity: np.ndarray | float,
@@ -216,37 +243,111 @@ def residuals_from_check_standard(known: np.ndarray, measured: np.ndarray, expec
     return math.sqrt(2) * missing / np.sqrt(1 + g**2 + g**4)
 
 
-_PAIRS = ((0, 0), (1, 1), (2, 2), (0, 1), (0, 2), (1, 2))
+@dataclass(frozen=True, eq=False)
+class ThroughPath:
+    """What carries the calibration's residual errors into a corrected S11 of full two-port
+    data (or into S22, seen from port 2): S21 S12 of the device, the reflection of its far
+    port, the analyzer's load match at that port, and the thru the load match was found with
+    (its reflection facing this port, S21 S12 and its far reflection; None: a flush thru)."""
+
+    product: np.ndarray
+    far_reflection: np.ndarray
+    load_match: np.ndarray
+    thru: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
 
 
-def _pair_products(vector: np.ndarray, conjugate: bool) -> list[np.ndarray]:
-    left = np.conj(vector) if conjugate else vector
-    return [left[:, j] * vector[:, k] for j, k in _PAIRS]
+def _vector(gamma: np.ndarray, gamma_squared: np.ndarray,
+            path: ThroughPath | None) -> tuple[np.ndarray | None, np.ndarray, np.ndarray]:
+    """The components (v0, v1, v2) of the vector the residual coefficients (D, τ, M) multiply:
+    (1, Γ, Γ²) for a one-port reading (v0 None: exactly 1).
+
+    With full two-port data the residual polynomial p acts twice (first order): on the reading
+    through port 1, Γin = S11 + S21 S12 L / (1 - S22 L) with L the load match, and -- with
+    the opposite sign, scaled -- on the load match the thru gave, δL = p(Γthru) (1 - t22 L)² /
+    (t21 t12) with Γthru = t11 + t21 t12 L / (1 - t22 L), which S11's correction removes as
+    S21 S12 δL / (1 - S22 L)².  So δS11 = p(Γin) - K p(Γthru), K = S21 S12 (1 - t22 L)² /
+    ((1 - S22 L)² t21 t12), and v = (1 - K, Γin - K Γthru, Γin² - K Γthru²): a device like the
+    thru reads as the thru was defined (K = 1, Γin = Γthru), whatever the residuals.  The other
+    port's residuals reach S11 only through S22 L and are left out.  tests/unit/test_two_port_residuals.py
+    holds this against the 12-term correction itself."""
+    if path is None:
+        return None, gamma, gamma_squared
+    load = path.load_match
+    near = 1 - path.far_reflection * load
+    through_load = path.product * load / near
+    reading = gamma + through_load
+    if path.thru is None:  # flush: t11 = t22 = 0, t21 t12 = 1
+        scale, thru_reading = path.product / (near * near), load
+    else:
+        t11, t21t12, t22 = path.thru
+        far = 1 - t22 * load
+        scale = path.product * (far * far) / (near * near * t21t12)
+        thru_reading = t11 + t21t12 * load / far
+    scaled = scale * thru_reading
+    return 1 - scale, reading - scaled, reading * reading - scaled * thru_reading
 
 
-def _form(matrix: np.ndarray, products: list[np.ndarray], hermitian: bool) -> np.ndarray:
-    """Σ_jk v̄_j M_jk v_k (Hermitian M, real result) or Σ_jk v_j M_jk v_k (symmetric M) from
-    the six pair products: the diagonal once, each off-diagonal pair twice."""
-    diagonal = sum(matrix[:, j, j] * products[i] for i, (j, _) in enumerate(_PAIRS[:3]))
-    off = sum(matrix[:, j, k] * products[i + 3] for i, (j, k) in enumerate(_PAIRS[3:]))
-    if hermitian:
-        return diagonal.real + 2 * off.real
-    return diagonal + 2 * off
+def _power(values: np.ndarray) -> np.ndarray:
+    """|z|² computed as re² + im² (what z̄ z gives, without the complex product)."""
+    return values.real * values.real + values.imag * values.imag
 
 
-def _quadratic_forms(residuals: Mapping[str, np.ndarray], prefix: str,
-                     vector: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Variance, pseudo-variance and the load standard's variance of the residual error at
-    each point (zeros when the calibration has no residual model)."""
+def _hermitian_form(matrix: np.ndarray, squares: tuple[np.ndarray | float, np.ndarray, np.ndarray],
+                    crosses: tuple[np.ndarray, np.ndarray, np.ndarray]) -> np.ndarray:
+    """vᴴMv = Σ_j M_jj |v_j|² + 2 Re Σ_{j<k} M_jk v̄_j v_k for a Hermitian M (real result),
+    from |v_j|² and the three products v̄_j v_k (j < k)."""
+    off = matrix[:, 0, 1] * crosses[0]
+    off += matrix[:, 0, 2] * crosses[1]
+    off += matrix[:, 1, 2] * crosses[2]
+    result = matrix[:, 1, 1].real * squares[1]
+    result += matrix[:, 2, 2].real * squares[2]
+    result += matrix[:, 0, 0].real * squares[0]
+    result += 2 * off.real
+    return result
+
+
+def _symmetric_form(matrix: np.ndarray, v0: np.ndarray | None, v1: np.ndarray, v2: np.ndarray) -> np.ndarray:
+    """vᵀMv = Σ_j M_jj v_j² + 2 Σ_{j<k} M_jk v_j v_k for a symmetric M, grouped as
+    v0 (M00 v0 + 2 (M01 v1 + M02 v2)) + v1 (M11 v1 + 2 M12 v2) + M22 v2²."""
+    first = matrix[:, 0, 1] * v1
+    first += matrix[:, 0, 2] * v2
+    first *= 2
+    second = matrix[:, 1, 2] * v2
+    second *= 2
+    second += matrix[:, 1, 1] * v1
+    second *= v1
+    last = matrix[:, 2, 2] * v2
+    last *= v2
+    if v0 is None:
+        first += matrix[:, 0, 0]
+    else:
+        first += matrix[:, 0, 0] * v0
+        first *= v0
+    first += second
+    first += last
+    return first
+
+
+def _quadratic_forms(residuals: Mapping[str, np.ndarray], prefix: str, v0: np.ndarray | None, v1: np.ndarray,
+                     v2: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Variance vᴴAv, pseudo-variance vᵀBv and the load standard's variance of the residual
+    error at each point (zeros when the calibration has no residual model).  Written out
+    term by term (A and B are Hermitian and symmetric 3 x 3 per point), which costs a third
+    of forming the nine products of v̄_j v_k and summing them."""
     variance = residuals.get(f"{prefix}.variance")
     if variance is None:
-        zero = np.zeros(vector.shape[0])
-        return zero, zero.astype(complex), zero
-    mixed = _pair_products(vector, conjugate=True)
+        return np.zeros(v1.shape[0]), np.zeros(v1.shape[0], complex), np.zeros(v1.shape[0])
+    if v0 is None:
+        squares: tuple[np.ndarray | float, np.ndarray, np.ndarray] = (1.0, _power(v1), _power(v2))
+        crosses = (v1, v2, np.conj(v1) * v2)
+    else:
+        conjugate = np.conj(v0)
+        squares = (_power(v0), _power(v1), _power(v2))
+        crosses = (conjugate * v1, conjugate * v2, np.conj(v1) * v2)
     load = residuals.get(f"{prefix}.load_variance")
-    return (_form(variance, mixed, True),
-            _form(residuals[f"{prefix}.pseudo_variance"], _pair_products(vector, conjugate=False), False),
-            np.zeros(vector.shape[0]) if load is None else _form(load, mixed, True))
+    return (_hermitian_form(variance, squares, crosses),
+            _symmetric_form(residuals[f"{prefix}.pseudo_variance"], v0, v1, v2),
+            np.zeros(v1.shape[0]) if load is None else _hermitian_form(load, squares, crosses))
 
 
 def estimate_trace_noise(trace: np.ndarray) -> float:
@@ -329,10 +430,6 @@ def termination_rms(reflection: np.ndarray, standard_uncertainty: np.ndarray) ->
     return np.sqrt(np.abs(reflection) ** 2 + 2 * np.asarray(standard_uncertainty) ** 2)
 
 
-def _radial(v: np.ndarray, w: np.ndarray, turn: np.ndarray) -> np.ndarray:
-    return np.sqrt(np.maximum(0.5 * (v + (w * turn).real), 0.0))
-
-
 def reflection_uncertainty(
     residuals: Mapping[str, np.ndarray],
     gamma: np.ndarray,
@@ -340,45 +437,78 @@ def reflection_uncertainty(
     settings: UncertaintySettings = UncertaintySettings(),
     termination_reach: np.ndarray | float | None = None,
     interpolation_error: float | None = None,
-    transmission: tuple[np.ndarray, np.ndarray] | None = None,
+    transmission: ThroughPath | None = None,
     prefix: str = "port1",
+    reading: np.ndarray | None = None,
+    further: Mapping[str, np.ndarray] | None = None,
 ) -> ReflectionUncertainty:
     """Uncertainty of the corrected reflection ``gamma`` at each point.
 
     ``termination_reach``: the (RMS) reflection of the termination on the device's output in
-    an as-terminated measurement (:func:`termination_rms`); ``transmission``: (S21 S12, load
-    match) of full two-port data, whose corrected S11 also carries the residual load match
-    (p(ELF), reaching S11 through S21 S12).  The coverage factor is 2 unless a contribution of
-    unknown phase dominates (then from :func:`coverage_factor`), or ``settings.coverage_factor``."""
+    an as-terminated measurement (:func:`termination_rms`); ``transmission``: how full
+    two-port data carry the residuals into a corrected S11 (:class:`ThroughPath`, see
+    :func:`_vector`).  ``reading``: the figure whose magnitude is
+    reported when it is not ``gamma`` itself but lies close to it (an as-terminated reflection
+    computed from S11): the residual error sits on ``gamma``, its radial part is taken along
+    the reading.  ``further``: more standard uncertainties of |Γ| (of a normal kind), by name.
+    The coverage factor is 2 unless a contribution of unknown phase dominates (then from
+    :func:`coverage_factor`), or ``settings.coverage_factor``."""
     g = np.asarray(gamma, dtype=complex)
     f = np.asarray(frequencies_hz, dtype=float)
-    vector = np.stack([np.ones_like(g), g, g * g], axis=-1)
-    if transmission is not None:
-        product, load_match = transmission
-        vector = vector + product[:, None] * np.stack([np.ones_like(g), load_match, load_match**2], axis=-1)
-    power = np.abs(g) ** 2
-    with np.errstate(divide="ignore", invalid="ignore"):
-        turn = np.where(power > 0, np.conj(g) ** 2 / power, 1.0)  # e^(-2j arg Γ)
-    v, w, load_v = _quadratic_forms(residuals, prefix, vector)
-    calibration = _radial(v, w, turn)
-    load = np.minimum(np.sqrt(np.maximum(load_v, 0.0) / 2), calibration)
+    g2 = g * g
+    v0, v1, v2 = _vector(g, g2, transmission)
+    read = g if reading is None else np.asarray(reading, dtype=complex)
+    magnitude = np.abs(read)
+    v, w, load_v = _quadratic_forms(residuals, prefix, v0, v1, v2)
+    v += _along(w, g2 if reading is None else read * read, magnitude)
+    v *= 0.5
+    variance = np.maximum(v, 0.0, out=v)  # of |Γ| from the calibration's residuals
+    calibration = np.sqrt(variance)
+    load = np.minimum(np.sqrt(np.maximum(load_v, 0.0, out=load_v) / 2), calibration)
     budget = {"calibration (load standard)": load,
-              "calibration (other standards)": np.sqrt(np.maximum(calibration**2 - load**2, 0.0))}
+              "calibration (other standards)": np.sqrt(np.maximum(variance - load * load, 0.0))}
     noise = settings.trace_noise if settings.trace_noise is not None else estimate_trace_noise(g)
     budget["noise"] = np.full(f.shape, noise)
-    if settings.connection_repeatability:
-        reach = np.abs(1 - g * g) if transmission is None else np.abs(1 - g * g) + np.abs(transmission[0])
-        budget["connection"] = settings.repeatability(f) * reach / math.sqrt(2)
+    total_variance = variance + noise * noise  # load² + others² = the calibration's variance
+    if settings.connections:
+        reach = np.abs(1 - g2)
+        if transmission is not None:
+            # the connection at the device's far port reaches S11 through S21 S12, and the
+            # thru's own connection through the load match it gave (K = 1 - v0, see _vector)
+            reach = np.sqrt((reach + np.abs(transmission.product)) ** 2 + _power(1 - v0))  # type: ignore[operator]
+        if settings.switch_path_mismatch:
+            reach *= np.sqrt(settings.connection_variance(f) / 2)
+        else:
+            reach *= f
+            reach *= settings.connection_repeatability / (settings.repeatability_reference_hz * math.sqrt(2))
+        budget["connection"] = reach
+        total_variance += reach * reach
     spread = residuals.get(f"{prefix}.load_spread")
     bounded = [(load, 1.0 if spread is None else float(spread[0].real))]
     if termination_reach is not None:
-        budget["termination"] = termination_bound(g, termination_reach) / math.sqrt(2)
+        budget["termination"] = termination_bound(read, termination_reach) / math.sqrt(2)
         bounded.append((budget["termination"], 1.0))
+        total_variance += budget["termination"] ** 2
     if interpolation_error:
         budget["interpolation"] = np.full(f.shape, interpolation_error / math.sqrt(2))
         bounded.append((budget["interpolation"], 1.0))
-    total = np.sqrt(sum(part**2 for part in budget.values()))
-    return ReflectionUncertainty(np.abs(g), total, _coverage(bounded, total, settings), budget)
+        total_variance += interpolation_error**2 / 2
+    for name, part in (further or {}).items():
+        budget[name] = part
+        total_variance += part * part
+    total = np.sqrt(total_variance, out=total_variance)
+    return ReflectionUncertainty(magnitude, total, _coverage(bounded, total, settings), budget)
+
+
+def _along(pseudo_variance: np.ndarray, gamma_squared: np.ndarray, magnitude: np.ndarray) -> np.ndarray:
+    """Re(W e^(-2j arg Γ)) = Re(W conj(Γ²)) / |Γ|² (Re W where Γ = 0): the pseudo-variance's
+    share along Γ."""
+    power = magnitude * magnitude
+    turned = (pseudo_variance * np.conj(gamma_squared)).real
+    if power.all():
+        return turned / power
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(power > 0, turned / power, pseudo_variance.real)
 
 
 def _coverage(bounded: list[tuple[np.ndarray, float]], total: np.ndarray,
@@ -388,9 +518,12 @@ def _coverage(bounded: list[tuple[np.ndarray, float]], total: np.ndarray,
     wide side)."""
     if settings.coverage_factor is not None:
         return np.full(total.shape, settings.coverage_factor)
-    parts = np.stack([part for part, _ in bounded])
-    largest = np.argmax(parts, axis=0)
     with np.errstate(divide="ignore", invalid="ignore"):
+        if len(bounded) == 1:  # one contribution of unknown phase: no choosing to do
+            part, spread = bounded[0]
+            return np.interp(np.where(total > 0, part / total, 0.0), _SHARES, _coverage_row(spread))
+        parts = np.stack([part for part, _ in bounded])
+        largest = np.argmax(parts, axis=0)
         share = np.where(total > 0, np.max(parts, axis=0) / total, 0.0)
     factor = np.empty(total.shape)
     for index, (_, spread) in enumerate(bounded):
@@ -414,19 +547,49 @@ def transmission_uncertainty_db(
     settings: UncertaintySettings = UncertaintySettings(),
     noise: float | None = None,
 ) -> np.ndarray:
-    """Expanded uncertainty (dB) of |S21| of full two-port data: thru statement (tracking),
-    residual source match at port 1 times S11 and residual load match (the port-1 residual
-    directivity it was measured with) times S22, and noise; first order, the complex relative
-    error taken as of unknown phase except the tracking's magnitude part."""
-    s11, s21, s22 = s[:, 0, 0], s[:, 1, 0], s[:, 1, 1]
+    """Expanded uncertainty (dB) of |S21| of full two-port data ``s`` (N, 2, 2); see
+    :func:`transmission_uncertainty_traces_db`."""
+    return transmission_uncertainty_traces_db(residuals, s[:, 0, 0], s[:, 1, 0], s[:, 1, 1], settings, noise)
+
+
+def transmission_uncertainty_traces_db(
+    residuals: Mapping[str, np.ndarray],
+    s11: np.ndarray,
+    s21: np.ndarray,
+    s22: np.ndarray,
+    settings: UncertaintySettings = UncertaintySettings(),
+    noise: float | None = None,
+    s21_magnitude: np.ndarray | None = None,
+) -> np.ndarray:
+    """Expanded uncertainty (dB) of |S21|: :func:`transmission_relative_uncertainty` times k
+    (2, or ``settings.coverage_factor``) in dB."""
+    relative = transmission_relative_uncertainty(residuals, s11, s21, s22, settings, noise, s21_magnitude)
+    relative *= (settings.coverage_factor or 2.0) * 20 / math.log(10)
+    return relative
+
+
+def transmission_relative_uncertainty(
+    residuals: Mapping[str, np.ndarray],
+    s11: np.ndarray,
+    s21: np.ndarray,
+    s22: np.ndarray,
+    settings: UncertaintySettings = UncertaintySettings(),
+    noise: float | None = None,
+    s21_magnitude: np.ndarray | None = None,
+) -> np.ndarray:
+    """Relative standard uncertainty of |S21|: thru statement (tracking), residual source
+    match at port 1 times S11 and residual load match (the port-1 residual directivity it
+    was measured with) times S22, and noise; first order, the complex relative error taken
+    as of unknown phase except the tracking's magnitude part.  ``s21_magnitude``: |S21| when
+    the caller has it already."""
     magnitude = residuals.get("transmission.magnitude_variance", np.zeros(s21.shape)).real
-    mismatch = np.zeros(s21.shape)
+    mismatch: np.ndarray | float = 0.0
     variance = residuals.get("port1.variance")
     if variance is not None:
-        mismatch = variance[:, 2, 2].real * np.abs(s11) ** 2 + variance[:, 0, 0].real * np.abs(s22) ** 2
+        mismatch = variance[:, 2, 2].real * _power(s11) + variance[:, 0, 0].real * _power(s22)
     sigma = noise if noise is not None else (settings.trace_noise or estimate_trace_noise(s21))
-    relative = np.sqrt(magnitude + 0.5 * mismatch + (sigma / np.maximum(np.abs(s21), 1e-12)) ** 2)
-    return (settings.coverage_factor or 2.0) * 20 / math.log(10) * relative
+    through = np.abs(s21) if s21_magnitude is None else s21_magnitude
+    return np.sqrt(magnitude + 0.5 * mismatch + (sigma / np.maximum(through, 1e-12)) ** 2)
 
 
 # -- published mismatch formulas -------------------------------------------------------------

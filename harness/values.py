@@ -168,6 +168,31 @@ class MarkerReading:
 
 
 @dataclass(frozen=True)
+class FigureResult:
+    """One figure of one band (see :mod:`lineproof.figures`): a reflection figure in |Γ|
+    (``as-terminated``, ``input-match``, ``output-match``) or insertion loss in dB.
+
+    ``limit`` is the band's limit for it (|Γ| or dB; None: the band sets none);
+    ``expanded_uncertainty`` the largest expanded uncertainty in the band and ``worst_upper``
+    the largest value + U; ``verdict`` is None when the figure is reported beside the judged
+    ones rather than judged.
+    """
+
+    figure: str
+    worst: float
+    worst_frequency_hz: float
+    mean: float
+    limit: float | None
+    expanded_uncertainty: float | None
+    worst_upper: float | None
+    verdict: Verdict | None
+
+    @property
+    def judged(self) -> bool:
+        return self.verdict is not None
+
+
+@dataclass(frozen=True)
 class BandResult:
     """One band of one device: worst and mean figures and the verdict.
 
@@ -188,6 +213,11 @@ class BandResult:
     worst_insertion_loss_frequency_hz: float | None = None
     insertion_loss_uncertainty_db: float | None = None
     markers: tuple[MarkerReading, ...] = ()
+    #: Every figure of the band, judged or reported beside (two-port data), the headline first.
+    figures: tuple[FigureResult, ...] = ()
+
+    def figure(self, name: str) -> FigureResult | None:
+        return next((f for f in self.figures if f.figure == name), None)
 
     @property
     def worst_vswr(self) -> float:
@@ -305,12 +335,20 @@ class VerificationBand:
     stop_hz: float
     measured_reflection: float  # mean |Γ| over the band's points
     reference_reflection: float  # mean reference |Γ| over the same points
-    worst_deviation: float  # largest | |Γ measured| - |Γ reference| | in the band
+    worst_deviation: float  # | |Γ measured| - |Γ reference| | at the deciding point of the band
     worst_frequency_hz: float
+    #: The largest accepted deviation there: the sequence's fixed tolerance, or under the En
+    #: criterion sqrt(U_meas² + U_ref²) at that point.
     tolerance: float
+    #: Normalized error, largest over the band (None: judged by a fixed tolerance).
+    en: float | None = None
+    measured_uncertainty: float | None = None  # U (k = 2) of the measured |Γ| at the deciding point
+    reference_uncertainty: float | None = None  # U (k = 2) of the reference |Γ| there
 
     @property
     def passed(self) -> bool:
+        if self.en is not None:
+            return self.en <= 1.0
         return self.worst_deviation <= self.tolerance
 
 
@@ -326,12 +364,33 @@ class VerificationResult:
     sweep_worst_frequency_hz: float
     tolerance: float
     bands: tuple[VerificationBand, ...]
+    #: Normalized error, largest over the sweep (None: judged by a fixed tolerance).
+    en: float | None = None
+    #: What the check standard's control chart says of this check: None not judged (no
+    #: baseline yet), () in control, else the rules it broke (see :mod:`lineproof.control_chart`).
+    control_signals: tuple[str, ...] | None = None
+    repeats: int = 1
+    temperature_c: float | None = None
+
+    @property
+    def agrees(self) -> bool:
+        """The measured check standard agrees with its reference (En <= 1, or the tolerance)."""
+        if self.en is not None:
+            return self.en <= 1.0 and all(b.passed for b in self.bands)
+        return self.sweep_worst_deviation <= self.tolerance and all(b.passed for b in self.bands)
 
     @property
     def passed(self) -> bool:
-        return self.sweep_worst_deviation <= self.tolerance and all(b.passed for b in self.bands)
+        return self.agrees and not self.control_signals
 
     def describe(self) -> str:
         outcome = "passed" if self.passed else "FAILED"
-        return (f"{self.check_standard}: largest deviation of |Γ| {self.sweep_worst_deviation:.4f} at "
-                f"{self.sweep_worst_frequency_hz / 1e6:.3f} MHz, tolerance {self.tolerance:.4f} -> {outcome}")
+        figure = (f"En {self.en:.2f}" if self.en is not None else
+                  f"largest deviation of |Γ| {self.sweep_worst_deviation:.4f} at "
+                  f"{self.sweep_worst_frequency_hz / 1e6:.3f} MHz, tolerance {self.tolerance:.4f}")
+        chart = ""
+        if self.control_signals:
+            chart = f"; out of control: {'; '.join(self.control_signals)}"
+        elif self.control_signals is not None:
+            chart = "; in control"
+        return f"{self.check_standard}: {figure}{chart} -> {outcome}"

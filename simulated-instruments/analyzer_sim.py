@@ -65,6 +65,9 @@ class AnalyzerSimulationSettings:
     sweep_overhead_s: float = 0.005
     time_scale: float = 0.0
     seed: int = 1
+    #: Seeds what differs from one session at the bench to the next -- the connector draws
+    #: and the trace noise -- while ``seed`` keeps the hidden hardware (None: from ``seed``).
+    session_seed: int | None = None
     port_settings: tuple[PortErrorSettings, ...] = (PortErrorSettings(),)
     drift: DriftSettings = DriftSettings()
     #: Serve TRACe:DATA? CORRected from a calibration the instrument holds (made at bench
@@ -96,7 +99,8 @@ class SimulatedAnalyzer:
         self.calibrated_at = self.environment.now()
         self.last_conditions = self.calibrated_at
         self.lock = threading.RLock()
-        self._connection_rng = np.random.default_rng(settings.seed + 1)
+        session = settings.seed if settings.session_seed is None else settings.session_seed
+        self._connection_rng = np.random.default_rng(session + 1)
         self.error_model = AnalyzerErrorModel(settings.model, settings.port_settings, settings.seed)
         self.wiring = PortWiring(settings.ports)
         self.noise_enabled = True
@@ -106,7 +110,7 @@ class SimulatedAnalyzer:
         self._correction_cache: dict[tuple[float, float, int], dict[str, DirectionTerms]] = {}
         self._raw_cache: dict[tuple[object, ...], dict[str, tuple[np.ndarray, dict]]] = {}
         self._network_cache: dict[tuple[object, ...], np.ndarray] = {}
-        self._noise_table = NoiseTable(settings.seed)
+        self._noise_table = NoiseTable(session)
         self._grid_key: tuple[float, float, int] | None = None
         self._grid = np.empty(0)
         self._cable_delays = [m.settings.cable_delay_s for m in self.error_model.port_models]
@@ -307,6 +311,7 @@ class SimulatedAnalyzer:
             if self.start_hz > self.stop_hz:
                 raise ValueError("the start frequency is above the stop frequency")
             self.last_conditions = self.environment.now()
+            self.environment.sweep_taken()
             entry = self._raw_entry(f, self.last_conditions)
             self.traces = {name: self._noise(raw, levels) for name, (raw, levels) in entry.items()}
             self.trace_frequencies = f

@@ -2,13 +2,15 @@
 
 The bench has one clock and one temperature (:class:`BenchEnvironment`), shared by its
 instruments.  The clock runs at ``clock_rate`` bench seconds per real second (0: it moves only
-when the control channel advances it, so that a test is repeatable); the temperature follows
+when the control channel advances it, so that a test is repeatable), and moves on by
+``seconds_per_sweep`` at every sweep (a batch then drifts with its progress, at any host
+speed); the temperature follows
 the scenario's profile (bench seconds, °C; linear between points, held outside them) until the
 control channel sets it.
 
 What drifts (:class:`DriftSettings`, all zero unless a scenario sets them): the magnitude of
 the tracking terms (receiver gain, cable loss), the magnitude of the directivity and match
-terms, and the electrical length of each test-port cable (its phase), per kelvin away from the
+terms (and of the directivity alone), and the electrical length of each test-port cable (its phase), per kelvin away from the
 reference temperature and per hour of bench time.  The phase effect of a cable's length is a
 fact of the trade (a flexible test-port cable changes its electrical length with temperature
 by some tens of ppm per kelvin; from memory).
@@ -35,6 +37,9 @@ class DriftSettings:
     tracking_per_k: float = 0.0
     #: Relative change of the directivity and match terms' magnitude per kelvin.
     match_per_k: float = 0.0
+    #: Further relative change of the directivity alone per kelvin (a bridge whose balance
+    #: moves with temperature).
+    directivity_per_k: float = 0.0
     #: Change of each test-port cable's electrical length per kelvin (ppm of its delay).
     cable_delay_ppm_per_k: float = 0.0
     #: Relative change of the tracking terms' magnitude per hour of bench time.
@@ -43,7 +48,7 @@ class DriftSettings:
     delay_per_hour_s: float = 0.0
 
     def is_still(self) -> bool:
-        return not any((self.tracking_per_k, self.match_per_k, self.cable_delay_ppm_per_k,
+        return not any((self.tracking_per_k, self.match_per_k, self.directivity_per_k, self.cable_delay_ppm_per_k,
                         self.tracking_per_hour, self.delay_per_hour_s))
 
 
@@ -80,11 +85,14 @@ class BenchEnvironment:
     TICKS_PER_SECOND = 1
 
     def __init__(self, temperature_c: float = 23.0, profile: TemperatureProfile | None = None,
-                 clock_rate: float = 1.0) -> None:
+                 clock_rate: float = 1.0, seconds_per_sweep: float = 0.0) -> None:
         self._lock = threading.Lock()
         self._started = time.monotonic()
         self._advanced = 0.0
         self.clock_rate = clock_rate
+        #: Bench seconds each sweep moves the clock on (the handling around a sweep on a real
+        #: bench), so that a batch's drift follows its progress whatever the host's speed.
+        self.seconds_per_sweep = seconds_per_sweep
         self.profile = profile
         self._held: float | None = None if profile is not None else temperature_c
 
@@ -97,6 +105,11 @@ class BenchEnvironment:
         """Move the bench clock forward (the temperature profile and time drift follow)."""
         with self._lock:
             self._advanced += seconds
+
+    def sweep_taken(self) -> None:
+        """A sweep was taken: the clock moves on by ``seconds_per_sweep``."""
+        if self.seconds_per_sweep:
+            self.advance(self.seconds_per_sweep)
 
     def set_temperature(self, temperature_c: float) -> None:
         """Hold the bench at ``temperature_c`` from now on (the profile no longer applies)."""
@@ -128,7 +141,7 @@ def drifted(terms: dict[str, DirectionTerms], frequencies_hz: np.ndarray, settin
         drive, receive = (one_way[0], one_way[-1]) if direction == "forward" else (one_way[-1], one_way[0])
         round_trip = drive * drive
         result[direction] = t.scaled(
-            directivity=match,
+            directivity=match * (1.0 + settings.directivity_per_k * delta_k),
             source_match=match * round_trip,
             reflection_tracking=gain * round_trip,
             load_match=match * receive * receive,

@@ -5,11 +5,13 @@ devices, and faults armed at start.
 The layout (every key optional unless said; see the shipped scenarios for worked examples):
 
 - ``[bench]`` ``name``, ``seed``, ``time_scale`` (0: sweeps finish at once, 1: real time),
-  ``temperature_c``, ``temperature_profile`` (``[[seconds, °C], ...]``) and ``clock_rate``
-  (bench seconds per real second; see :mod:`.drift`);
+  ``temperature_c``, ``temperature_profile`` (``[[seconds, °C], ...]``), ``clock_rate``
+  (bench seconds per real second) and ``seconds_per_sweep`` (bench seconds each sweep moves
+  the clock on; see :mod:`.drift`);
 - ``[analyzer]`` -- or ``[[analyzer]]`` tables for several, named ``analyzer``,
   ``analyzer2``, ... -- with the fields of :class:`AnalyzerSimulationSettings` (``model``:
-  ``reflection`` | ``forward`` | ``full``), ``transport`` (``scpi`` over TCP, or ``serial``
+  ``reflection`` | ``forward`` | ``full``; ``session_seed``: another session at the same
+  bench, other connector draws and noise), ``transport`` (``scpi`` over TCP, or ``serial``
   on a pseudo-terminal) and ``baud_rate`` (serial), ``[[analyzer.port]]`` tables of
   :class:`PortErrorSettings` and an ``[analyzer.drift]`` table of :class:`DriftSettings`;
 - ``[standards]`` ``kit`` (required), ``deviation``, ``seed``;
@@ -76,10 +78,11 @@ class EnvironmentSettings:
     temperature_c: float = 23.0
     temperature_profile: tuple[tuple[float, float], ...] | None = None
     clock_rate: float = 1.0
+    seconds_per_sweep: float = 0.0
 
     def build(self) -> BenchEnvironment:
         profile = TemperatureProfile(self.temperature_profile) if self.temperature_profile else None
-        return BenchEnvironment(self.temperature_c, profile, self.clock_rate)
+        return BenchEnvironment(self.temperature_c, profile, self.clock_rate, self.seconds_per_sweep)
 
 
 @dataclass
@@ -176,7 +179,12 @@ def _environment(bench: dict[str, Any], source: str) -> EnvironmentSettings:
     if clock_rate < 0:
         raise InputError("the bench clock cannot run backwards", path=source, key="bench.clock_rate",
                          fix="use 0 (moves only when advanced), 1 (real time) or more")
-    return EnvironmentSettings(optional(bench, "temperature_c", 23.0, float, source, "bench"), points, clock_rate)
+    per_sweep = optional(bench, "seconds_per_sweep", 0.0, float, source, "bench")
+    if per_sweep < 0:
+        raise InputError("a sweep cannot move the bench clock backwards", path=source, key="bench.seconds_per_sweep",
+                         fix="use 0 (sweeps take no bench time) or a positive number of seconds")
+    return EnvironmentSettings(optional(bench, "temperature_c", 23.0, float, source, "bench"), points, clock_rate,
+                               per_sweep)
 
 
 def _analyzers(data: dict[str, Any], bench: dict[str, Any], source: str) -> list[AnalyzerSpec]:

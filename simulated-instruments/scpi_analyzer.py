@@ -67,6 +67,7 @@ class AnalyzerScpiFront(ScpiFront):
         add("FORMat:BORDer", lambda args, sfx: self._set_byte_order(args))
         add("TRACe[:DATA]?", lambda args, sfx: self._trace(args))
         add("[SENSe]:SWEep:TIME?", lambda args, sfx: f"{a.sweep_duration_s():.6g}")
+        add("SYSTem:TEMPerature?", lambda args, sfx: f"{a.environment.now().temperature_c:.3f}")
 
     def reset(self) -> None:
         self.analyzer.reset()

@@ -22,8 +22,9 @@ from lineproof.uncertainty import (
     UncertaintySettings,
     reflection_uncertainty,
     residual_model,
+    through_path,
     transmission_model,
-    transmission_uncertainty_db,
+    transmission_uncertainty_traces_db,
 )
 from lineproof.values import BandLimit, DeviceIdentity, InstrumentIdentity, SweepPlan
 
@@ -101,15 +102,19 @@ def two_port_processing() -> None:
     media = skrf.media.DefinedGammaZ0(FREQUENCY, z0_port=50.0, z0=50.0)
     device = (media.inductor(2e-9) ** media.shunt_capacitor(0.8e-12) ** media.line(0.12, unit="m")).s
     raw = two_port.embed_two_port(terms, device)
+    # The raw traces as a sweep delivers them (MeasuredSweep: one contiguous array per parameter).
+    traces = tuple(np.ascontiguousarray(raw[:, i, j]) for i, j in ((0, 0), (1, 0), (0, 1), (1, 1)))
     identity = DeviceIdentity("TC20-0001", "TC-20")
+    correction = two_port.TwelveTermCorrection(cal)  # once per calibration, as a run does
 
     def ours() -> object:
-        s = two_port.correct_two_port(cal, F, raw)
-        spread = reflection_uncertainty(cal.residuals, s[:, 0, 0], F, SETTINGS,
-                                        transmission=(s[:, 1, 0] * s[:, 0, 1], cal.terms["forward.load_match"]))
-        loss = metrics.insertion_loss_db(s[:, 1, 0])
-        loss_u = transmission_uncertainty_db(cal.residuals, s, SETTINGS)
-        return steps.judge(identity, F, s[:, 0, 0], BANDS, "guard-banded", spread.expanded, insertion_loss_db=loss,
+        s11, s21, s12, s22 = correction.apply(F, *traces)
+        path = through_path(cal.residuals, s21 * s12, s22, cal.terms["forward.load_match"])
+        spread = reflection_uncertainty(cal.residuals, s11, F, SETTINGS, transmission=path)
+        through = np.abs(s21)
+        loss = metrics.insertion_loss_db(through)
+        loss_u = transmission_uncertainty_traces_db(cal.residuals, s11, s21, s22, SETTINGS, s21_magnitude=through)
+        return steps.judge(identity, F, s11, BANDS, "guard-banded", spread.expanded, insertion_loss_db=loss,
                            insertion_loss_uncertainty_db=loss_u)
 
     coefs = {f"{k.split('.')[0]} {k.split('.')[1].replace('_', ' ')}": v for k, v in terms.items()}
@@ -123,7 +128,7 @@ def two_port_processing() -> None:
 
     report("2-port: correction + metrics + uncertainty + decision", ours, "TwelveTerm.apply_cal", library, 1.0)
     # for scale: scikit-rf's two-port apply_cal is itself a vectorised closed form
-    report("2-port: correction alone", lambda: two_port.correct_two_port(cal, F, raw), "TwelveTerm.apply_cal",
+    report("2-port: correction alone", lambda: correction.apply(F, *traces), "TwelveTerm.apply_cal",
            library, None)
 
 

@@ -42,7 +42,7 @@ def check_records_agree(records: Path, run_id: str) -> dict[str, dict[str, str]]
     serials = [str(r["serial"]) for r in rows]
     assert len(serials) == len(set(serials)), f"a device is recorded twice: {serials}"
     folder = records / "runs" / run_id
-    on_disk = sorted(p.name for p in folder.glob("*.s1p"))
+    on_disk = sorted(p.name for suffix in ("*.s1p", "*.s2p") for p in folder.glob(suffix))
     assert on_disk == sorted(Path(str(r["touchstone"])).name for r in rows), "database and files disagree"
     assert not list(folder.glob(".partial-*")), "a half-written file was left"
     found = {}

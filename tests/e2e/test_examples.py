@@ -33,7 +33,7 @@ def test_every_shipped_sequence_checks_clean(name: str, tmp_path: Path) -> None:
 
 def test_the_examples_are_the_ones_documented() -> None:
     assert {"demo-switch.toml", "demo-bench.toml", "attended-serial.toml", "qualify-termination.toml",
-            "verify-only.toml"} <= set(EXAMPLES)
+            "verify-only.toml", "two-port-batch.toml", "attended-one-path.toml"} <= set(EXAMPLES)
 
 
 def test_verification_only(tmp_path: Path) -> None:

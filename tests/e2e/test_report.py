@@ -41,7 +41,7 @@ def test_the_report_shows_the_records(tmp_path: Path, recorded_run: tuple[Path, 
     # Self-contained: no external resource of any kind.
     assert not re.search(r'(src|href)="(?!data:)', page)
     images = re.findall(r'src="data:image/png;base64,([A-Za-z0-9+/=]+)"', page)
-    assert len(images) == 1 + 5  # the batch overlay and one plot per device
+    assert len(images) == 1 + 5 + 2  # the batch overlay, one plot per device, the check standard's chart per band
     assert all(base64.b64decode(i).startswith(b"\x89PNG\r\n\x1a\n") for i in images)
     assert "<script>" not in page and "&lt;script&gt;alert(1)&lt;/script&gt;" in page
     assert "=TM-150 &lt;b&gt;head&lt;/b&gt;" in page
@@ -64,7 +64,7 @@ def test_the_report_shows_the_records(tmp_path: Path, recorded_run: tuple[Path, 
         assert row["model"] == "'=TM-150 <b>head</b>"  # OWASP CSV injection: text starting '=' is quoted
 
     summary = json.loads((folder / "summary.json").read_text(encoding="utf-8"))
-    assert summary["counts"] == {"total": 5, "pass": 4, "fail": 1, "indeterminate": 0}
+    assert summary["counts"] == {"total": 5, "pass": 4, "fail": 1, "indeterminate": 0, "suspect": 0}
     assert [d["serial"] for d in summary["devices"] if d["verdict"] == "fail"] == ["TM150-0004"]
     assert len(summary["verifications"]) == checks and summary["run"]["run_id"] == run_id
 

@@ -146,8 +146,13 @@ def test_a_calibration_too_old_or_disproven_is_made_again_on_resume(tmp_path: Pa
     with sqlite3.connect(records / "results.sqlite") as db:
         calibrations = [c for (c,) in db.execute("SELECT calibration_id FROM calibrations ORDER BY created_utc")]
         used = dict(db.execute("SELECT serial, calibration_id FROM devices"))
-    assert len(calibrations) == 2 and set(used.values()) == set(calibrations)
-    assert used["TM150-0010"] == calibrations[1]
+    # The resumed run calibrates again at once; with a calibration valid for only 0.6 s the policy
+    # (a calibration holds while it is younger than valid_for_minutes) makes it new again before
+    # later devices too, in either session: no device was measured with an older one (the
+    # records' times are whole seconds, hence at most 1 s).
+    assert len(calibrations) >= 2 and set(used.values()) <= set(calibrations)
+    assert used["TM150-0010"] == calibrations[-1]
+    assert all(float(m["calibration.age_s"]) <= 1 for m in metadata.values())
 
     # A check standard that fails: the run halts, and a resumed run does not trust that calibration.
     strict = sequence_variant(replace={"tolerance = 0.015": "tolerance = 0.0001"})

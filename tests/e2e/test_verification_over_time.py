@@ -1,0 +1,208 @@
+"""Verification over time, end to end on the drifting bench (simulated-instruments/scenarios/
+drifting-bench.toml): the sun reaches the bench between device 9 and device 10 of the batch,
+and the bench's hidden truth says which results the warm-up actually spoilt.
+
+The runs are made in this process (``lineproof.cli.main``) to keep the suite quick; each
+starts its own simulated bench, exactly as ``lineproof run`` does.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import io
+import json
+import sqlite3
+from pathlib import Path
+
+import numpy as np
+import pytest
+import skrf
+from record_checks import check_records_agree, device_rows, run_cli
+
+from lineproof.cli import main
+from lineproof.simulators.bench import SimulatedBench
+from lineproof.simulators.control import BenchControlClient
+from lineproof.store import unpack_arrays
+
+ROOT = Path(__file__).parent.parent.parent
+SEQUENCE = ROOT / "sequences" / "drifting-bench.toml"
+SCENARIO = ROOT / "simulated-instruments" / "scenarios" / "drifting-bench.toml"
+SERIALS = [f"TM150-02{n:02d}" for n in range(1, 17)]
+BANDS = {"2m": (144e6, 148e6), "70cm": (420e6, 450e6)}
+
+
+def _variant(folder: Path, name: str, replace: dict[str, str], session: int | None = None) -> Path:
+    """A copy of the shipped drifting sequence; with ``session``, on a private copy of its
+    scenario whose connector draws and noise are another session's (another day at the bench)."""
+    text = SEQUENCE.read_text(encoding="utf-8")
+    if session is not None:
+        scenario = SCENARIO.read_text(encoding="utf-8").replace("[analyzer]\n", f"[analyzer]\nsession_seed = {session}\n")
+        (folder / f"bench-{session}.toml").write_text(scenario, encoding="utf-8")
+        replace = {**replace, 'simulated_bench = "drifting-bench"': f'simulated_bench = "bench-{session}.toml"'}
+    for old, new in replace.items():
+        assert old in text, old
+        text = text.replace(old, new)
+    path = folder / name
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+NO_TEMPERATURE_LIMIT = {"max_temperature_change_k = 1.0 ": "max_temperature_change_k = 100.0 "}
+CHECK_ONLY = {'[[step]]\ndo = "measure-batch"\n': "", "[reverify]\nevery_devices = 4\nat_end = true\n": ""}
+
+
+def _actually_off(records: Path, run_id: str) -> set[str]:
+    """Devices whose recorded |Γ| lies outside its own stated interval at most points of a band,
+    judged against the bench's truth (the devices themselves do not drift; the analyzer does)."""
+    off = set()
+    with SimulatedBench(SCENARIO) as bench, BenchControlClient(bench.control_address) as control:
+        control.request("set", noise=False)
+        for row in device_rows(records / "results.sqlite", run_id):
+            network = skrf.Network(str(records / str(row["touchstone"])))
+            expanded = unpack_arrays(row["uncertainty"])["expanded_uncertainty"]  # type: ignore[arg-type]
+            control.connect(1, str(row["serial"]), "good-termination")
+            truth = np.abs(control.truth(1, start_hz=100e6, stop_hz=500e6, points=201))
+            outside = np.abs(np.abs(network.s[:, 0, 0]) - truth) > expanded
+            for start, stop in BANDS.values():
+                inside = (network.f >= start) & (network.f <= stop)
+                if np.mean(outside[inside]) > 0.5:
+                    off.add(str(row["serial"]))
+    return off
+
+
+@pytest.fixture(scope="module")
+def drifted(tmp_path_factory: pytest.TempPathFactory) -> dict[str, object]:
+    """Nine earlier sessions at the bench that each calibrate and check once (the control chart's
+    baseline, with its calibration-to-calibration spread), then the batch on the day the sun
+    comes -- with the temperature limit lifted, so that only the check standard can catch it."""
+    folder = tmp_path_factory.mktemp("drift")
+    records = folder / "rec"
+    for session in range(1, 10):
+        earlier = _variant(folder, f"earlier-{session}.toml", {**NO_TEMPERATURE_LIMIT, **CHECK_ONLY}, session)
+        assert main(["run", str(earlier), "--records", str(records)]) == 0
+    batch = _variant(folder, "batch.toml", NO_TEMPERATURE_LIMIT)
+    printed = io.StringIO()
+    with contextlib.redirect_stdout(printed):
+        code = main(["run", str(batch), "--records", str(records), "--json"])
+    events = [json.loads(line) for line in printed.getvalue().splitlines()]
+    with sqlite3.connect(records / "results.sqlite") as db:
+        run_id = db.execute("SELECT run_id FROM runs ORDER BY rowid DESC LIMIT 1").fetchone()[0]
+    return {"records": records, "run_id": run_id, "code": code, "folder": folder, "events": events}
+
+
+def test_the_check_standard_catches_the_drift_and_exactly_the_results_in_doubt_are_suspect(drifted) -> None:
+    records, run_id = drifted["records"], drifted["run_id"]
+    assert drifted["code"] == 1  # complete, with suspect results
+    rows = device_rows(records / "results.sqlite", run_id)
+    assert [r["serial"] for r in rows] == SERIALS
+    suspect = {str(r["serial"]) for r in rows if r["suspect"]}
+    # The rule: every device since the last passing check (after device 8) up to the failed one
+    # (after device 12).
+    assert suspect == set(SERIALS[8:12])
+    # The truth: the devices measured after the warm-up with the old calibration are off (10-12);
+    # device 9 was measured before it -- in doubt, but right.  Nothing outside the suspect ones
+    # is off: the calibration made again at 35 deg C reads the rest right.
+    off = _actually_off(records, run_id)
+    assert off == set(SERIALS[9:12])
+    assert off <= suspect
+    with sqlite3.connect(records / "results.sqlite") as db:
+        checks = db.execute("SELECT devices_before, passed, en, in_control, control_signals, criterion"
+                            " FROM verifications WHERE run_id = ? ORDER BY verification_id", (run_id,)).fetchall()
+        calibrations = [c for (c,) in db.execute("SELECT DISTINCT calibration_id FROM devices WHERE run_id = ?"
+                                                 " ORDER BY position", (run_id,))]
+        reasons = {r[0] for r in db.execute("SELECT suspect_reason FROM devices WHERE suspect = 1")}
+    assert [(c[0], c[1]) for c in checks] == [(0, 1), (4, 1), (8, 1), (12, 0), (12, 1), (16, 1)]
+    failed = checks[3]
+    assert failed[2] > 1 and failed[3] == 0 and "beyond the control limits" in failed[4]  # En and the chart agree
+    # The batch's first check completes the chart's baseline (nine earlier sessions + 1); every
+    # later passing check is in control, the calibration made at 35 deg C included.
+    assert checks[0][3] is None and all(c[3] == 1 for c in checks[1:] if c[1]) and failed[5].startswith("En <= 1")
+    assert len(calibrations) == 2  # made again after the failed check, before device 13
+    assert len(reasons) == 1 and "failed after device 12" in reasons.pop()
+    # A line system is told in one event, with the command that measures them again.
+    told = [e for e in drifted["events"] if e["event"] == "suspect"]
+    assert [e["serials"] for e in told] == [SERIALS[8:12]] and run_id in told[0]["remeasure_command"]
+    checked = [e for e in drifted["events"] if e["event"] == "verification"]
+    assert [e["passed"] for e in checked] == [True, True, True, False, True, True] and checked[3]["en"] > 1
+
+
+def test_suspect_results_are_marked_beside_their_files_and_in_the_summaries(drifted) -> None:
+    records, run_id = drifted["records"], drifted["run_id"]
+    check_records_agree(records, run_id)  # the result files are whole and unchanged (their SHA-256 in the rows)
+    folder = records / "runs" / run_id
+    notes = sorted(p.name for p in folder.glob("*.suspect.json"))
+    assert notes == [f"{s}.s1p.suspect.json" for s in SERIALS[8:12]]
+    note = json.loads((folder / notes[0]).read_text(encoding="utf-8"))
+    assert note["serial"] == SERIALS[8] and note["run_id"] == run_id and "remeasure-suspect" in note["remeasure"]
+    assert main(["report", run_id, "--records", str(records)]) == 0
+    summary = json.loads((folder / "summary.json").read_text(encoding="utf-8"))
+    assert [d["serial"] for d in summary["devices"] if d["suspect"]] == SERIALS[8:12]
+    assert summary["counts"]["suspect"] == 4
+    html = (folder / "report.html").read_text(encoding="utf-8")
+    assert "SUSPECT" in html and "Control chart" in html
+
+
+def test_the_history_command_prints_the_chart_and_plots_it(drifted, capsys: pytest.CaptureFixture[str]) -> None:
+    records, folder = drifted["records"], drifted["folder"]
+    capsys.readouterr()
+    assert main(["history", "--records", str(records), "--figure", "70cm", "--plot", str(folder / "chart.png")]) == 0
+    out = capsys.readouterr().out
+    assert "check standard mismatch-2to1, 70cm mean |Γ|" in out and "baseline of 10 checks" in out
+    statuses = [line.split()[-1] for line in out.splitlines() if line.strip()[:2].strip().isdigit()]
+    assert statuses.count("baseline") == 10 and "OUT: beyond the control limits" in out
+    assert (folder / "chart.png").read_bytes().startswith(b"\x89PNG\r\n\x1a\n")
+    assert main(["history", "--records", str(records), "--json"]) == 0
+    charts = json.loads(capsys.readouterr().out)
+    assert [c["figure"] for c in charts] == ["2m mean |Γ|", "70cm mean |Γ|"]
+    assert all(c["baseline"]["count"] == 10 for c in charts)
+    assert main(["history", "--records", str(records), "--check-standard", "none-such"]) == 3
+
+
+def test_suspect_results_are_measured_again(drifted, capsys: pytest.CaptureFixture[str]) -> None:
+    records, run_id = drifted["records"], drifted["run_id"]
+    assert main(["run", "--remeasure-suspect", run_id, "--records", str(records)]) == 0
+    with sqlite3.connect(records / "results.sqlite") as db:
+        again, = db.execute("SELECT run_id FROM runs WHERE remeasure_of = ?", (run_id,)).fetchone()
+    rows = device_rows(records / "results.sqlite", again)
+    assert [r["serial"] for r in rows] == SERIALS[8:12] and not any(r["suspect"] for r in rows)
+    assert _actually_off(records, again) == set()
+    capsys.readouterr()
+    assert main(["run", "--remeasure-suspect", run_id, "--records", str(records)]) == 3
+    assert "no suspect result left" in capsys.readouterr().err
+
+
+def test_the_temperature_limit_makes_a_new_calibration_before_any_result_is_spoilt(tmp_path: Path) -> None:
+    # The shipped sequence as it is: the analyzer reads 35 deg C before device 10, more than 1 K
+    # from its calibration's 23 deg C, so the calibration is made again first.
+    records = tmp_path / "rec"
+    assert main(["run", str(SEQUENCE), "--records", str(records)]) == 0
+    with sqlite3.connect(records / "results.sqlite") as db:
+        run_id, = db.execute("SELECT run_id FROM runs").fetchone()
+        used = [c for (c,) in db.execute("SELECT calibration_id FROM devices ORDER BY position")]
+        temperatures = [t for (t,) in db.execute("SELECT temperature_c FROM calibrations ORDER BY created_utc")]
+    assert used[:9] == [used[0]] * 9 and used[9:] == [used[9]] * 7 and used[0] != used[9]
+    assert temperatures == pytest.approx([23.0, 35.0])
+    assert _actually_off(records, run_id) == set() and not any(r["suspect"] for r in device_rows(
+        records / "results.sqlite", run_id))
+
+
+ATTENDED = {'connected_by = "simulated-operator"': 'connected_by = "operator"',
+            '"TM150-0211", "TM150-0212",\n           "TM150-0213", "TM150-0214", "TM150-0215", "TM150-0216"]': "]"}
+#: Enter at each prompt up to the one before device 10: the calibration's three standards, the
+#: termination, three connections of the check standard; devices 1-4, a check, 5-8, a check, 9.
+BEFORE_DEVICE_10 = 3 + 1 + 3 + 4 + 3 + 4 + 3 + 1
+
+
+def test_an_attended_run_stops_at_a_prompt_when_the_calibration_no_longer_holds(tmp_path: Path) -> None:
+    sequence = _variant(tmp_path, "attended.toml", ATTENDED)
+    stopped = run_cli("run", str(sequence), "--records", "stop", cwd=tmp_path,
+                      stdin="\n" * BEFORE_DEVICE_10 + "stop\n")
+    assert stopped.returncode == 2 and "interrupted" in stopped.stderr
+    assert ">>> The calibration no longer holds (the analyzer's temperature moved from 23.00 to 35.00" in stopped.stdout
+    assert len(device_rows(tmp_path / "stop" / "results.sqlite")) == 9
+    # Enter at that prompt: the person is asked for the standards again, then device 10.
+    went_on = run_cli("run", str(sequence), "--records", "on", cwd=tmp_path, stdin="\n" * 40)
+    assert went_on.returncode == 0, went_on.stdout[-2000:]
+    assert went_on.stdout.count("Connect the open standard") == 2
+    rows = device_rows(tmp_path / "on" / "results.sqlite")
+    assert len(rows) == 10 and rows[8]["calibration_id"] != rows[9]["calibration_id"]

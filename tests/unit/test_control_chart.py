@@ -1,0 +1,159 @@
+"""Control charts of a check standard's history: limits, pooling and run rules against published
+values and general-purpose libraries.
+
+No published worked example of a check-standard chart *with its limits computed* could be
+found in the sources searchable here (the NIST/SEMATECH e-Handbook's examples in §2.2 and
+§2.6.2 are figures whose numbers the available excerpts do not show; NBS SP 676-II and NISTIR
+6969 SOP 9 were found, but not an example with its limits).  So the limits are checked piece
+by piece: the pooled repeatability against the e-Handbook's own worked pooling example, the t
+and F factors against published tables and scipy, the mean and standard deviation against
+numpy, and the run rules on series whose answer is known by construction.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from lineproof.control_chart import (
+    BEYOND_LIMITS,
+    EIGHT_ON_ONE_SIDE,
+    FOUR_OF_FIVE,
+    SIX_TRENDING,
+    SPREAD_TOO_WIDE,
+    TWO_OF_THREE,
+    Baseline,
+    ChartPoint,
+    judge_series,
+    limit_factor,
+    make_baseline,
+    pooled_standard_deviation,
+    precision_limit,
+    run_rule_signals,
+)
+
+
+def test_pooled_repeatability_matches_the_handbooks_worked_example() -> None:
+    # NIST/SEMATECH e-Handbook of Statistical Methods §2.4.4.4 ("Example of calculations"):
+    # repeatability sums of squares of five wafers (#138-#142), 60 degrees of freedom each,
+    # SUM 3.17635 over 300 degrees of freedom -> s1 = 0.10290 ohm.cm.
+    sums_of_squares = [0.48115, 0.69209, 0.48483, 1.21752, 0.30076]
+    std_devs = [math.sqrt(ss / 60) for ss in sums_of_squares]
+    pooled, dof = pooled_standard_deviation(std_devs, [60] * 5)
+    assert dof == 300
+    assert pooled == pytest.approx(0.10290, abs=5e-6)
+
+
+@pytest.mark.parametrize(("count", "alpha", "published"), [
+    # Upper critical values of Student's t with 9 degrees of freedom: 2.262 at 0.025 and 3.250
+    # at 0.005 in one tail (the t table of the NIST/SEMATECH e-Handbook §1.3.6.7.2, as printed
+    # in its reproductions; the same figures are in Fisher's tables).
+    (10, 0.05, 2.262),
+    (10, 0.01, 3.250),
+    # 4 degrees of freedom, 0.025: 2.776 (same table).
+    (5, 0.05, 2.776),
+])
+def test_the_limit_factor_is_the_t_quantile(count: int, alpha: float, published: float) -> None:
+    assert limit_factor(count, alpha) == pytest.approx(published, abs=6e-4)
+
+
+def test_the_default_limits_tend_to_three_sigma_and_agree_with_scipy() -> None:
+    for count in (5, 10, 30, 1000):
+        # scipy's t distribution as the reference library.
+        assert limit_factor(count) == pytest.approx(stats.t.ppf(1 - 0.0027 / 2, count - 1), rel=1e-12)
+    # As the baseline grows the factor approaches the classical 3 sigma (normal quantile of
+    # 1 - 0.00135 = 3.0000; fact of the normal distribution).
+    assert limit_factor(100_000) == pytest.approx(3.0, abs=2e-3)
+    assert limit_factor(10) == pytest.approx(4.09, abs=0.01)  # scipy: t(0.99865; 9) = 4.094
+
+
+def test_the_precision_limit_follows_the_handbooks_f_formula() -> None:
+    # UCL = s1 sqrt(F(alpha; J - 1, K(J - 1))) (e-Handbook §2.2.3.1).  J = 3 repeats, K = 12
+    # occasions: F(0.05; 2, 24) = 3.40 in the published F table (5 % level; e.g. the
+    # e-Handbook §1.3.6.7.3 table, as reproduced, to two decimals).
+    assert precision_limit(1.0, 3, 24, 0.05) == pytest.approx(math.sqrt(3.40), rel=2e-3)
+    # F(0.01; 2, 10) = 7.56 in the 1 % table.
+    assert precision_limit(2.0, 3, 10, 0.01) == pytest.approx(2 * math.sqrt(7.56), rel=2e-3)
+    assert precision_limit(0.5, 4, 30, 0.01) == pytest.approx(0.5 * math.sqrt(stats.f.ppf(0.99, 3, 30)), rel=1e-12)
+
+
+def test_a_baseline_is_the_mean_and_sample_standard_deviation_of_its_values() -> None:
+    rng = np.random.default_rng(7)
+    values = 0.3333 + 2e-4 * rng.standard_normal(10)
+    spreads = 1e-4 * (1 + rng.random(10))
+    base = make_baseline([ChartPoint(float(v), float(s), 3) for v, s in zip(values, spreads, strict=True)])
+    # numpy as the reference: the mean and the sample standard deviation (ddof = 1).
+    assert base.center == pytest.approx(np.mean(values), rel=1e-15)
+    assert base.process_std == pytest.approx(np.std(values, ddof=1), rel=1e-12)
+    assert base.pooled_std == pytest.approx(math.sqrt(np.mean(spreads**2)), rel=1e-12)
+    assert base.pooled_dof == 20
+    assert base.upper - base.center == pytest.approx(stats.t.ppf(1 - 0.00135, 9) * np.std(values, ddof=1))
+
+
+CHART = Baseline(count=10, center=0.0, process_std=1.0, limit_factor=4.09)
+
+
+@pytest.mark.parametrize(("series", "rule"), [
+    ([0.2, -0.5, 4.5], BEYOND_LIMITS),
+    ([2.5, 0.5, 2.2], TWO_OF_THREE),
+    ([-2.5, 0.5, -2.2], TWO_OF_THREE),
+    ([1.5, 1.2, -0.2, 1.1, 1.3], FOUR_OF_FIVE),
+    ([0.3, 0.1, 0.6, 0.2, 0.4, 0.1, 0.5, 0.2], EIGHT_ON_ONE_SIDE),
+    ([-0.9, -0.6, -0.2, 0.1, 0.4, 0.8], SIX_TRENDING),
+    ([0.8, 0.4, 0.1, -0.2, -0.6, -0.9], SIX_TRENDING),
+])
+def test_each_run_rule_fires_on_its_pattern(series: list[float], rule: str) -> None:
+    # Patterns by construction from the rules' own statements (Western Electric Statistical
+    # Quality Control Handbook, 1956; Nelson 1984, test 3), in units of the baseline's s.
+    assert rule in run_rule_signals(series, CHART)
+    assert run_rule_signals(series[:-1], CHART) == ()  # the last point completes the pattern
+
+
+@pytest.mark.parametrize("series", [
+    [0.5, -0.4, 0.9, -1.2, 0.3, 0.0, -0.7, 1.1],
+    [2.5, 0.5, -2.2],          # beyond 2 s on opposite sides
+    [1.5, 1.2, -0.2, -1.1, 1.3],
+    [0.3, 0.1, 0.6, 0.2, 0.4, 0.1, -0.5, 0.2],
+    [-0.9, -0.6, -0.2, 0.1, 0.4, 0.3],
+])
+def test_no_rule_fires_on_ordinary_scatter(series: list[float]) -> None:
+    assert run_rule_signals(series, CHART) == ()
+
+
+def test_a_slow_drift_is_caught_by_the_run_rules_long_before_a_point_crosses_the_limits() -> None:
+    # A check standard drifting by 0.3 s per check: noise-free, so the answer is known.  The
+    # limits (4.09 s for K = 10) are crossed at the 14th point; the trend rule fires at the
+    # 6th, the 4-of-5 rule at the 5th (points 4.. beyond 1 s).
+    rng = np.random.default_rng(11)
+    baseline = [ChartPoint(float(v)) for v in rng.standard_normal(10)]
+    base = make_baseline(baseline)
+    drift = [ChartPoint(base.center + 0.3 * base.process_std * (i + 1)) for i in range(20)]
+    _, judged = judge_series(baseline + drift, 10)
+    first_signal = next(i for i, j in enumerate(judged[10:]) if j.signals)
+    first_beyond = next(i for i, p in enumerate(drift) if p.value > base.upper)
+    assert first_signal <= 5 < first_beyond
+    assert SIX_TRENDING in judged[10 + 5].signals or FOUR_OF_FIVE in judged[10 + first_signal].signals
+
+
+def test_the_baseline_leaves_out_checks_that_disagreed_and_rules_restart_after_a_signal() -> None:
+    points = [ChartPoint(v) for v in (0.1, -0.1, 0.05, 9.0, -0.05, 0.0)] + [ChartPoint(5.0), ChartPoint(0.02)]
+    usable = [True, True, True, False, True, True, True, True]
+    base, judged = judge_series(points, 5, usable=usable)
+    assert base is not None and base.count == 5 and base.center == pytest.approx(0.0)
+    assert [j.signals for j in judged[:6]] == [None] * 6      # the baseline, and the bad check within it
+    assert BEYOND_LIMITS in judged[6].signals                # far beyond
+    assert judged[7].signals == ()                           # counted afresh after the signal
+    none, building = judge_series(points[:4], 5)
+    assert none is None and all(j.signals is None for j in building)
+
+
+def test_a_widened_short_term_spread_is_flagged_by_the_precision_chart() -> None:
+    baseline = [ChartPoint(0.0 + 0.01 * i, 1.0, 3) for i in range(-5, 5)]
+    base = make_baseline(baseline)
+    limit = base.precision_limit(3)
+    assert limit == pytest.approx(math.sqrt(stats.f.ppf(0.99, 2, 20)))
+    _, judged = judge_series([*baseline, ChartPoint(0.0, 0.9 * limit, 3), ChartPoint(0.0, 1.1 * limit, 3)], 10)
+    assert judged[10].signals == () and judged[11].signals == (SPREAD_TOO_WIDE,)
