@@ -13,7 +13,8 @@ import pytest
 
 from lineproof import two_port
 from lineproof.calibration import make_record
-from lineproof.uncertainty import ThroughPath, _vector
+from lineproof.two_port_residuals import ThroughPath
+from lineproof.uncertainty import _vector
 from lineproof.values import InstrumentIdentity, SweepPlan
 
 F = np.array([1e9])
