@@ -25,39 +25,58 @@ import numpy as np
 
 
 @dataclass(frozen=True, eq=False)
+class ThruView:
+    """The thru as one direction's load match L was found with, per point: the factor
+    (1 - t22 L)² / (t21 t12) and its reading Γthru = t11 + t21 t12 L / (1 - t22 L).  The same
+    for every device a calibration corrects: made once (:func:`thru_view`)."""
+
+    factor: np.ndarray
+    reading: np.ndarray
+
+
+def thru_view(residuals: Mapping[str, np.ndarray], load_match: np.ndarray, seen_from_port2: bool = False) -> ThruView:
+    """The :class:`ThruView` of a calibration's direction, from the thru's model it kept
+    (``thru.*`` residual arrays; a flush thru when it kept none); ``seen_from_port2``: for
+    S22, the thru turned round."""
+    if "thru.s21s12" not in residuals:  # flush: t11 = t22 = 0, t21 t12 = 1
+        return ThruView(np.ones(np.shape(load_match), complex), np.asarray(load_match, complex))
+    near, far = ("thru.s22", "thru.s11") if seen_from_port2 else ("thru.s11", "thru.s22")
+    t11, t21t12, t22 = residuals[near], residuals["thru.s21s12"], residuals[far]
+    inverse = 1 / (1 - t22 * load_match)
+    return ThruView(1 / (inverse * inverse * t21t12), t11 + t21t12 * load_match * inverse)
+
+
+@dataclass(frozen=True, eq=False)
 class ThroughPath:
     """What carries the calibration's residual errors into a corrected S11 of full two-port
     data (or into S22, seen from port 2): S21 S12 of the device, the reflection of its far
-    port, the analyzer's load match at that port, and the thru the load match was found with
-    (its reflection facing this port, S21 S12 and its far reflection; None: a flush thru)."""
+    port, the analyzer's load match at that port, and the thru that load match was found
+    with."""
 
     product: np.ndarray
     far_reflection: np.ndarray
     load_match: np.ndarray
-    thru: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
+    thru: ThruView
 
     def vector(self, gamma: np.ndarray, gamma_squared: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(1 - K, Γin - K Γthru, Γin² - K Γthru²) for the corrected reading ``gamma`` (and its square)."""
-        load = self.load_match
-        near = 1 - self.far_reflection * load
-        reading = gamma + self.product * load / near
-        if self.thru is None:  # flush: t11 = t22 = 0, t21 t12 = 1
-            scale, thru_reading = self.product / (near * near), load
-        else:
-            t11, t21t12, t22 = self.thru
-            far = 1 - t22 * load
-            scale = self.product * (far * far) / (near * near * t21t12)
-            thru_reading = t11 + t21t12 * load / far
-        scaled = scale * thru_reading
-        return 1 - scale, reading - scaled, reading * reading - scaled * thru_reading
+        inverse = 1 / (1 - self.far_reflection * self.load_match)  # 1 / (1 - S22 L)
+        reading = self.product * self.load_match
+        reading *= inverse
+        reading += gamma
+        scale = self.product * self.thru.factor
+        scale *= inverse
+        scale *= inverse
+        scaled = scale * self.thru.reading
+        first = reading - scaled
+        reading *= reading
+        reading -= scaled * self.thru.reading
+        return 1 - scale, first, reading
 
 
 def through_path(residuals: Mapping[str, np.ndarray], product: np.ndarray, far_reflection: np.ndarray,
-                 load_match: np.ndarray, seen_from_port2: bool = False) -> ThroughPath:
-    """The :class:`ThroughPath` of a reading, with the calibration's thru model when it kept
-    one (``thru.*`` residual arrays; a flush thru otherwise); ``seen_from_port2``: for S22,
-    the thru turned round."""
-    if "thru.s21s12" not in residuals:
-        return ThroughPath(product, far_reflection, load_match)
-    near, far = ("thru.s22", "thru.s11") if seen_from_port2 else ("thru.s11", "thru.s22")
-    return ThroughPath(product, far_reflection, load_match, (residuals[near], residuals["thru.s21s12"], residuals[far]))
+                 load_match: np.ndarray, seen_from_port2: bool = False, thru: ThruView | None = None) -> ThroughPath:
+    """The :class:`ThroughPath` of a reading (``thru``: the calibration's :func:`thru_view`,
+    made here when not given)."""
+    return ThroughPath(product, far_reflection, load_match,
+                       thru if thru is not None else thru_view(residuals, load_match, seen_from_port2))

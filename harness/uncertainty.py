@@ -42,9 +42,7 @@ import numpy as np
 
 from lineproof.calkit import CalKit, StandardDefinition, ideal_reflection, varied
 from lineproof.metrics import vswr_from_reflection
-from lineproof.two_port_residuals import ThroughPath, through_path
-
-__all__ = ["ThroughPath", "through_path"]  # how two-port data carry the residuals (see that module)
+from lineproof.two_port_residuals import ThroughPath
 
 LOAD_INPUT = "load reflection"
 #: Step for the numerical sensitivity of a standard's model to one of its values.
@@ -433,7 +431,7 @@ def reflection_uncertainty(
         if transmission is not None:
             # the connection at the device's far port reaches S11 through S21 S12, and the
             # thru's own connection through the load match it gave (K = 1 - v0, see _vector)
-            reach = np.sqrt((reach + np.abs(transmission.product)) ** 2 + _power(1 - v0))  # type: ignore[operator]
+            reach = np.hypot(reach + np.abs(transmission.product), np.abs(1 - v0))  # type: ignore[operator]
         if settings.switch_path_mismatch:
             reach *= np.sqrt(settings.connection_variance(f) / 2)
         else:
