@@ -93,6 +93,9 @@ def test_an_unattended_full_two_port_batch(tmp_path: Path) -> None:
                             ).fetchall()
     assert method == "full two-port SOLT (12-term)" and losses == [(24,)]
     metadata = check_records_agree(tmp_path / "rec", run_id)
+    # scikit-rf gives back every metadata line the file holds, each key once
+    written = (tmp_path / "rec" / "runs" / run_id / "TM150-0104.s2p").read_text(encoding="ascii")
+    assert written.count("!lineproof: ") == len(metadata["TM150-0104"]) > 100
     for serial, keys in metadata.items():
         assert FULL_METADATA | TWO_PORT_KEYS <= set(keys), (serial, FULL_METADATA | TWO_PORT_KEYS - set(keys))
         assert keys["figures.judged"] == "as-terminated, insertion-loss"
