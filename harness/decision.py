@@ -52,3 +52,21 @@ def judge_upper_limit(
     if rule == "guard-banded-binary" or bool(np.any(values - u > limit)):
         return Verdict.FAIL
     return Verdict.INDETERMINATE
+
+
+def judge_extremes(worst: float, limit: float, rule: DecisionRule, worst_upper: float | None = None,
+                   worst_lower: float | None = None) -> Verdict:
+    """:func:`judge_upper_limit` from a band's extremes, when the caller has them already:
+    the largest value, the largest value + U and the largest value - U (every point is within
+    a limit exactly when the largest is, so the verdicts are the same)."""
+    if rule not in RULE_TEXT:
+        raise ValueError(f"unknown decision rule {rule!r}; use one of {', '.join(RULE_TEXT)}")
+    if rule == "simple":
+        return Verdict.PASS if worst <= limit else Verdict.FAIL
+    if worst_upper is None or worst_lower is None:
+        raise ValueError("guard-banded acceptance needs an expanded uncertainty")
+    if worst_upper <= limit:
+        return Verdict.PASS
+    if rule == "guard-banded-binary" or worst_lower > limit:
+        return Verdict.FAIL
+    return Verdict.INDETERMINATE

@@ -28,13 +28,9 @@ from datetime import UTC, datetime
 import numpy as np
 
 from lineproof import metrics, two_port
-from lineproof.decision import RULE_TEXT, DecisionRule, judge_upper_limit
-from lineproof.uncertainty import (
-    UncertaintySettings,
-    reflection_uncertainty,
-    through_path,
-    transmission_relative_uncertainty,
-)
+from lineproof.decision import RULE_TEXT, DecisionRule, judge_extremes
+from lineproof.two_port_residuals import ThruView, through_path, thru_view
+from lineproof.uncertainty import UncertaintySettings, reflection_uncertainty, transmission_relative_uncertainty
 from lineproof.values import (
     BandLimit,
     BandResult,
@@ -87,16 +83,19 @@ def figure_limit(name: str, band: BandLimit) -> float | None:
     return None if limit >= 1.0 else limit
 
 
-def _band_figure(trace: FigureTrace, frequencies: np.ndarray, indices: np.ndarray, band: BandLimit,
+def _band_figure(trace: FigureTrace, frequencies: np.ndarray, band_points: slice, band: BandLimit,
                  rule: DecisionRule, judged: bool) -> FigureResult:
-    values = trace.values[indices]
-    worst = int(np.argmax(values))
-    u = None if trace.expanded is None else trace.expanded[indices]
+    values = trace.values[band_points]
+    worst = int(values.argmax())
     limit = figure_limit(trace.name, band)
-    verdict = judge_upper_limit(values, limit, u, rule) if judged and limit is not None else None
-    return FigureResult(trace.name, float(values[worst]), float(frequencies[indices[worst]]), float(np.mean(values)),
-                        limit, None if u is None else float(np.max(u)),
-                        None if u is None else float(np.max(values + u)), verdict)
+    u = upper = lower = None
+    if trace.expanded is not None:
+        u = float(trace.expanded[band_points].max())
+        upper = float((values + trace.expanded[band_points]).max())
+        lower = float((values - trace.expanded[band_points]).max())
+    verdict = judge_extremes(float(values[worst]), limit, rule, upper, lower) if judged and limit is not None else None
+    return FigureResult(trace.name, float(values[worst]), float(frequencies[band_points.start + worst]),
+                        float(values.mean()), limit, u, upper, verdict)
 
 
 def _markers(frequencies: np.ndarray, band: BandLimit, markers: Mapping[str, float], headline: FigureTrace,
@@ -117,7 +116,8 @@ def _band_result(band: BandLimit, frequencies: np.ndarray, traces: Sequence[Figu
     indices = metrics.band_indices(frequencies, band)
     if indices.size == 0:
         raise ValueError(f"band {band.name} ({band.start_hz / 1e6:g}-{band.stop_hz / 1e6:g} MHz) holds no sweep point")
-    figures = tuple(_band_figure(trace, frequencies, indices, band, rule, trace.name in judged) for trace in traces)
+    points = slice(int(indices[0]), int(indices[-1]) + 1)  # a band is a run of sweep points
+    figures = tuple(_band_figure(trace, frequencies, points, band, rule, trace.name in judged) for trace in traces)
     head = figures[0]
     loss_trace = next((t for t in traces if t.name == INSERTION_LOSS), None)
     loss = next((f for f in figures if f.figure == INSERTION_LOSS), None)
@@ -152,33 +152,48 @@ def headline_first(traces: Sequence[FigureTrace], judged: Collection[str]) -> li
 # -- two-port figures --------------------------------------------------------------------------
 
 
+def thru_views(cal: CalibrationRecord) -> dict[str, ThruView]:
+    """How the thru carries the residuals into each direction's corrected reflection: the same
+    for every device a calibration corrects, so a run makes it once per calibration."""
+    return {name: thru_view(cal.residuals, cal.terms[f"{direction}.load_match"], _prefix(cal, name) == "port2")
+            for name, direction in ((INPUT_MATCH, "forward"), (OUTPUT_MATCH, "reverse"))}
+
+
+def _prefix(cal: CalibrationRecord, name: str) -> str:
+    """The residual model of the port a match figure was measured at (a one-path calibration
+    measured the output at port 1, with the forward terms as the reverse ones)."""
+    prefix = "port1" if name == INPUT_MATCH else "port2"
+    return prefix if f"{prefix}.variance" in cal.residuals else "port1"
+
+
 def two_port_figures(cal: CalibrationRecord, frequencies: np.ndarray, s: two_port.Traces,
                      settings: UncertaintySettings, termination: tuple[np.ndarray, np.ndarray] | None = None,
-                     ) -> list[FigureTrace]:
+                     views: Mapping[str, ThruView] | None = None) -> list[FigureTrace]:
     """Input match, output match and insertion loss of corrected traces ``s`` (S11, S21, S12,
     S22), and -- with ``termination`` (its measured reflection and the standard uncertainty
-    of that, on this grid) -- the as-terminated figure computed from them."""
+    of that, on this grid) -- the as-terminated figure computed from them.  ``views``: the
+    calibration's :func:`thru_views` when made already."""
     s11, s21, s12, s22 = s
+    views = views or thru_views(cal)
     product = s21 * s12
     through = np.abs(s21)
     relative = transmission_relative_uncertainty(cal.residuals, s11, s21, s22, settings, s21_magnitude=through)
-    found = [_match(cal, frequencies, s11, s22, product, settings, INPUT_MATCH),
-             _match(cal, frequencies, s22, s11, product, settings, OUTPUT_MATCH),
+    found = [_match(cal, frequencies, s11, s22, product, settings, INPUT_MATCH, views[INPUT_MATCH]),
+             _match(cal, frequencies, s22, s11, product, settings, OUTPUT_MATCH, views[OUTPUT_MATCH]),
              FigureTrace(INSERTION_LOSS, metrics.insertion_loss_db(through),
                          (settings.coverage_factor or 2.0) * 20 / math.log(10) * relative)]
     if termination is not None:
-        found.insert(0, computed_as_terminated(cal, frequencies, s, settings, termination, relative))
+        found.insert(0, computed_as_terminated(cal, frequencies, s, settings, termination, relative,
+                                               views[INPUT_MATCH]))
     return found
 
 
 def _match(cal: CalibrationRecord, frequencies: np.ndarray, gamma: np.ndarray, far: np.ndarray, product: np.ndarray,
-           settings: UncertaintySettings, name: str) -> FigureTrace:
-    """S11 (port 1, forward load match) or S22 (port 2 and the reverse load match; a one-path
-    calibration measured the output at port 1, with the forward terms as the reverse ones)."""
-    prefix, direction = ("port1", "forward") if name == INPUT_MATCH else ("port2", "reverse")
-    if f"{prefix}.variance" not in cal.residuals:
-        prefix = "port1"
-    path = through_path(cal.residuals, product, far, cal.terms[f"{direction}.load_match"], prefix == "port2")
+           settings: UncertaintySettings, name: str, thru: ThruView) -> FigureTrace:
+    """S11 (port 1, forward load match) or S22 (port 2 and the reverse load match)."""
+    prefix = _prefix(cal, name)
+    direction = "forward" if name == INPUT_MATCH else "reverse"
+    path = through_path(cal.residuals, product, far, cal.terms[f"{direction}.load_match"], thru=thru)
     spread = reflection_uncertainty(cal.residuals, gamma, frequencies, settings, prefix=prefix,
                                     interpolation_error=cal.interpolation_error, transmission=path)
     return FigureTrace(name, spread.magnitude, spread.expanded, gamma)
@@ -186,7 +201,7 @@ def _match(cal: CalibrationRecord, frequencies: np.ndarray, gamma: np.ndarray, f
 
 def computed_as_terminated(cal: CalibrationRecord, frequencies: np.ndarray, s: two_port.Traces,
                            settings: UncertaintySettings, termination: tuple[np.ndarray, np.ndarray],
-                           transmission_relative: np.ndarray) -> FigureTrace:
+                           transmission_relative: np.ndarray, thru: ThruView | None = None) -> FigureTrace:
     """Γin = S11 + S21 S12 ΓL / (1 - S22 ΓL) with the termination's measured ΓL.
 
     Its uncertainty: that of S11 (the calibration's residuals, the residual load match through
@@ -204,7 +219,7 @@ def computed_as_terminated(cal: CalibrationRecord, frequencies: np.ndarray, s: t
     knowledge = np.sqrt(np.asarray(load_u) ** 2 + settings.repeatability(frequencies) ** 2 / 2)
     further = {"termination (as measured)": np.abs(product) / np.abs(denominator) ** 2 * knowledge,
                "transmission through the termination": 2 * transmission_relative * np.abs(through_load)}
-    path = through_path(cal.residuals, product, s22, cal.terms["forward.load_match"])
+    path = through_path(cal.residuals, product, s22, cal.terms["forward.load_match"], thru=thru)
     spread = reflection_uncertainty(cal.residuals, s11, frequencies, settings, reading=gamma_in,
                                     interpolation_error=cal.interpolation_error, transmission=path, further=further)
     return FigureTrace(AS_TERMINATED, spread.magnitude, spread.expanded, gamma_in)

@@ -22,6 +22,7 @@ import numpy as np
 from lineproof import calibration, figures, steps, two_port, two_port_steps
 from lineproof.decision import DecisionRule
 from lineproof.recording import MeasurementBasis
+from lineproof.two_port_residuals import ThruView
 from lineproof.values import BandLimit, DeviceIdentity, DeviceResult
 
 
@@ -95,7 +96,8 @@ class TwoPortDevices:
         self.method = method  # the calibration's (a long name of lineproof.calibration)
         self.judged = tuple(judged)
         self.as_terminated = as_terminated
-        self._corrections: dict[str, two_port.TwelveTermCorrection] = {}
+        #: per calibration id: its prepared correction and thru views (the same for every device)
+        self._prepared: dict[str, tuple[two_port.TwelveTermCorrection, dict[str, ThruView]]] = {}
 
     def connect(self, device: DeviceIdentity, termination: str) -> None:
         two_port_steps.connect_between_ports(self.station, device)
@@ -113,17 +115,18 @@ class TwoPortDevices:
                                                        terminated_on=terminated_on)
         return Acquired(frequencies, raw)
 
-    def _correction(self, basis: MeasurementBasis) -> two_port.TwelveTermCorrection:
+    def _prepare(self, basis: MeasurementBasis) -> tuple[two_port.TwelveTermCorrection, dict[str, ThruView]]:
         cal = basis.calibration
-        if cal.calibration_id not in self._corrections:  # prepared once per calibration
-            self._corrections[cal.calibration_id] = two_port.TwelveTermCorrection(cal)
-        return self._corrections[cal.calibration_id]
+        if cal.calibration_id not in self._prepared:  # once per calibration
+            self._prepared[cal.calibration_id] = (two_port.TwelveTermCorrection(cal), figures.thru_views(cal))
+        return self._prepared[cal.calibration_id]
 
     def evaluate(self, device: DeviceIdentity, acquired: Acquired, basis: MeasurementBasis) -> Evaluated:
         f, raw = acquired.frequencies_hz, acquired.raw
-        s = two_port_steps.correct_device(self._correction(basis), f, raw)
+        correction, views = self._prepare(basis)
+        s = two_port_steps.correct_device(correction, f, raw)
         found = two_port_steps.device_figures(self.station, basis.calibration, f, s, basis.termination_data,
-                                              raw.get(two_port_steps.TERMINATED))
+                                              raw.get(two_port_steps.TERMINATED), views)
         ordered = figures.headline_first(found, self.judged)
         result = figures.judge_figures(device, f, ordered, self.bands, self.rule, self.judged,
                                        termination=basis.qualification)

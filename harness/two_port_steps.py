@@ -19,6 +19,7 @@ from lineproof.decision import DecisionRule
 from lineproof.deembed import Adapter, remove_from_two_port
 from lineproof.errors import CalibrationError
 from lineproof.steps import QualifiedTermination, Station, device_uncertainty
+from lineproof.two_port_residuals import ThruView
 from lineproof.uncertainty import residual_model, transmission_model
 from lineproof.values import BandLimit, CalibrationRecord, DeviceIdentity, DeviceResult
 
@@ -157,7 +158,7 @@ def measure_s(station: Station, cal: CalibrationRecord, device: DeviceIdentity) 
 
 def device_figures(station: Station, cal: CalibrationRecord, frequencies: np.ndarray, s: two_port.Traces,
                    termination: QualifiedTermination | None, terminated_raw: np.ndarray | None = None,
-                   ) -> list[figures.FigureTrace]:
+                   views: Mapping[str, ThruView] | None = None) -> list[figures.FigureTrace]:
     """The figures of corrected traces ``s``: input and output match, insertion loss, and the
     as-terminated figure -- measured (``terminated_raw``, the device's output on the
     termination) or computed from the S-parameters and the termination's measured reflection."""
@@ -166,7 +167,7 @@ def device_figures(station: Station, cal: CalibrationRecord, frequencies: np.nda
         if not calibration.same_grid(termination.frequencies_hz, frequencies):
             raise CalibrationError(f"termination {termination.name} was qualified on another sweep")
         known = (termination.reflection, termination.standard_uncertainty)
-    found = figures.two_port_figures(cal, frequencies, s, station.uncertainty, known)
+    found = figures.two_port_figures(cal, frequencies, s, station.uncertainty, known, views)
     if terminated_raw is not None:
         corrected = calibration.correct_one_port(cal, frequencies, terminated_raw)
         spread = device_uncertainty(station, cal, frequencies, corrected, termination)

@@ -42,6 +42,7 @@ import numpy as np
 
 from lineproof.calkit import CalKit, StandardDefinition, ideal_reflection, varied
 from lineproof.metrics import vswr_from_reflection
+from lineproof.two_port_residuals import ThroughPath
 
 LOAD_INPUT = "load reflection"
 #: Step for the numerical sensitivity of a standard's model to one of its values.
@@ -205,17 +206,6 @@ def transmission_model(kit: CalKit, frequencies_hz: np.ndarray, settings: Uncert
             "thru.s22": thru[:, 1, 1].astype(complex)}
 
 
-def through_path(residuals: Mapping[str, np.ndarray], product: np.ndarray, far_reflection: np.ndarray,
-                 load_match: np.ndarray, seen_from_port2: bool = False) -> ThroughPath:
-    """The :class:`ThroughPath` of a reading, with the calibration's thru model when it kept
-    one (a flush thru otherwise); ``seen_from_port2``: for S22, the thru turned round."""
-    if "thru.s21s12" not in residuals:
-        return ThroughPath(product, far_reflection, load_match)
-    near, far = ("thru.s22", "thru.s11") if seen_from_port2 else ("thru.s11", "thru.s22")
-    return ThroughPath(product, far_reflection, load_match,
-                       (residuals[near], residuals["thru.s21s12"], residuals[far]))
-
-
 def add_specified_residuals(residuals: Mapping[str, np.ndarray], prefix: str, directivity: np.ndarray | float,
                             tracking: np.ndarray | float, source_match: np.ndarray | float) -> dict[str, np.ndarray]:
     """Add residual terms stated as bounds of unknown phase -- |ΔΓ| <= D + T|Γ| + M|Γ|², from
@@ -243,48 +233,14 @@ def residuals_from_check_standard(known: np.ndarray, measured: np.ndarray, expec
     return math.sqrt(2) * missing / np.sqrt(1 + g**2 + g**4)
 
 
-@dataclass(frozen=True, eq=False)
-class ThroughPath:
-    """What carries the calibration's residual errors into a corrected S11 of full two-port
-    data (or into S22, seen from port 2): S21 S12 of the device, the reflection of its far
-    port, the analyzer's load match at that port, and the thru the load match was found with
-    (its reflection facing this port, S21 S12 and its far reflection; None: a flush thru)."""
-
-    product: np.ndarray
-    far_reflection: np.ndarray
-    load_match: np.ndarray
-    thru: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
-
-
 def _vector(gamma: np.ndarray, gamma_squared: np.ndarray,
             path: ThroughPath | None) -> tuple[np.ndarray | None, np.ndarray, np.ndarray]:
     """The components (v0, v1, v2) of the vector the residual coefficients (D, τ, M) multiply:
-    (1, Γ, Γ²) for a one-port reading (v0 None: exactly 1).
-
-    With full two-port data the residual polynomial p acts twice (first order): on the reading
-    through port 1, Γin = S11 + S21 S12 L / (1 - S22 L) with L the load match, and -- with
-    the opposite sign, scaled -- on the load match the thru gave, δL = p(Γthru) (1 - t22 L)² /
-    (t21 t12) with Γthru = t11 + t21 t12 L / (1 - t22 L), which S11's correction removes as
-    S21 S12 δL / (1 - S22 L)².  So δS11 = p(Γin) - K p(Γthru), K = S21 S12 (1 - t22 L)² /
-    ((1 - S22 L)² t21 t12), and v = (1 - K, Γin - K Γthru, Γin² - K Γthru²): a device like the
-    thru reads as the thru was defined (K = 1, Γin = Γthru), whatever the residuals.  The other
-    port's residuals reach S11 only through S22 L and are left out.  tests/unit/test_two_port_residuals.py
-    holds this against the 12-term correction itself."""
+    (1, Γ, Γ²) for a one-port reading (v0 None: exactly 1); with full two-port data, see
+    :meth:`lineproof.two_port_residuals.ThroughPath.vector`."""
     if path is None:
         return None, gamma, gamma_squared
-    load = path.load_match
-    near = 1 - path.far_reflection * load
-    through_load = path.product * load / near
-    reading = gamma + through_load
-    if path.thru is None:  # flush: t11 = t22 = 0, t21 t12 = 1
-        scale, thru_reading = path.product / (near * near), load
-    else:
-        t11, t21t12, t22 = path.thru
-        far = 1 - t22 * load
-        scale = path.product * (far * far) / (near * near * t21t12)
-        thru_reading = t11 + t21t12 * load / far
-    scaled = scale * thru_reading
-    return 1 - scale, reading - scaled, reading * reading - scaled * thru_reading
+    return path.vector(gamma, gamma_squared)
 
 
 def _power(values: np.ndarray) -> np.ndarray:
@@ -475,7 +431,7 @@ def reflection_uncertainty(
         if transmission is not None:
             # the connection at the device's far port reaches S11 through S21 S12, and the
             # thru's own connection through the load match it gave (K = 1 - v0, see _vector)
-            reach = np.sqrt((reach + np.abs(transmission.product)) ** 2 + _power(1 - v0))  # type: ignore[operator]
+            reach = np.hypot(reach + np.abs(transmission.product), np.abs(1 - v0))  # type: ignore[operator]
         if settings.switch_path_mismatch:
             reach *= np.sqrt(settings.connection_variance(f) / 2)
         else:

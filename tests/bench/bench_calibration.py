@@ -16,13 +16,13 @@ import numpy as np
 import skrf
 from skrf.calibration import SOLT, OnePort, TwelveTerm
 
-from lineproof import calibration, metrics, steps, two_port
+from lineproof import calibration, figures, metrics, steps, two_port
 from lineproof.calkit import load_kit
+from lineproof.two_port_residuals import through_path, thru_view
 from lineproof.uncertainty import (
     UncertaintySettings,
     reflection_uncertainty,
     residual_model,
-    through_path,
     transmission_model,
     transmission_uncertainty_traces_db,
 )
@@ -106,10 +106,11 @@ def two_port_processing() -> None:
     traces = tuple(np.ascontiguousarray(raw[:, i, j]) for i, j in ((0, 0), (1, 0), (0, 1), (1, 1)))
     identity = DeviceIdentity("TC20-0001", "TC-20")
     correction = two_port.TwelveTermCorrection(cal)  # once per calibration, as a run does
+    thru = thru_view(cal.residuals, cal.terms["forward.load_match"])  # likewise
 
     def ours() -> object:
         s11, s21, s12, s22 = correction.apply(F, *traces)
-        path = through_path(cal.residuals, s21 * s12, s22, cal.terms["forward.load_match"])
+        path = through_path(cal.residuals, s21 * s12, s22, cal.terms["forward.load_match"], thru=thru)
         spread = reflection_uncertainty(cal.residuals, s11, F, SETTINGS, transmission=path)
         through = np.abs(s21)
         loss = metrics.insertion_loss_db(through)
@@ -127,6 +128,18 @@ def two_port_processing() -> None:
         return reference.apply_cal(network)
 
     report("2-port: correction + metrics + uncertainty + decision", ours, "TwelveTerm.apply_cal", library, 1.0)
+    # what a two-port run does per device: all four figures, each with its uncertainty, judged
+    views = figures.thru_views(cal)
+    termination = (np.full(POINTS, 0.01 + 0.005j), np.full(POINTS, 0.002))
+
+    def every_figure() -> object:
+        s = correction.apply(F, *traces)
+        found = figures.two_port_figures(cal, F, s, SETTINGS, termination, views)
+        judged = (figures.AS_TERMINATED, figures.INSERTION_LOSS)
+        return figures.judge_figures(identity, F, figures.headline_first(found, judged), BANDS, "guard-banded", judged)
+
+    report("2-port: the four figures of a run (as-terminated, input and output match, insertion loss)", every_figure,
+           "TwelveTerm.apply_cal", library, None)
     # for scale: scikit-rf's two-port apply_cal is itself a vectorised closed form
     report("2-port: correction alone", lambda: correction.apply(F, *traces), "TwelveTerm.apply_cal",
            library, None)

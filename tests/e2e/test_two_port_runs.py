@@ -93,6 +93,9 @@ def test_an_unattended_full_two_port_batch(tmp_path: Path) -> None:
                             ).fetchall()
     assert method == "full two-port SOLT (12-term)" and losses == [(24,)]
     metadata = check_records_agree(tmp_path / "rec", run_id)
+    # scikit-rf gives back every metadata line the file holds, each key once
+    written = (tmp_path / "rec" / "runs" / run_id / "TM150-0104.s2p").read_text(encoding="ascii")
+    assert written.count("!lineproof: ") == len(metadata["TM150-0104"]) > 100
     for serial, keys in metadata.items():
         assert FULL_METADATA | TWO_PORT_KEYS <= set(keys), (serial, FULL_METADATA | TWO_PORT_KEYS - set(keys))
         assert keys["figures.judged"] == "as-terminated, insertion-loss"
@@ -147,3 +150,27 @@ def test_an_attended_one_path_check_turns_the_device_round(tmp_path: Path) -> No
     assert metadata["operator"] == "A. Tester" and metadata["verdict"] == "pass"
     check_against_truth(compare_with_truth(tmp_path / "rec", "serial-bench",
                                            {"start_hz": 1e6, "stop_hz": 31e6, "points": 101}))
+
+
+def test_an_unattended_one_path_run_turns_the_device_round_by_switch(tmp_path: Path) -> None:
+    # tests/scenarios/one-path-switch-bench.toml: a forward-only analyzer; channel 1!8 puts the
+    # adapter between the ports turned round.  The adapter is not the same seen from either end.
+    sequence = Path(__file__).parent.parent / "sequences" / "one-path-switch.toml"
+    completed = run_cli("run", str(sequence), "--records", "rec", cwd=tmp_path)
+    assert completed.returncode == 0, completed.stdout + completed.stderr
+    assert "calibration method: one-path, chosen by lineproof" in completed.stdout
+    with sqlite3.connect(tmp_path / "rec" / "results.sqlite") as db:
+        (run_id,), = db.execute("SELECT run_id FROM runs").fetchall()
+    check_records_agree(tmp_path / "rec", run_id)
+    grid = {"start_hz": 10e6, "stop_hz": 500e6, "points": 201}
+    truth, _ = truths(str(Path(__file__).parent.parent / "scenarios" / "one-path-switch-bench.toml"), ["ADNU-0001"],
+                      grid)
+    true = truth["ADNU-0001"]
+    measured = skrf.Network(str(next((tmp_path / "rec" / "runs" / run_id).glob("ADNU-0001.s2p")))).s
+    # each end reads as that end, not as the other: the second sweep came through the reversed route
+    for near, far in ((0, 1), (1, 0)):
+        assert np.max(np.abs(measured[:, near, near] - true[:, near, near])) < 0.5 * np.max(
+            np.abs(measured[:, near, near] - true[:, far, far]))
+    found = compare_with_truth(tmp_path / "rec", str(Path(__file__).parent.parent / "scenarios" /
+                                                     "one-path-switch-bench.toml"), grid)
+    assert all(share["inside"] == 1.0 for share in found.values()), found

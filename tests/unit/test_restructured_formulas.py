@@ -12,6 +12,7 @@ import pytest
 from lineproof import metrics, two_port
 from lineproof.calibration import make_record
 from lineproof.calkit import load_kit
+from lineproof.decision import judge_extremes, judge_upper_limit
 from lineproof.uncertainty import (
     UncertaintySettings,
     _quadratic_forms,
@@ -124,3 +125,15 @@ def test_the_twelve_term_correction_is_unchanged() -> None:
 def test_band_points_are_unchanged(start: float, stop: float) -> None:
     band = BandLimit("b", start, stop, 1.5)
     np.testing.assert_array_equal(metrics.band_indices(F, band), before.band_indices(F, band))
+
+
+@pytest.mark.parametrize("rule", ["simple", "guard-banded", "guard-banded-binary"])
+def test_judging_a_band_from_its_extremes_is_judging_every_point(rule: str) -> None:
+    for _ in range(500):
+        values = RNG.uniform(0.0, 0.2, RNG.integers(1, 12))
+        u = RNG.uniform(0.0, 0.03, values.size)
+        limit = float(RNG.uniform(0.05, 0.2))
+        every_point = judge_upper_limit(values, limit, u, rule)  # type: ignore[arg-type]
+        extremes = judge_extremes(float(values.max()), limit, rule,  # type: ignore[arg-type]
+                                  float((values + u).max()), float((values - u).max()))
+        assert extremes is every_point

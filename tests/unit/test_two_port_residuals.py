@@ -1,5 +1,5 @@
 """How a calibration's residual errors reach a corrected S11 and S22 of full two-port data
-(lineproof.uncertainty.ThroughPath), held against the 12-term correction itself: random error
+(lineproof.two_port_residuals), held against the 12-term correction itself: random error
 terms and devices; calibrated one-port terms that leave a known residual p(Γ) = D + τΓ + MΓ²
 (a bilinear map, first order); the thru measured and solved with them as a real SOLT or
 one-path calibration does; the device corrected.  The first-order model must predict the
@@ -13,7 +13,8 @@ import pytest
 
 from lineproof import two_port
 from lineproof.calibration import make_record
-from lineproof.uncertainty import ThroughPath, _vector
+from lineproof.two_port_residuals import ThroughPath, thru_view
+from lineproof.uncertainty import _vector
 from lineproof.values import InstrumentIdentity, SweepPlan
 
 F = np.array([1e9])
@@ -84,8 +85,10 @@ def predicted(device: np.ndarray, load: complex, thru: np.ndarray, residual: tup
     """The modelled error of the corrected reflection at the measuring port (the device's
     port 1 as given), ``thru`` the thru as the load match ``load`` was solved with."""
     s, t = device[0], thru[0]
+    model = {"thru.s11": np.array([t[0, 0]]), "thru.s21s12": np.array([t[1, 0] * t[0, 1]]),
+             "thru.s22": np.array([t[1, 1]])}
     path = ThroughPath(np.array([s[1, 0] * s[0, 1]]), np.array([s[1, 1]]), np.array([load]),
-                       (np.array([t[0, 0]]), np.array([t[1, 0] * t[0, 1]]), np.array([t[1, 1]])))
+                       thru_view(model, np.array([load])))
     v0, v1, v2 = _vector(np.array([s[0, 0]]), np.array([s[0, 0] ** 2]), path)
     return complex(residual[0] * v0[0] + residual[1] * v1[0] + residual[2] * v2[0])
 
