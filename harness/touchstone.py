@@ -65,9 +65,11 @@ _ESCAPED = re.compile(r"\\(\\|u[0-9a-fA-F]{4}|U[0-9a-fA-F]{8})")
 
 
 def _clean_value(value: object) -> str:
-    """One line of ASCII text: whitespace runs become one space, '!' is spelt out, and a
-    backslash, a control character or a character beyond ASCII is escaped (\\\\, \\uXXXX) -- Touchstone files are ASCII."""
-    text = " ".join(str(value).replace("!", "(excl)").split())
+    """One line of ASCII text: whitespace runs become one space, and a backslash, a control
+    character or a character beyond ASCII is escaped (\\\\, \\uXXXX) -- Touchstone files are
+    ASCII.  A '!' inside a comment line is kept: scikit-rf 2.2 reads it back unchanged (tested),
+    so a SCPI channel list such as (@1!3) stays legible."""
+    text = " ".join(str(value).split())
     escaped = []
     for char in text:
         if char == "\\":

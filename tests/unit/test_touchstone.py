@@ -17,6 +17,7 @@ TRICKY = [
     ("analyzer.resource", "TCPIP::127.0.0.1::5025::SOCKET"),
     ("empty", ""),
     ("text", "two  spaces and ! bang"),
+    ("switch.route", "(@1!3,2!7)"),     # SCPI channel lists hold a bang
 ]
 
 
@@ -32,7 +33,8 @@ def test_metadata_survives_scikit_rf(tmp_path: Path) -> None:
     assert metadata["gamma.note"] == "Gamma 0.1 0.2"
     assert metadata["analyzer.resource"] == "TCPIP::127.0.0.1::5025::SOCKET"
     assert metadata["empty"] == ""
-    assert metadata["text"] == "two spaces and (excl) bang"
+    assert metadata["text"] == "two spaces and ! bang"
+    assert metadata["switch.route"] == "(@1!3,2!7)"
 
 
 def test_never_overwrites_and_leaves_no_partial_files(tmp_path: Path) -> None:
