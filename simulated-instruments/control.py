@@ -34,15 +34,18 @@ JSON object back.  Every request has ``"op"``; requests about an analyzer may na
 - ``status`` -> sweeps done, summed busy time, bench clock and temperature
 
 Errors come back as ``{"ok": false, "error": "<what was wrong and how to fix it>"}``; the
-connection stays open.  Unknown fields are refused, so a misspelt field is never ignored.
+connection stays open, whatever the line held (a field of the wrong JSON type, a number that is
+not finite, nesting too deep to read).  Unknown fields are refused, so a misspelt field is
+never ignored.
 """
 
 from __future__ import annotations
 
 import json
+import math
 import socket
 import socketserver
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
 from typing import Any
 
 import numpy as np
@@ -72,6 +75,16 @@ def _s_payload(s: np.ndarray) -> dict[str, dict[str, list[float]]]:
     if s.ndim == 1:
         return {"s11": _complex_payload(s)}
     return {f"s{i + 1}{j + 1}": _complex_payload(s[:, i, j]) for i in range(2) for j in range(2)}
+
+
+def _text_field(request: dict[str, Any], field: str, default: str, what: str, known: Iterable[str]) -> str:
+    """``request[field]`` when it is a string (a list or an object would otherwise reach a
+    dictionary lookup and fail there, unhashable)."""
+    value = request.get(field, default)
+    if not isinstance(value, str):
+        raise ControlRequestError(f"{field} must be a string ({what}), got {json.dumps(value)[:60]}; "
+                                  f"use one of {', '.join(known) or 'none'}")
+    return value
 
 
 #: The fields each op accepts besides "op" (and "instrument" for analyzer ops).
@@ -131,7 +144,7 @@ class BenchController:
     # -- request fields -------------------------------------------------------------------
 
     def _instrument(self, request: dict[str, Any]) -> SimulatedAnalyzer:
-        name = request.get("instrument", "analyzer")
+        name = _text_field(request, "instrument", "analyzer", "an analyzer's name", self.analyzers)
         if name not in self.analyzers:
             raise ControlRequestError(f"instrument: no analyzer named {name!r} on this bench; "
                                       f"use one of {', '.join(self.analyzers)}")
@@ -159,6 +172,10 @@ class BenchController:
         if not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in (start, stop)) \
                 or not isinstance(points, int) or isinstance(points, bool):
             raise ControlRequestError("start_hz and stop_hz must be numbers, points an integer")
+        if not (math.isfinite(start) and math.isfinite(stop)):
+            # Python's json reads Infinity, NaN and 1e400 (RFC 8259 §6 has no such numbers)
+            raise ControlRequestError(f"start_hz and stop_hz must be finite numbers of hertz, got {start!r} and "
+                                      f"{stop!r}; e.g. \"start_hz\": 1e6, \"stop_hz\": 3e9")
         if not (0 < start <= stop and 1 <= points <= _MAX_GRID_POINTS):
             raise ControlRequestError(f"a grid needs 0 < start_hz <= stop_hz and 1 <= points <= {_MAX_GRID_POINTS}")
         return np.linspace(float(start), float(stop), points)
@@ -236,8 +253,8 @@ class BenchController:
         if "direction" in request:
             if "port" in request:
                 raise ControlRequestError("error_terms takes port or direction, not both")
-            direction = request["direction"]
             terms = analyzer.direction_terms(grid, conditions)
+            direction = _text_field(request, "direction", "forward", "the driving direction", terms)
             if direction not in terms:
                 raise ControlRequestError(f"direction must be one of {', '.join(terms)} on a {model!r} analyzer, "
                                           f"got {direction!r}")
@@ -270,7 +287,7 @@ class BenchController:
         return {"bench_seconds": now.seconds, "temperature_c": now.temperature_c}
 
     def _fault_plan(self, request: dict[str, Any]) -> FaultPlan:
-        name = request.get("instrument", "analyzer")
+        name = _text_field(request, "instrument", "analyzer", "an instrument's name", self.faults)
         if name not in self.faults:
             raise ControlRequestError(f"instrument: no instrument named {name!r} on this bench; "
                                       f"use one of {', '.join(self.faults) or 'none'}")
@@ -307,6 +324,31 @@ class BenchController:
                                      "last_sweep_s": a.last_sweep_s} for name, a in self.analyzers.items()}}
 
 
+def _serve_line(controller: BenchController, line: bytes) -> dict[str, Any]:
+    """The reply to one request line: whatever is wrong with it comes back as an error reply,
+    and the connection stays open (PROTOCOLS.md §3)."""
+    try:
+        request = json.loads(line)
+    except json.JSONDecodeError as exc:
+        return {"ok": False, "error": f"not JSON ({exc.msg} at column {exc.colno}); "
+                                      'send one JSON object per line, e.g. {"op": "status"}'}
+    except UnicodeDecodeError:
+        return {"ok": False, "error": "not UTF-8 text; send one JSON object per line"}
+    except RecursionError:
+        return {"ok": False, "error": "JSON nested too deeply to read; send one flat JSON object per line, "
+                                      'e.g. {"op": "status"}'}
+    try:
+        return controller.handle(request)
+    except ControlRequestError as exc:
+        return {"ok": False, "error": str(exc)}
+    except (TypeError, ValueError, RecursionError) as exc:
+        # A field of a type no check above foresaw: an error reply, never a dropped link.
+        op = request.get("op") if isinstance(request, dict) else None
+        return {"ok": False, "error": f"{op}: the bench could not serve this request ({type(exc).__name__}: "
+                                      f"{str(exc)[:200]}); check each field's type against PROTOCOLS.md §3 "
+                                      "and the docstring of simulated-instruments/control.py"}
+
+
 class _ControlHandler(socketserver.StreamRequestHandler):
     def handle(self) -> None:
         controller: BenchController = self.server.context  # type: ignore[attr-defined]
@@ -323,16 +365,7 @@ class _ControlHandler(socketserver.StreamRequestHandler):
                                                "object per line"}
                 self._reply(reply)
                 continue
-            try:
-                reply = controller.handle(json.loads(line))
-            except json.JSONDecodeError as exc:
-                reply = {"ok": False, "error": f"not JSON ({exc.msg} at column {exc.colno}); "
-                                               'send one JSON object per line, e.g. {"op": "status"}'}
-            except UnicodeDecodeError:
-                reply = {"ok": False, "error": "not UTF-8 text; send one JSON object per line"}
-            except ControlRequestError as exc:
-                reply = {"ok": False, "error": str(exc)}
-            if not self._reply(reply):
+            if not self._reply(_serve_line(controller, line)):
                 return
 
     def _skip_rest_of_line(self) -> None:

@@ -10,6 +10,7 @@ from collections.abc import Iterator
 import pytest
 
 from lineproof.simulators.bench import SimulatedBench
+from lineproof.simulators.control import BenchController
 
 
 class RawControl:
@@ -70,6 +71,20 @@ def raw(start_bench) -> Iterator[RawControl]:
     (b'{"op": "status", "instrument": "analyzer7"}', "no analyzer named 'analyzer7'"),
     (b'{"op": "fault", "kind": "stall", "seconds": 0}', "seconds must be more than 0"),
     (b'{"op": "switch"}', "this bench has no switch matrix"),
+    # JSON values of the wrong type where a name is looked up (unhashable: once a TypeError
+    # that dropped the connection without a reply)
+    (b'{"op": "status", "instrument": [1]}', "instrument must be a string (an analyzer's name), got [1]"),
+    (b'{"op": "faults", "instrument": {}}', "instrument must be a string (an instrument's name), got {}"),
+    (b'{"op": "clear_faults", "instrument": [1]}', "instrument must be a string"),
+    (b'{"op": "error_terms", "direction": ["x"]}', 'direction must be a string (the driving direction), got ["x"]'),
+    (b'{"op": "fault", "instrument": [1], "kind": "drop"}', "instrument must be a string (an instrument's name)"),
+    (b"[" * 100000, "JSON nested too deeply"),
+    (b'{"op": "status", "pad": ' + b"[" * 100000 + b"]" * 100000 + b"}", "JSON nested too deeply"),
+    # Python's json reads these; RFC 8259 §6 has no such numbers, and a grid of them is NaN
+    (b'{"op": "truth", "port": 1, "start_hz": 1e8, "stop_hz": Infinity, "points": 3}',
+     "start_hz and stop_hz must be finite numbers of hertz"),
+    (b'{"op": "truth", "port": 1, "start_hz": NaN, "stop_hz": 1e9, "points": 3}', "must be finite numbers"),
+    (b'{"op": "error_terms", "port": 1, "start_hz": 1e8, "stop_hz": 1e400, "points": 3}', "must be finite numbers"),
 ])
 def test_malformed_requests_get_a_clear_error_and_the_line_stays_open(raw: RawControl, line: bytes,
                                                                       message: str) -> None:
@@ -90,3 +105,22 @@ def test_an_overlong_line_is_refused_without_closing(raw: RawControl) -> None:
     reply = raw.send(b'{"op": "status", "pad": "' + b"x" * (1 << 20) + b'"}')
     assert reply["ok"] is False
     assert raw.send(b'{"op": "status"}')["ok"] is True
+
+
+def test_an_unforeseen_failure_in_an_op_is_an_error_reply_not_a_dropped_link(
+        start_bench, monkeypatch: pytest.MonkeyPatch) -> None:
+    # The last line of defence: whatever TypeError, ValueError or RecursionError an op raises
+    # that no field check foresaw comes back as an error reply naming the op.
+    def fails(self: BenchController, request: dict) -> dict:
+        raise TypeError("unhashable type: 'list'")
+
+    monkeypatch.setattr(BenchController, "_op_devices", fails)
+    client = RawControl(start_bench("two-port-bench").control_address)
+    try:
+        reply = client.send(b'{"op": "devices"}')
+        assert reply["ok"] is False
+        assert reply["error"].startswith("devices: the bench could not serve this request (TypeError: unhashable")
+        assert "PROTOCOLS.md §3" in reply["error"]
+        assert client.send(b'{"op": "status"}')["ok"] is True
+    finally:
+        client.close()
