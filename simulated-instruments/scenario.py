@@ -22,10 +22,15 @@ The layout (every key optional unless said; see the shipped scenarios for worked
 
 The simulator reads the kit file itself, with its own code, and perturbs the standards so
 that they differ from the kit's nominal definitions the way real standards do.
+
+Every key is checked when the file is read (:mod:`.scenario_checks`): its type (a settings
+key's from its dataclass field), its range, and no unknown key or table anywhere; each problem
+is an :class:`InputError` with the file, the key, its line and the fix.
 """
 
 from __future__ import annotations
 
+import math
 import tomllib
 from dataclasses import dataclass, field
 from importlib import resources
@@ -39,15 +44,22 @@ from lineproof.simulators import objects as obj
 from lineproof.simulators.analyzer_sim import AnalyzerSimulationSettings
 from lineproof.simulators.drift import BenchEnvironment, DriftSettings, TemperatureProfile
 from lineproof.simulators.error_model import MODEL_DIRECTIONS, PortErrorSettings
-from lineproof.simulators.scenario_objects import (
-    actual_standards,
-    object_from_table,
+from lineproof.simulators.scenario_checks import (
+    ANALYZER_RANGES,
+    PORT_RANGES,
+    SEED,
+    SWITCH_RANGES,
+    TIME_SCALE,
+    Range,
+    check_identity,
+    finite,
     optional,
-    population,
     refuse_unknown,
     require,
-    resolve,
+    typed_fields,
+    with_line,
 )
+from lineproof.simulators.scenario_objects import actual_standards, object_from_table, population, resolve
 from lineproof.simulators.scpi import ScpiCommandError
 from lineproof.simulators.switch_sim import (
     SwitchChannelWiring,
@@ -113,33 +125,34 @@ def _port_settings(table: Any, source: str, where: str) -> PortErrorSettings:
         raise InputError("a port is a table", path=source, key=where, fix="write [[analyzer.port]] tables")
     allowed = set(PortErrorSettings.__dataclass_fields__)
     refuse_unknown(table, allowed, source, where)
-    return PortErrorSettings(**{k: optional(table, k, 0.0, float, source, where) for k in table})
+    return PortErrorSettings(**typed_fields(table, PortErrorSettings, PORT_RANGES, source, where))
 
 
 _SERVING_KEYS = {"port", "transport", "baud_rate", "drift"}
 
 
-def _analyzer_spec(table: Any, name: str, bench: dict[str, Any], source: str) -> AnalyzerSpec:
-    where = name if name == "analyzer" else f"analyzer[{int(name[8:]) - 1}]"
+def _analyzer_spec(table: Any, name: str, where: str, bench: dict[str, Any], source: str) -> AnalyzerSpec:
     if not isinstance(table, dict):
         raise InputError("an analyzer is a table", path=source, key=where, fix="write [analyzer] with its keys")
     allowed = set(AnalyzerSimulationSettings.__dataclass_fields__) - {"port_settings"}
     refuse_unknown(table, allowed | _SERVING_KEYS, source, where)
+    values = typed_fields(table, AnalyzerSimulationSettings, ANALYZER_RANGES, source, where)
+    check_identity(values, source, where)
     ports = [_port_settings(p, source, f"{where}.port[{i}]")
              for i, p in enumerate(optional(table, "port", [{}], list, source, where))]
-    values = {k: v for k, v in table.items() if k in allowed}
     values["drift"] = _drift(optional(table, "drift", {}, dict, source, where), source, f"{where}.drift")
-    model = optional(values, "model", "reflection" if int(values.get("ports", 1)) == 1 else "full", str, source, where)
+    model = values.get("model", "reflection" if values.get("ports", 1) == 1 else "full")
     if model not in MODEL_DIRECTIONS:
         raise InputError(f"unknown analyzer model {model!r}", path=source, key=f"{where}.model",
                          fix=f"use one of {', '.join(MODEL_DIRECTIONS)}")
     needed_ports = 1 if model == "reflection" else 2
-    if int(values.get("ports", needed_ports)) != needed_ports:
+    if values.get("ports", needed_ports) != needed_ports:
         raise InputError(f"a {model!r} analyzer has {needed_ports} port(s), not {values['ports']}",
                          path=source, key=f"{where}.ports", fix=f"set ports = {needed_ports} or leave it out")
+    _check_frequency_range(values, source, where)
     values.update(model=model, ports=needed_ports)
-    values.setdefault("time_scale", float(bench.get("time_scale", 0.0)))
-    values.setdefault("seed", int(bench.get("seed", 1)) + 1000 * (0 if name == "analyzer" else int(name[8:])))
+    values.setdefault("time_scale", bench["time_scale"])
+    values.setdefault("seed", bench["seed"] + 1000 * (0 if name == "analyzer" else int(name[8:])))
     transport = optional(table, "transport", "scpi", str, source, where)
     if transport not in TRANSPORTS:
         raise InputError(f"unknown transport {transport!r}", path=source, key=f"{where}.transport",
@@ -151,17 +164,43 @@ def _analyzer_spec(table: Any, name: str, bench: dict[str, Any], source: str) ->
     if values.get("internal_correction") and model == "forward":
         raise InputError("a one-path analyzer cannot correct its own data", path=source,
                          key=f"{where}.internal_correction", fix='use model = "full" or leave it out')
-    try:
-        settings = AnalyzerSimulationSettings(port_settings=tuple(ports), **values)
-    except TypeError as exc:
-        raise InputError(f"bad analyzer settings ({exc})", path=source, key=where) from exc
-    return AnalyzerSpec(name, settings, transport, baud_rate)
+    return AnalyzerSpec(name, AnalyzerSimulationSettings(port_settings=tuple(ports), **values), transport, baud_rate)
+
+
+def _check_frequency_range(values: dict[str, Any], source: str, where: str) -> None:
+    defaults = AnalyzerSimulationSettings()
+    low = values.get("frequency_min_hz", defaults.frequency_min_hz)
+    high = values.get("frequency_max_hz", defaults.frequency_max_hz)
+    if low >= high:
+        key = "frequency_max_hz" if "frequency_max_hz" in values else "frequency_min_hz"
+        raise InputError(f"the frequency range {low:g}..{high:g} Hz is empty", path=source, key=f"{where}.{key}",
+                         fix="frequency_min_hz must be below frequency_max_hz (defaults 1e6 and 3e9)")
 
 
 def _drift(table: dict[str, Any], source: str, where: str) -> DriftSettings:
     allowed = set(DriftSettings.__dataclass_fields__)
     refuse_unknown(table, allowed, source, where)
-    return DriftSettings(**{k: optional(table, k, 0.0, float, source, where) for k in table})
+    return DriftSettings(**typed_fields(table, DriftSettings, {}, source, where))
+
+
+#: The keys of [bench] (see the module docstring).
+_BENCH_KEYS = {"name", "seed", "time_scale", "temperature_c", "temperature_profile", "clock_rate",
+               "seconds_per_sweep"}
+#: The top-level tables of a scenario file.
+_TOP_LEVEL_KEYS = {"bench", "analyzer", "standards", "objects", "populations", "switch", "faults"}
+_STANDARDS_KEYS = {"kit", "deviation", "seed"}
+
+
+def _bench(data: dict[str, Any], source: str, path: Path) -> dict[str, Any]:
+    """[bench] with its keys checked; name, seed and time_scale filled in."""
+    bench = optional(data, "bench", {}, dict, source, "")
+    refuse_unknown(bench, _BENCH_KEYS, source, "bench")
+    seed = optional(bench, "seed", 1, int, source, "bench")
+    SEED.check(seed, source, "bench.seed")
+    time_scale = finite(optional(bench, "time_scale", 0.0, float, source, "bench"), source, "bench.time_scale")
+    TIME_SCALE.check(time_scale, source, "bench.time_scale")
+    return {**bench, "name": optional(bench, "name", path.stem, str, source, "bench"), "seed": seed,
+            "time_scale": time_scale}
 
 
 def _environment(bench: dict[str, Any], source: str) -> EnvironmentSettings:
@@ -170,36 +209,45 @@ def _environment(bench: dict[str, Any], source: str) -> EnvironmentSettings:
     if profile is not None:
         try:
             points = tuple((float(t), float(c)) for t, c in profile)
+            if not all(math.isfinite(t) and -40.0 <= c <= 85.0 for t, c in points):
+                raise ValueError("times must be finite and temperatures from -40 to 85 °C")
             TemperatureProfile(points)
         except (TypeError, ValueError) as exc:
             raise InputError(f"bad temperature profile ({exc})", path=source, key="bench.temperature_profile",
                              fix="write [[seconds, celsius], ...] with increasing seconds, e.g. [[0, 23], [3600, 26]]"
                              ) from exc
-    clock_rate = optional(bench, "clock_rate", 1.0, float, source, "bench")
+    clock_rate = finite(optional(bench, "clock_rate", 1.0, float, source, "bench"), source, "bench.clock_rate")
     if clock_rate < 0:
         raise InputError("the bench clock cannot run backwards", path=source, key="bench.clock_rate",
                          fix="use 0 (moves only when advanced), 1 (real time) or more")
-    per_sweep = optional(bench, "seconds_per_sweep", 0.0, float, source, "bench")
+    per_sweep = finite(optional(bench, "seconds_per_sweep", 0.0, float, source, "bench"), source,
+                       "bench.seconds_per_sweep")
     if per_sweep < 0:
         raise InputError("a sweep cannot move the bench clock backwards", path=source, key="bench.seconds_per_sweep",
                          fix="use 0 (sweeps take no bench time) or a positive number of seconds")
-    return EnvironmentSettings(optional(bench, "temperature_c", 23.0, float, source, "bench"), points, clock_rate,
-                               per_sweep)
+    temperature_c = optional(bench, "temperature_c", 23.0, float, source, "bench")
+    Range(-40.0, 85.0, fix="a bench temperature in °C from -40 to 85").check(temperature_c, source,
+                                                                           "bench.temperature_c")
+    return EnvironmentSettings(temperature_c, points, clock_rate, per_sweep)
 
 
 def _analyzers(data: dict[str, Any], bench: dict[str, Any], source: str) -> list[AnalyzerSpec]:
     tables = data.get("analyzer", {})
-    tables = tables if isinstance(tables, list) else [tables]
+    several = isinstance(tables, list)
+    tables = tables if several else [tables]
     if not tables:
         raise InputError("a bench needs an analyzer", path=source, key="analyzer", fix="add an [analyzer] table")
     names = ["analyzer"] + [f"analyzer{i}" for i in range(2, len(tables) + 1)]
-    return [_analyzer_spec(table, name, bench, source) for name, table in zip(names, tables, strict=True)]
+    return [_analyzer_spec(table, name, f"analyzer[{index}]" if several else "analyzer", bench, source)
+            for index, (name, table) in enumerate(zip(names, tables, strict=True))]
 
 
 def _faults(tables: Any, source: str) -> list[dict[str, Any]]:
     if not isinstance(tables, list) or not all(isinstance(t, dict) for t in tables):
         raise InputError("faults must be an array of tables", path=source, key="faults",
                          fix='write [[faults]] tables, e.g. kind = "drop"')
+    for index, table in enumerate(tables):
+        optional(table, "instrument", "analyzer", str, source, f"faults[{index}]")  # the rest: faults.py, at start
     return [dict(t) for t in tables]
 
 
@@ -209,13 +257,11 @@ def _switch(table: Any, scenario: Scenario, bench: dict[str, Any]) -> None:
         raise InputError("the switch is a table", path=source, key="switch", fix="write [switch] with its keys")
     allowed = set(SwitchSettings.__dataclass_fields__)
     refuse_unknown(table, allowed | {"channel"}, source, "switch")
-    values = {k: v for k, v in table.items() if k in allowed}
-    values.setdefault("time_scale", float(bench.get("time_scale", 0.0)))
+    values = typed_fields(table, SwitchSettings, SWITCH_RANGES, source, "switch")
+    check_identity(values, source, "switch")
+    values.setdefault("time_scale", bench["time_scale"])
     values.setdefault("seed", scenario.seed + 31)
-    try:
-        scenario.switch = SwitchSettings(**values)
-    except TypeError as exc:
-        raise InputError(f"bad switch settings ({exc})", path=source, key="switch") from exc
+    scenario.switch = SwitchSettings(**values)
     seen: set[tuple[int, int]] = set()
     for index, wiring in enumerate(optional(table, "channel", [], list, source, "switch")):
         made = _channel_wiring(wiring, scenario, f"switch.channel[{index}]")
@@ -305,20 +351,33 @@ def load_scenario(path_or_name: str | Path) -> Scenario:
     path = find_scenario(path_or_name)
     source = str(path)
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
+        text = path.read_text(encoding="utf-8")
+        data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc})", path=source) from exc
-    except OSError as exc:
-        raise InputError(f"cannot read the scenario ({exc})", path=source) from exc
-    bench = optional(data, "bench", {}, dict, source, "")
-    seed = optional(bench, "seed", 1, int, source, "bench")
-    scenario = Scenario(name=str(bench.get("name", path.stem)), source=source, seed=seed,
+        raise InputError(f"not valid TOML ({exc})", path=source, fix="correct the TOML syntax") from exc
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read the scenario ({exc})", path=source,
+                         fix="give a readable UTF-8 scenario file") from exc
+    return with_line(lambda: _scenario(data, path, source), text, source)
+
+
+def _scenario(data: dict[str, Any], path: Path, source: str) -> Scenario:
+    refuse_unknown(data, _TOP_LEVEL_KEYS, source, "", "unknown table")
+    bench = _bench(data, source, path)
+    seed = bench["seed"]
+    scenario = Scenario(name=bench["name"], source=source, seed=seed,
                         analyzers=_analyzers(data, bench, source), environment=_environment(bench, source))
     standards = optional(data, "standards", None, dict, source, "")
     if standards:
+        refuse_unknown(standards, _STANDARDS_KEYS, source, "standards")
         kit_path = resolve(require(standards, "kit", str, source, "standards"), path)
-        scenario.objects.update(actual_standards(kit_path, optional(standards, "deviation", 1.0, float, source, "standards"),
-                                                 optional(standards, "seed", seed + 7, int, source, "standards")))
+        deviation = finite(optional(standards, "deviation", 1.0, float, source, "standards"), source,
+                           "standards.deviation")
+        Range(0.0, fix="0 (exactly as the kit says), 1 (as real standards differ) or another factor").check(
+            deviation, source, "standards.deviation")
+        kit_seed = optional(standards, "seed", seed + 7, int, source, "standards")
+        SEED.check(kit_seed, source, "standards.seed")
+        scenario.objects.update(actual_standards(kit_path, deviation, kit_seed))
     for name, table in optional(data, "objects", {}, dict, source, "").items():
         scenario.objects[name] = object_from_table(name, table, path, source)
     scenario.faults = _faults(data.get("faults", []), source)

@@ -15,6 +15,7 @@ import numpy as np
 
 from lineproof.errors import InputError
 from lineproof.simulators import objects as obj
+from lineproof.simulators.scenario_checks import optional, refuse_unknown, require, with_line
 
 #: The keys an [objects.<name>] table may hold, by what it describes.
 _OBJECT_KEYS = {
@@ -24,42 +25,6 @@ _OBJECT_KEYS = {
     "touchstone": {"touchstone"},
 }
 _COMMON_KEYS = {"kind", "description"}
-
-
-def require(table: dict[str, Any], key: str, kinds: type | tuple[type, ...], source: str, where: str) -> Any:
-    """``table[key]`` of the given type, or an InputError naming file, key and fix."""
-    if key not in table:
-        raise InputError("missing key", path=source, key=_key(where, key), fix=f"add {key} = ...")
-    return _typed(table[key], kinds, source, _key(where, key))
-
-
-def optional(table: dict[str, Any], key: str, default: Any, kinds: type | tuple[type, ...], source: str,
-             where: str) -> Any:
-    return _typed(table[key], kinds, source, _key(where, key)) if key in table else default
-
-
-def refuse_unknown(table: dict[str, Any], allowed: set[str], source: str, where: str,
-                   message: str = "unknown key") -> None:
-    """An InputError naming the first key of ``table`` not in ``allowed`` (a typo is never ignored)."""
-    unknown = set(table) - allowed
-    if unknown:
-        raise InputError(message, path=source, key=_key(where, sorted(unknown)[0]),
-                         fix=f"use only: {', '.join(sorted(allowed))}")
-
-
-def _key(where: str, key: str) -> str:
-    return f"{where}.{key}" if where else key
-
-
-def _typed(value: Any, kinds: type | tuple[type, ...], source: str, key: str) -> Any:
-    kinds = kinds if isinstance(kinds, tuple) else (kinds,)
-    if isinstance(value, int) and not isinstance(value, bool) and float in kinds:
-        value = float(value)
-    if isinstance(value, bool) and bool not in kinds or not isinstance(value, kinds):
-        wanted = " or ".join({float: "a number", int: "an integer", str: "a string", list: "an array",
-                              bool: "true or false", dict: "a table"}[k] for k in kinds)
-        raise InputError(f"wrong type {type(value).__name__}", path=source, key=key, fix=f"write {wanted}")
-    return value
 
 
 def resolve(path_text: str, scenario_path: Path | None) -> Path:
@@ -86,20 +51,37 @@ def actual_standards(kit_path: Path, deviation: float, seed: int) -> dict[str, o
     """The kit's standards as they actually are: nominal values moved by seeded errors of
     the size real standards show (a few % of fringing capacitance, ~0.5 ps of offset delay,
     a load of 40-45 dB return loss), scaled by ``deviation`` (0 = exactly nominal)."""
+    source = str(kit_path)
     try:
-        kit = tomllib.loads(kit_path.read_text(encoding="utf-8"))
-    except (OSError, tomllib.TOMLDecodeError) as exc:
-        raise InputError(f"cannot read cal kit ({exc})", path=str(kit_path)) from exc
-    z0 = float(kit.get("kit", {}).get("reference_impedance_ohm", 50.0))
+        text = kit_path.read_text(encoding="utf-8")
+        kit = tomllib.loads(text)
+    except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
+        raise InputError(f"cannot read cal kit ({exc})", path=source,
+                         fix="name a readable cal-kit TOML file in [standards] kit") from exc
+    return with_line(lambda: _actual_standards(kit, source, deviation, seed), text, source)
+
+
+_STANDARD_KINDS = ("open", "short", "load", "thru")
+
+
+def _actual_standards(kit: dict[str, Any], source: str, deviation: float, seed: int) -> dict[str, obj.BenchObject]:
+    z0 = _kit_number(optional(kit, "kit", {}, dict, source, ""), "reference_impedance_ohm", 50.0, source, "kit",
+                     positive=True)
     rng = np.random.default_rng(seed)
     made: dict[str, obj.BenchObject] = {}
-    for name, definition in kit.get("standards", {}).items():
-        kind = definition.get("kind")
-        delay = float(definition.get("offset_delay_s", 0.0)) + deviation * rng.normal(0, 0.5e-12)
-        loss = float(definition.get("offset_loss_ohm_per_s", 0.0))
-        z_offset = float(definition.get("offset_impedance_ohm", z0))
+    for name, definition in optional(kit, "standards", {}, dict, source, "").items():
+        where = f"standards.{name}"
+        if not isinstance(definition, dict):
+            raise InputError("a standard is a table", path=source, key=where, fix=f"write [standards.{name}]")
+        kind = require(definition, "kind", str, source, where)
+        if kind not in _STANDARD_KINDS:
+            raise InputError(f"unknown standard kind {kind!r}", path=source, key=f"{where}.kind",
+                             fix=f"use one of: {', '.join(_STANDARD_KINDS)}")
+        delay = _kit_number(definition, "offset_delay_s", 0.0, source, where) + deviation * rng.normal(0, 0.5e-12)
+        loss = _kit_number(definition, "offset_loss_ohm_per_s", 0.0, source, where)
+        z_offset = _kit_number(definition, "offset_impedance_ohm", z0, source, where, positive=True)
         if kind == "open":
-            c = np.array(definition.get("capacitance", [0.0] * 4), dtype=float)
+            c = _polynomial(definition, "capacitance", source, where)
             c = c * (1 + deviation * rng.normal(0, 0.03))
 
             def open_end(f: np.ndarray, c: np.ndarray = c) -> np.ndarray | None:
@@ -108,7 +90,7 @@ def actual_standards(kit_path: Path, deviation: float, seed: int) -> dict[str, o
 
             made[name] = obj.offset_standard(name, open_end, z_offset, delay, loss, z0, "open")
         elif kind == "short":
-            inductance = np.array(definition.get("inductance", [0.0] * 4), dtype=float)
+            inductance = _polynomial(definition, "inductance", source, where)
             inductance = inductance + deviation * np.array([rng.normal(0, 2e-12), 0, 0, 0])
 
             def short_end(f: np.ndarray, ind: np.ndarray = inductance) -> np.ndarray:
@@ -117,11 +99,32 @@ def actual_standards(kit_path: Path, deviation: float, seed: int) -> dict[str, o
             made[name] = obj.offset_standard(name, short_end, z_offset, max(delay, 0.0), loss, z0, "short")
         elif kind == "thru":
             made[name] = obj.thru(name, max(delay, 0.0), loss, z_offset)
-        elif kind == "load":
+        else:
             return_loss_db = rng.uniform(40.0, 45.0)
             magnitude = deviation * 10 ** (-return_loss_db / 20)
             made[name] = obj.reflection_from_polar(name, magnitude, rng.uniform(0, 2 * np.pi), 40e-12, "load")
     return made
+
+
+def _kit_number(table: dict[str, Any], key: str, default: float, source: str, where: str,
+                positive: bool = False) -> float:
+    """A kit's delay, loss or impedance: a finite number, not negative (an impedance above 0)."""
+    value = optional(table, key, default, float, source, where)
+    if not np.isfinite(value) or value < 0 or (positive and value == 0):
+        raise InputError(f"{value!r} is not a {'positive' if positive else 'non-negative'} finite number",
+                         path=source, key=f"{where}.{key}",
+                         fix="a delay or loss is 0 or more, an impedance more than 0 (as the kit's data sheet gives)")
+    return value
+
+
+def _polynomial(definition: dict[str, Any], key: str, source: str, where: str) -> np.ndarray:
+    """A fringing capacitance or inductance polynomial [c0, c1, c2, c3] (fewer: the rest 0)."""
+    raw = optional(definition, key, [0.0], list, source, where)
+    if not (1 <= len(raw) <= 4 and all(isinstance(v, (int, float)) and not isinstance(v, bool) and np.isfinite(v)
+                                       for v in raw)):
+        raise InputError(f"{raw!r} is not a list of one to four numbers", path=source, key=f"{where}.{key}",
+                         fix=f"write {key} = [c0, c1, c2, c3] (F, F/Hz, F/Hz^2, F/Hz^3 or H, H/Hz, ...)")
+    return np.array([float(v) for v in raw] + [0.0] * (4 - len(raw)))
 
 
 # -- [objects] ------------------------------------------------------------------------------
@@ -145,25 +148,53 @@ def object_from_table(name: str, table: Any, scenario_path: Path, source: str) -
             raise InputError(f"cannot read Touchstone file {path} ({exc})", path=source,
                              key=f"{where}.touchstone", fix="give a readable .s1p or .s2p file") from exc
     if form == "thru":
-        return obj.thru(name, optional(table, "delay_s", 0.0, float, source, where),
-                        optional(table, "loss_ohm_per_s", 0.0, float, source, where),
-                        optional(table, "impedance_ohm", 50.0, float, source, where), description)
+        return obj.thru(name, _value(table, "delay_s", 0.0, source, where),
+                        _value(table, "loss_ohm_per_s", 0.0, source, where),
+                        _value(table, "impedance_ohm", 50.0, source, where, positive=True), description)
     if form == "circuit":
         made = _circuit(name, require(table, "circuit", list, source, where), kind, description, source, where)
-        end = optional(table, "terminated_ohm", None, float, source, where)
+        end = _value(table, "terminated_ohm", None, source, where)
         return made if end is None else obj.terminated(made, end)
     return obj.termination(
         name,
-        require(table, "resistance_ohm", float, source, where),
-        optional(table, "series_inductance_h", 0.0, float, source, where),
-        optional(table, "shunt_capacitance_f", 0.0, float, source, where),
+        _value(table, "resistance_ohm", None, source, where, required=True),
+        _value(table, "series_inductance_h", 0.0, source, where),
+        _value(table, "shunt_capacitance_f", 0.0, source, where),
         kind=kind if kind != "object" else "termination",
         description=description,
     )
 
 
+def _value(table: dict[str, Any], key: str, default: float | None, source: str, where: str,
+           positive: bool = False, required: bool = False) -> Any:
+    """A physical value of an object (ohm, henry, farad, second): finite and not negative
+    (an impedance that divides: above 0)."""
+    value = require(table, key, float, source, where) if required else optional(table, key, default, float,
+                                                                                 source, where)
+    if value is not None and (not np.isfinite(value) or value < 0 or (positive and value == 0)):
+        raise InputError(f"{value!r} is not a {'positive' if positive else 'non-negative'} finite number",
+                         path=source, key=f"{where}.{key}",
+                         fix="a passive part has no negative resistance, inductance, capacitance, delay or loss")
+    return value
+
+
+#: Element values that divide (series capacitor, shunt inductor or resistor, line impedance).
+_DIVIDING = {("series_capacitor", "farad"), ("shunt_inductor", "henry"), ("shunt_resistor", "ohm"), ("line", "ohm")}
+
+
 def _circuit(name: str, elements: list[Any], kind: str, description: str, source: str,
              where: str) -> obj.BenchObject:
+    for position, element in enumerate(elements):
+        for key, value in element.items() if isinstance(element, dict) else ():
+            if isinstance(value, bool) or not isinstance(value, (int, float)):
+                continue
+            dividing = (element.get("element"), key) in _DIVIDING
+            if not np.isfinite(value) or value < 0 or (dividing and value == 0):
+                raise InputError(f"{name}: element {position} has {key} = {value!r}", path=source,
+                                 key=f"{where}.circuit[{position}].{key}",
+                                 fix=f"a passive element's {key} is a finite number, "
+                                     f"{'above' if dividing else 'at least'} 0 (with a population's spread: "
+                                     f"a smaller spread)")
     try:
         made = obj.two_port_from_elements(name, elements, kind, description)
         made.response(np.array([1e8, 2e8]))
@@ -186,7 +217,11 @@ def population(table: Any, rng: np.random.Generator, source: str, index: int) ->
     prefix = require(table, "serial_prefix", str, source, where)
     count = require(table, "count", int, source, where)
     first = optional(table, "first_serial", 1, int, source, where)
-    spread = optional(table, "spread", 0.0, float, source, where)
+    spread = _value(table, "spread", 0.0, source, where)
+    if count < 1 or first < 0:
+        key, value = ("count", count) if count < 1 else ("first_serial", first)
+        raise InputError(f"{key} = {value} is out of range", path=source, key=f"{where}.{key}",
+                         fix="count is 1 or more units, first_serial 0 or more")
     circuit = require(table, "circuit", list, source, where)
     defects = optional(table, "defects", {}, dict, source, where)
     made = []
@@ -207,7 +242,7 @@ def population(table: Any, rng: np.random.Generator, source: str, index: int) ->
             except (KeyError, TypeError, ValueError, IndexError) as exc:
                 raise InputError(f"bad defect ({exc})", path=source, key=f"{where}.defects.{serial}",
                                  fix="write [{ index = <element number from 0>, <key> = <value> }]") from exc
-        made.append((serial, model, _circuit(serial, elements, "device", model, source, f"{where}")))
+        made.append((serial, model, _circuit(serial, elements, "device", model, source, where)))
     unknown_units = set(defects) - {serial for serial, _, _ in made}
     if unknown_units:
         raise InputError("a defect names no unit of this population", path=source,
