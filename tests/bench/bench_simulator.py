@@ -87,6 +87,22 @@ def _start_sim(scenario: str) -> tuple[subprocess.Popen[str], str, str]:
             return process, resource, control
 
 
+#: The trace reads of the shipped SCPI profiles; an ASCII variant must read them as an ASCII
+#: number list (reply "numbers"): the profile loader refuses a block reply with ASCII data.
+TRACE_READS = {"read_raw": "TRACe:DATA? RAW", "read_corrected": "TRACe:DATA? CORRected",
+               "read_frequencies": "SENSe:FREQuency:DATA?"}
+
+
+def format_variant(profile: str, data_format: str) -> str:
+    """A profile of our own, based on a shipped one, that asks for ``data_format``."""
+    command = "FORMat:DATA ASCii" if data_format == "ASCII" else "FORMat:DATA REAL,64;:FORMat:BORDer SWAPped"
+    reply = "numbers" if data_format == "ASCII" else "block"
+    reads = "".join(f'{name} = {{ send = "{send}", reply = "{reply}" }}\n' for name, send in TRACE_READS.items())
+    return (f'[profile]\nname = "bench-format"\nkind = "analyzer"\nbased_on = "{profile}"\nsummary = "benchmark"\n'
+            f'[capabilities]\ndata_format = "{data_format}"\nbyte_order = "little"\n'
+            f'[operations]\nset_data_format = "{command}"\n{reads}')
+
+
 def transfer_time(scenario: str, profile: str, connect_request: dict[str, object], data_format: str,
                   repeats: int) -> dict[str, float]:
     """Client-side time to read every trace of one 10,001-point sweep over TCP."""
@@ -103,10 +119,7 @@ def transfer_time(scenario: str, profile: str, connect_request: dict[str, object
             # A profile of our own, based on the shipped one, that asks for the data format
             # under test (DEVELOPERS.md, "Adding an instrument profile").
             path = Path(folder) / "bench-format.toml"
-            command = "FORMat:DATA ASCii" if data_format == "ASCII" else "FORMat:DATA REAL,64;:FORMat:BORDer SWAPped"
-            path.write_text(f'[profile]\nname = "bench-format"\nkind = "analyzer"\nbased_on = "{profile}"\n'
-                            f'summary = "benchmark"\n[capabilities]\ndata_format = "{data_format}"\n'
-                            f'byte_order = "little"\n[operations]\nset_data_format = "{command}"\n')
+            path.write_text(format_variant(profile, data_format), encoding="utf-8")
             loaded = load_analyzer_profile(str(path))
         with closing(open_analyzer(resource, loaded)) as analyzer:
             analyzer.configure(SweepPlan(*PLAN_HZ, POINTS, if_bandwidth_hz=100e3))
