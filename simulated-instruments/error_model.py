@@ -8,9 +8,12 @@ Measurements", 2002, and EURAMET cg-12 v3.0, 2018; both cited from memory):
     directivity (e00), source match (e11), reflection tracking (e10e01),
     load match (e22), transmission tracking (e10e32), isolation (e30).
 
-A one-port analyzer has the first three.  The raw data is not computed from the textbook's
-closed form but by solving the signal-flow graph of the sweep (see :meth:`DirectionTerms.
-measure`), so that the tests, which check the closed form, check this physics.
+A one-port analyzer has the first three.  Two-port raw data is not computed from the
+textbook's closed form but by solving the signal-flow graph of the sweep (see
+:meth:`DirectionTerms.measure`), so that the tests, which check the closed form, check this
+physics.  A lone one-port's raw data (:meth:`DirectionTerms.measure_reflection`) *is* the
+three-term closed form; its tests check it against scikit-rf's cascade of an error two-port
+with the load instead (tests/sim/error_model_reference.py).
 
 Terms vary smoothly with frequency (a magnitude ripple, the phase of cable and coupler
 delays, skin-effect cable loss), sit at the raw magnitudes of an uncorrected analyzer, and
@@ -121,10 +124,9 @@ class DirectionTerms:
         transmission = self.isolation + self.transmission_tracking * b2
         return reflection, transmission
 
-
     def measure_reflection(self, gamma: np.ndarray) -> np.ndarray:
-        """Raw reflection ratio of a lone one-port ``gamma``: the same flow graph with nothing
-        transmitted, a = 1 + e11 Γ a, so b1 = Γ / (1 - e11 Γ)."""
+        """Raw reflection ratio of a lone one-port ``gamma``, in closed form: the flow graph of
+        :meth:`measure` with nothing transmitted, a = 1 + e11 Γ a, so b1 = Γ / (1 - e11 Γ)."""
         return self.directivity + self.reflection_tracking * gamma / (1.0 - self.source_match * gamma)
 
 

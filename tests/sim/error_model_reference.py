@@ -1,16 +1,36 @@
-"""The textbook error models, written out on the test side to check the simulator's raw
-data against (the simulator computes its raw data by solving the signal-flow graph of the
-sweep instead; see simulated-instruments/error_model.py)."""
+"""The error models, computed on the test side to check the simulator's raw data against,
+each by a route other than the simulator's own:
+
+- one port: scikit-rf cascades an error two-port with the load (its general connection of
+  networks), where the simulator writes the three-term closed form;
+- two ports: the closed forms of the twelve-term model as printed in the application note,
+  where the simulator solves the signal-flow graph of the sweep (see
+  simulated-instruments/error_model.py)."""
 
 from __future__ import annotations
 
 import numpy as np
+import skrf
 
 
 def three_term_raw(gamma: np.ndarray, terms: dict[str, np.ndarray]) -> np.ndarray:
-    """One-port three-term model, Agilent Application Note 1287-3 (2002), one-port error
-    model (from memory): Γm = e00 + e10e01 Γ / (1 - e11 Γ)."""
-    return terms["directivity"] + terms["reflection_tracking"] * gamma / (1 - terms["source_match"] * gamma)
+    """What the receivers of a one-port analyzer read for the true reflection ``gamma``: the
+    error two-port E = [[e00, e01], [e10, e11]] between the ideal analyzer and the reference
+    plane, cascaded with the load by scikit-rf (``Network ** Network``).  Only the product
+    e10e01 is observable, so e01 = 1 and e10 = the reflection tracking.  (The textbook's
+    answer, Agilent AN 1287-3 from memory, is e00 + e10e01 Γ / (1 - e11 Γ); this does not
+    use it, so that a slip in that formula -- here or in the simulator -- cannot hide.)"""
+    gamma = np.atleast_1d(np.asarray(gamma, dtype=complex))
+    n = gamma.size
+    frequency = skrf.Frequency.from_f(np.arange(1.0, n + 1.0), unit="hz")  # the cascade is per point
+    error = np.empty((n, 2, 2), dtype=complex)
+    error[:, 0, 0] = terms["directivity"]
+    error[:, 0, 1] = 1.0
+    error[:, 1, 0] = terms["reflection_tracking"]
+    error[:, 1, 1] = terms["source_match"]
+    box = skrf.Network(frequency=frequency, s=error, z0=50.0)
+    load = skrf.Network(frequency=frequency, s=gamma.reshape(n, 1, 1), z0=50.0)
+    return (box ** load).s[:, 0, 0]
 
 
 def twelve_term_raw(s: dict[str, np.ndarray], fwd: dict[str, np.ndarray],
