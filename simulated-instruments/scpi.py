@@ -90,12 +90,15 @@ class ScpiDispatcher:
     def __init__(self) -> None:
         self._commands: list[tuple[tuple[_Node, ...], bool, Handler]] = []
         self.errors: deque[tuple[int, str]] = deque()
+        #: Told the code of every error as it happens (the event status register latches it).
+        self.on_error: Callable[[int], None] = lambda code: None
 
     def add(self, pattern: str, handler: Handler) -> None:
         nodes, query = _parse_pattern(pattern)
         self._commands.append((nodes, query, handler))
 
     def push_error(self, code: int, text: str) -> None:
+        self.on_error(code)
         if len(self.errors) >= self.QUEUE_DEPTH:
             self.errors.pop()
             self.errors.append((-350, "Queue overflow"))

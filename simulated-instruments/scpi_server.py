@@ -20,6 +20,8 @@ from lineproof.simulators.scpi import ScpiDispatcher
 _MESSAGE_LIMIT = 1 << 20
 #: IEEE 488.2 §11.5.1.1.2 (from memory): bit 7 of the standard event status register, Power On.
 POWER_ON_BIT = 128
+#: SCPI-1999 Vol 1 §9.1 (from memory): bit 2 of the status byte, error/event queue not empty.
+ERROR_QUEUE_BIT = 4
 
 
 class DataReply:
@@ -41,6 +43,7 @@ class ScpiFront:
         self.faults = faults or FaultPlan("instrument")
         # Power-on: the PON bit is set until *ESR? reads it (IEEE 488.2 §11.5.1.1.2).
         self.event_status = POWER_ON_BIT
+        self.dispatcher.on_error = self._latch_error
         #: One program message at a time, whichever client sent it (an instrument has one
         #: parser); the model's own lock stays free for the bench control channel.
         self.message_lock = threading.Lock()
@@ -57,7 +60,9 @@ class ScpiFront:
         add("*OPC", lambda args, sfx: None)
         add("*WAI", lambda args, sfx: self.wait_idle())
         add("*ESR?", lambda args, sfx: self._esr())
-        add("*STB?", lambda args, sfx: str(4 if self.dispatcher.errors else 0))
+        # Bit 2: the error/event queue is not empty (SCPI-1999 Vol 1 §9.1, from memory); no ESB
+        # (bit 5) and no service request: the simulated instruments have no *ESE or *SRE.
+        add("*STB?", lambda args, sfx: str(ERROR_QUEUE_BIT if self.dispatcher.errors else 0))
         add("SYSTem:ERRor[:NEXT]?", lambda args, sfx: self.dispatcher.pop_error())
 
     # -- hooks for instruments ---------------------------------------------------------------
@@ -77,7 +82,7 @@ class ScpiFront:
         Power On bit set so a careful driver can tell that it happened."""
         self.reset()
         self.dispatcher.errors.clear()
-        self.event_status |= POWER_ON_BIT
+        self.event_status = POWER_ON_BIT
 
     # -- common commands ----------------------------------------------------------------------
 
@@ -85,17 +90,22 @@ class ScpiFront:
         self.dispatcher.errors.clear()
         self.event_status = 0
 
+    def _latch_error(self, code: int) -> None:
+        # IEEE 488.2 §11.5.1: an event sets its bit, which stays set until *ESR? reads the
+        # register or *CLS clears it -- whether or not the error queue was read meanwhile.
+        # Bit 5 command error, 4 execution error, 3 device-dependent error, 2 query error
+        # (SCPI -100s, -200s, -300s and positive codes, -400s).
+        if -199 <= code <= -100:
+            self.event_status |= 32
+        elif -299 <= code <= -200:
+            self.event_status |= 16
+        elif -399 <= code <= -300 or code > 0:
+            self.event_status |= 8
+        elif -499 <= code <= -400:
+            self.event_status |= 4  # query error
+
     def _esr(self) -> str:
-        # IEEE 488.2 §11.5.1: bit 2 query error, 3 device-dependent, 4 execution, 5 command.
-        value = self.event_status
-        for code, _ in self.dispatcher.errors:
-            if -199 <= code <= -100:
-                value |= 32
-            elif -299 <= code <= -200:
-                value |= 16
-            elif -399 <= code <= -300 or code > 0:
-                value |= 8
-        self.event_status = 0
+        value, self.event_status = self.event_status, 0
         return str(value)
 
     # -- one program message, with its faults -----------------------------------------------
