@@ -22,8 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from lineproof.simulators import physics
-from lineproof.simulators.drift import BenchEnvironment, Conditions, DriftSettings, drifted
+from lineproof.simulators.drift import BenchEnvironment, Conditions, DriftSettings, DriftState, drift_state, drifted
 from lineproof.simulators.error_model import (
     MODEL_DIRECTIONS,
     MODEL_PARAMETERS,
@@ -109,6 +108,7 @@ class SimulatedAnalyzer:
         self._terms_cache: dict[tuple[float, float, int], dict[str, DirectionTerms]] = {}
         self._correction_cache: dict[tuple[float, float, int], dict[str, DirectionTerms]] = {}
         self._raw_cache: dict[tuple[object, ...], dict[str, tuple[np.ndarray, dict]]] = {}
+        self._wave_cache: dict[tuple[object, ...], dict[str, tuple[np.ndarray, np.ndarray]]] = {}
         self._network_cache: dict[tuple[object, ...], np.ndarray] = {}
         self._noise_table = NoiseTable(session)
         self._grid_key: tuple[float, float, int] | None = None
@@ -223,8 +223,10 @@ class SimulatedAnalyzer:
         time and temperature; default: now)."""
         f = np.asarray(frequencies_hz, dtype=float)
         with self.lock:
-            return drifted(self._base_terms(f), f, self.settings.drift, self._cable_delays,
-                           conditions or self.environment.now())
+            return drifted(self._base_terms(f), f, self._drift_state(conditions or self.environment.now()))
+
+    def _drift_state(self, conditions: Conditions) -> DriftState:
+        return drift_state(self.settings.drift, self._cable_delays, conditions)
 
     def port_terms(self, port: int, frequencies_hz: np.ndarray,
                    conditions: Conditions | None = None) -> OnePortTerms:
@@ -263,15 +265,15 @@ class SimulatedAnalyzer:
         return {name: raw for name, (raw, _) in self._raw_entry(f, conditions or self.environment.now()).items()}
 
     def _raw_entry(self, f: np.ndarray, conditions: Conditions) -> dict[str, tuple[np.ndarray, dict]]:
-        """Raw traces (each with a small cache of its noise levels), kept per grid while nothing is reconnected and the
-        conditions hold (the bench clock ticks in whole seconds), so a repeated sweep
+        """Raw traces (each with a small cache of its noise levels), kept per grid while nothing is
+        reconnected and the terms hold (the bench clock ticks in whole seconds), so a repeated sweep
         costs only its noise."""
-        still = self.settings.drift.is_still()
-        key = (float(f[0]), float(f[-1]), f.size, self.wiring.generation, None if still else conditions)
+        state = self._drift_state(conditions)
+        key = (float(f[0]), float(f[-1]), f.size, self.wiring.generation, state)
         entry = self._raw_cache.get(key)
         if entry is None:
             entry = {}
-            for name, raw in self._compute_raw(f, conditions).items():
+            for name, raw in self._compute_raw(f, state).items():
                 raw.setflags(write=False)
                 entry[name] = (raw, {})
             if len(self._raw_cache) >= _CACHE_LIMIT:
@@ -292,17 +294,49 @@ class SimulatedAnalyzer:
             self._network_cache[key] = network
         return network
 
-    def _compute_raw(self, f: np.ndarray, conditions: Conditions) -> dict[str, np.ndarray]:
-        terms = self.direction_terms(f, conditions)
-        network = self._network(f)
-        if self.settings.model == "reflection":
-            return {"S11": terms["forward"].measure_reflection(network)}
-        s11, s21 = terms["forward"].measure(network)
-        traces = {"S11": s11, "S21": s21}
-        if "reverse" in terms:
-            s22, s12 = terms["reverse"].measure(physics.reverse_s(network))
-            traces.update(S22=s22, S12=s12)
+    def _compute_raw(self, f: np.ndarray, state: DriftState) -> dict[str, np.ndarray]:
+        """Raw = directivity + tracking · wave (and isolation + tracking · wave through).  The
+        waves and the tracking's phase depend on the match terms and the cables' phase only;
+        ``state.gain`` -- all that moves with the clock at a steady temperature -- scales them
+        afterwards, so a tick of the clock costs two passes per trace, not a new solve."""
+        traces = {}
+        for direction, (directivity, reflected, transmitted) in self._waves(f, state).items():
+            base = self._base_terms(f)[direction]
+            reflection = np.multiply(reflected, state.gain)
+            traces["S11" if direction == "forward" else "S22"] = np.add(reflection, directivity, out=reflection)
+            if transmitted is not None:
+                transmission = np.multiply(transmitted, state.gain)
+                traces["S21" if direction == "forward" else "S12"] = np.add(transmission, base.isolation,
+                                                                            out=transmission)
         return {name: traces[name] for name in self.settings.parameters}
+
+    def _waves(self, f: np.ndarray, state: DriftState) -> dict[str, tuple[np.ndarray, np.ndarray, np.ndarray | None]]:
+        """Per direction: the drifted directivity, tracking · b1 and tracking · b2 without the
+        gain drift (None on a reflection analyzer); kept per grid, wiring and drift of the
+        match terms and cables."""
+        unscaled = state.without_gain()
+        key = (float(f[0]), float(f[-1]), f.size, self.wiring.generation, unscaled)
+        waves = self._wave_cache.get(key)
+        if waves is None:
+            terms = drifted(self._base_terms(f), f, unscaled)
+            network = self._network(f)
+            waves = {}
+            if self.settings.model == "reflection":
+                t = terms["forward"]
+                reflected = t.reflected_wave(network)
+                waves["forward"] = (t.directivity, np.multiply(reflected, t.reflection_tracking, out=reflected), None)
+            else:
+                # the four parameters as contiguous arrays (a column of an (N, 2, 2) array is
+                # read at a 64-byte stride); the reverse direction sees the network turned round
+                s11, s12, s21, s22 = (np.ascontiguousarray(network[:, i, j]) for i in (0, 1) for j in (0, 1))
+                for direction, t in terms.items():
+                    b1, b2 = t.waves(s11, s12, s21, s22) if direction == "forward" else t.waves(s22, s21, s12, s11)
+                    waves[direction] = (t.directivity, np.multiply(b1, t.reflection_tracking, out=b1),
+                                        np.multiply(b2, t.transmission_tracking, out=b2))
+            if len(self._wave_cache) >= _CACHE_LIMIT:
+                self._wave_cache.clear()
+            self._wave_cache[key] = waves
+        return waves
 
     def sweep(self) -> float:
         """Take one sweep of every parameter; returns its simulated duration (s)."""

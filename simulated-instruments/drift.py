@@ -123,28 +123,68 @@ class BenchEnvironment:
         return Conditions(seconds, held if held is not None else self.profile.at(seconds))
 
 
-def drifted(terms: dict[str, DirectionTerms], frequencies_hz: np.ndarray, settings: DriftSettings,
-            cable_delays_s: Sequence[float], conditions: Conditions) -> dict[str, DirectionTerms]:
-    """``terms`` as they are under ``conditions``."""
+@dataclass(frozen=True)
+class DriftState:
+    """How far the terms have drifted under some conditions: the relative magnitude of the
+    tracking terms (``gain``), of the directivity and match terms (``match``), of the
+    directivity alone on top (``directivity``), and each test-port cable's extra one-way
+    delay (``delays_s``, s).  Conditions with equal states give equal terms, so what is
+    computed from the terms can be kept per state; and ``gain`` is the only part that moves
+    with time alone at a steady temperature (unless a cable's delay drifts with time)."""
+
+    gain: float = 1.0
+    match: float = 1.0
+    directivity: float = 1.0
+    delays_s: tuple[float, ...] = ()
+
+    def phases(self, frequencies_hz: np.ndarray) -> list[np.ndarray | None]:
+        """Each port's one-way phase factor exp(-jωτ) (None where τ = 0: a factor of one)."""
+        w = 2 * np.pi * np.asarray(frequencies_hz, dtype=float)
+        return [np.exp(-1j * w * delay) if delay else None for delay in self.delays_s]
+
+    def without_gain(self) -> DriftState:
+        return DriftState(1.0, self.match, self.directivity, self.delays_s)
+
+
+STILL = DriftState()
+
+
+def drift_state(settings: DriftSettings, cable_delays_s: Sequence[float], conditions: Conditions) -> DriftState:
+    """The drift of an analyzer's terms under ``conditions``."""
     if settings.is_still():
-        return terms
+        return STILL
     delta_k = conditions.temperature_c - settings.reference_temperature_c
     hours = conditions.seconds / 3600.0
-    gain = 1.0 + settings.tracking_per_k * delta_k + settings.tracking_per_hour * hours
-    match = 1.0 + settings.match_per_k * delta_k
-    w = 2 * np.pi * np.asarray(frequencies_hz, dtype=float)
-    # Each port's cable one way longer: a phase factor per port (two exponentials in all).
-    one_way = [np.exp(-1j * w * (d * settings.cable_delay_ppm_per_k * 1e-6 * delta_k + settings.delay_per_hour_s * hours))
-               for d in cable_delays_s]
+    delays = tuple(d * settings.cable_delay_ppm_per_k * 1e-6 * delta_k + settings.delay_per_hour_s * hours
+                   for d in cable_delays_s)
+    return DriftState(gain=1.0 + settings.tracking_per_k * delta_k + settings.tracking_per_hour * hours,
+                      match=1.0 + settings.match_per_k * delta_k,
+                      directivity=1.0 + settings.directivity_per_k * delta_k,
+                      delays_s=delays if any(delays) else ())
+
+
+def drifted(terms: dict[str, DirectionTerms], frequencies_hz: np.ndarray,
+            state: DriftState) -> dict[str, DirectionTerms]:
+    """``terms`` as they are in the drift ``state``."""
+    if state == STILL:
+        return terms
+    one_way = state.phases(frequencies_hz) or [None]
     result = {}
     for direction, t in terms.items():
         drive, receive = (one_way[0], one_way[-1]) if direction == "forward" else (one_way[-1], one_way[0])
-        round_trip = drive * drive
+        round_trip = _product(drive, drive)
         result[direction] = t.scaled(
-            directivity=match * (1.0 + settings.directivity_per_k * delta_k),
-            source_match=match * round_trip,
-            reflection_tracking=gain * round_trip,
-            load_match=match * receive * receive,
-            transmission_tracking=gain * drive * receive,
+            directivity=state.match * state.directivity,
+            source_match=state.match * round_trip,
+            reflection_tracking=state.gain * round_trip,
+            load_match=state.match * _product(receive, receive),
+            transmission_tracking=state.gain * _product(drive, receive),
         )
     return result
+
+
+def _product(first: np.ndarray | None, second: np.ndarray | None) -> np.ndarray | float:
+    """The product of two phase factors, None being one."""
+    if first is None or second is None:
+        return 1.0 if first is None and second is None else first if second is None else second
+    return first * second

@@ -96,8 +96,10 @@ class DirectionTerms:
         return {name: getattr(self, name) for name in names}
 
     def scaled(self, **factors: np.ndarray | complex) -> DirectionTerms:
-        """The terms with some multiplied by factors (drift)."""
-        return replace(self, **{name: getattr(self, name) * value for name, value in factors.items()})
+        """The terms with some multiplied by factors (drift); a factor of exactly one leaves
+        its term as it is (the same array, not a copy)."""
+        return replace(self, **{name: getattr(self, name) * value for name, value in factors.items()
+                                if not (np.isscalar(value) and value == 1.0)})
 
     def measure(self, network: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Raw (reflection, transmission) ratios for the two-port ``network`` (N, 2, 2) between
@@ -109,25 +111,41 @@ class DirectionTerms:
         (I - Γ S) a = u, solved here by Cramer's rule for every frequency at once.  The
         receivers then see directivity + tracking · b1 and isolation + tracking · b2.
         """
-        s11, s12 = network[..., 0, 0], network[..., 0, 1]
-        s21, s22 = network[..., 1, 0], network[..., 1, 1]
-        m11 = 1.0 - self.source_match * s11
-        m12 = -self.source_match * s12
-        m21 = -self.load_match * s21
-        m22 = 1.0 - self.load_match * s22
-        determinant = m11 * m22 - m12 * m21
-        a1 = m22 / determinant
-        a2 = -m21 / determinant
-        b1 = s11 * a1 + s12 * a2
-        b2 = s21 * a1 + s22 * a2
+        b1, b2 = self.waves(*(network[..., i, j] for i, j in ((0, 0), (0, 1), (1, 0), (1, 1))))
         reflection = self.directivity + self.reflection_tracking * b1
         transmission = self.isolation + self.transmission_tracking * b2
         return reflection, transmission
 
+    def waves(self, s11: np.ndarray, s12: np.ndarray, s21: np.ndarray,
+              s22: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The waves b1, b2 leaving the planes of the network (s11, s12, s21, s22), solved
+        as :meth:`measure` says; they depend on the match terms only, not on directivity,
+        tracking or isolation.  Written pass by pass in place (contiguous inputs are fastest)."""
+        m11 = np.multiply(self.source_match, s11)
+        np.subtract(1.0, m11, out=m11)
+        m22 = np.multiply(self.load_match, s22)
+        np.subtract(1.0, m22, out=m22)
+        m12 = np.multiply(self.source_match, s12)  # -m12 of (I - Γ S)
+        m21 = np.multiply(self.load_match, s21)  # -m21
+        determinant = np.multiply(m11, m22)
+        np.subtract(determinant, np.multiply(m12, m21, out=m12), out=determinant)
+        inverse = np.reciprocal(determinant, out=determinant)
+        a1 = np.multiply(m22, inverse, out=m22)
+        a2 = np.multiply(m21, inverse, out=m21)
+        b1 = np.multiply(s11, a1, out=m11)
+        b1 += np.multiply(s12, a2, out=m12)
+        b2 = np.multiply(s21, a1, out=inverse)
+        b2 += np.multiply(s22, a2, out=a2)
+        return b1, b2
+
     def measure_reflection(self, gamma: np.ndarray) -> np.ndarray:
         """Raw reflection ratio of a lone one-port ``gamma``, in closed form: the flow graph of
         :meth:`measure` with nothing transmitted, a = 1 + e11 Γ a, so b1 = Γ / (1 - e11 Γ)."""
-        return self.directivity + self.reflection_tracking * gamma / (1.0 - self.source_match * gamma)
+        return self.directivity + self.reflection_tracking * self.reflected_wave(gamma)
+
+    def reflected_wave(self, gamma: np.ndarray) -> np.ndarray:
+        """b1 of a lone one-port: Γ / (1 - e11 Γ)."""
+        return gamma / (1.0 - self.source_match * gamma)
 
 
 @dataclass(frozen=True)

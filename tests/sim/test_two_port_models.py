@@ -156,3 +156,30 @@ def test_reverse_parameter_refused_over_scpi(start_bench) -> None:
             assert link.query("SYSTem:ERRor?") == '0,"No error"'
     finally:
         rm.close()
+
+
+def test_a_drifting_full_analyzer_reads_the_twelve_term_model_of_the_terms_at_each_sweep(start_bench) -> None:
+    # demo-switch drifts with time at a steady temperature (tracking -0.02 %/h: the simulator
+    # then reuses its solved waves and scales them) and with temperature (match +0.3 %/K,
+    # cables +30 ppm/K: solved again); every sweep must still be the twelve-term model of the
+    # truth through the terms as they were at that sweep.
+    bench = start_bench("demo-switch")
+    with closing(open_analyzer(bench.visa_resource, "generic-scpi-analyzer")) as analyzer, \
+            BenchControlClient(bench.control_address) as control:
+        analyzer.configure(PLAN)
+        control.connect(1, "TM150-0101", "port:2")
+        readings = []
+        for change in ({}, {"advance": 7200}, {"advance": 7200}, {"set": 33.0}, {"advance": 3600}):
+            if "advance" in change:
+                control.request("advance", seconds=change["advance"])
+            if "set" in change:
+                control.request("set", temperature_c=change["set"])
+            raw = analyzer.measure(["S11", "S21", "S12", "S22"])
+            expected = twelve_term_raw(control.truth_s(port=1), control.error_terms(direction="forward", at="last_sweep"),
+                                       control.error_terms(direction="reverse", at="last_sweep"))
+            for name in ("S11", "S21", "S12", "S22"):
+                np.testing.assert_allclose(raw[name], expected[name], rtol=0, atol=1e-12, err_msg=f"{change} {name}")
+            readings.append(raw)
+    # the drift is there to be followed: each step moves the transmission by far more than 1e-12
+    for before, after in zip(readings, readings[1:], strict=False):
+        assert np.max(np.abs(after["S21"] - before["S21"])) > 1e-5
