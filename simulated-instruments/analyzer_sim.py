@@ -84,6 +84,14 @@ class AnalyzerSimulationSettings:
         return MODEL_DIRECTIONS[self.model]
 
 
+def _scaled_plus(wave: np.ndarray, gain: float, offset: np.ndarray) -> np.ndarray:
+    """gain · wave + offset, in as few passes as the gain allows."""
+    if gain == 1.0:
+        return np.add(wave, offset)
+    out = np.multiply(wave, gain)
+    return np.add(out, offset, out=out)
+
+
 class SimulatedAnalyzer:
     """An analyzer model of any of the three kinds."""
 
@@ -109,6 +117,7 @@ class SimulatedAnalyzer:
         self._correction_cache: dict[tuple[float, float, int], dict[str, DirectionTerms]] = {}
         self._raw_cache: dict[tuple[object, ...], dict[str, tuple[np.ndarray, dict]]] = {}
         self._wave_cache: dict[tuple[object, ...], dict[str, tuple[np.ndarray, np.ndarray]]] = {}
+        self._drifted_cache: dict[tuple[object, ...], dict[str, DirectionTerms]] = {}
         self._network_cache: dict[tuple[object, ...], np.ndarray] = {}
         self._noise_table = NoiseTable(session)
         self._grid_key: tuple[float, float, int] | None = None
@@ -223,7 +232,7 @@ class SimulatedAnalyzer:
         time and temperature; default: now)."""
         f = np.asarray(frequencies_hz, dtype=float)
         with self.lock:
-            return drifted(self._base_terms(f), f, self._drift_state(conditions or self.environment.now()))
+            return self._drifted_terms(f, self._drift_state(conditions or self.environment.now()))
 
     def _drift_state(self, conditions: Conditions) -> DriftState:
         return drift_state(self.settings.drift, self._cable_delays, conditions)
@@ -281,6 +290,18 @@ class SimulatedAnalyzer:
             self._raw_cache[key] = entry
         return entry
 
+    def _drifted_terms(self, f: np.ndarray, state: DriftState) -> dict[str, DirectionTerms]:
+        """The terms in drift ``state``, kept per grid and state (a reconnection needs a new
+        solve, not new terms)."""
+        key = (float(f[0]), float(f[-1]), f.size, state)
+        terms = self._drifted_cache.get(key)
+        if terms is None:
+            terms = {d: freeze(t) for d, t in drifted(self._base_terms(f), f, state).items()}
+            if len(self._drifted_cache) >= _CACHE_LIMIT:
+                self._drifted_cache.clear()
+            self._drifted_cache[key] = terms
+        return terms
+
     def _network(self, f: np.ndarray) -> np.ndarray:
         """The true network between the planes ((N,) for a reflection analyzer), kept per grid
         until something is reconnected."""
@@ -301,13 +322,10 @@ class SimulatedAnalyzer:
         afterwards, so a tick of the clock costs two passes per trace, not a new solve."""
         traces = {}
         for direction, (directivity, reflected, transmitted) in self._waves(f, state).items():
-            base = self._base_terms(f)[direction]
-            reflection = np.multiply(reflected, state.gain)
-            traces["S11" if direction == "forward" else "S22"] = np.add(reflection, directivity, out=reflection)
+            traces["S11" if direction == "forward" else "S22"] = _scaled_plus(reflected, state.gain, directivity)
             if transmitted is not None:
-                transmission = np.multiply(transmitted, state.gain)
-                traces["S21" if direction == "forward" else "S12"] = np.add(transmission, base.isolation,
-                                                                            out=transmission)
+                isolation = self._base_terms(f)[direction].isolation
+                traces["S21" if direction == "forward" else "S12"] = _scaled_plus(transmitted, state.gain, isolation)
         return {name: traces[name] for name in self.settings.parameters}
 
     def _waves(self, f: np.ndarray, state: DriftState) -> dict[str, tuple[np.ndarray, np.ndarray, np.ndarray | None]]:
@@ -318,7 +336,7 @@ class SimulatedAnalyzer:
         key = (float(f[0]), float(f[-1]), f.size, self.wiring.generation, unscaled)
         waves = self._wave_cache.get(key)
         if waves is None:
-            terms = drifted(self._base_terms(f), f, unscaled)
+            terms = self._drifted_terms(f, unscaled)
             network = self._network(f)
             waves = {}
             if self.settings.model == "reflection":

@@ -57,10 +57,12 @@ def _interface(attachment: Attachment, port: int, f: np.ndarray) -> np.ndarray |
     return parts[0] if len(parts) == 1 else physics.cascade_s(parts[0], parts[1])
 
 
-def _behind(interface: np.ndarray | None, gamma: np.ndarray) -> np.ndarray:
-    if interface is None:
-        return gamma
-    return physics.terminated_input(interface, gamma)
+def _behind(attachment: Attachment, port: int, f: np.ndarray, gamma: np.ndarray) -> np.ndarray:
+    """``gamma`` as port ``port`` sees it through the interface of :func:`_interface`."""
+    if attachment.paths.get(port) is None:  # at most a connector: its closed form
+        link = attachment.links.get(port, 0j)
+        return physics.behind_connector(link * (f / 1e9), gamma) if link else gamma
+    return physics.terminated_input(_interface(attachment, port, f), gamma)
 
 
 class PortWiring:
@@ -115,7 +117,7 @@ class PortWiring:
             gamma = attachment.thing.response(f)
         else:
             gamma = physics.terminated_input(self.oriented_object(attachment, f), attachment.output.response(f))
-        return _behind(_interface(attachment, port, f), gamma)
+        return _behind(attachment, port, f, gamma)
 
     def joined_network(self, attachment: Attachment, f: np.ndarray) -> np.ndarray:
         """S (N, 2, 2) from ``input_port``'s plane to ``output_port``'s plane."""

@@ -114,6 +114,27 @@ def test_drift_follows_the_temperature_profile(analyzer, control) -> None:
 
 # -- connector repeatability ---------------------------------------------------------------------
 
+@pytest.mark.parametrize("size", [3e-4, 5e-3, 0.05, 0.6])  # a real connector's, and far beyond
+def test_a_connector_in_front_of_a_load_is_the_cascade_of_its_step_and_the_load(size: float) -> None:
+    # The simulator's closed form for a one-port behind a connector step, and its step's
+    # transmission sqrt(1 - c²) (a series where c is small), against scikit-rf cascading the
+    # step with the load (Network ** Network) from a step built with numpy's square root.
+    from lineproof.simulators import physics
+
+    rng = np.random.default_rng(11)
+    f = np.linspace(1e6, 3e9, 501)
+    c = size * np.exp(2j * np.pi * rng.uniform()) * (f / 3e9)
+    gamma = 0.9 * np.exp(1j * rng.uniform(0, 2 * np.pi, f.size))
+    step = np.empty((f.size, 2, 2), dtype=complex)
+    step[:, 0, 0], step[:, 1, 1] = c, -c
+    step[:, 0, 1] = step[:, 1, 0] = np.sqrt(1 - c * c)
+    frequency = skrf.Frequency.from_f(f, unit="Hz")
+    cascaded = (skrf.Network(frequency=frequency, s=step, z0=50)
+                ** skrf.Network(frequency=frequency, s=gamma.reshape(-1, 1, 1), z0=50)).s[:, 0, 0]
+    np.testing.assert_allclose(physics.behind_connector(c, gamma), cascaded, rtol=0, atol=1e-15)
+    np.testing.assert_allclose(physics.connector_step(c), step, rtol=0, atol=3e-16)  # one unit in the last place
+
+
 def test_connector_repeatability_shows_up_as_configured(control) -> None:
     grid = {"start_hz": 500e6, "stop_hz": 1e9, "points": 2}
     bare = control.truth_s(object="load", **grid)["s11"]
