@@ -40,6 +40,9 @@ from lineproof.simulators.wiring import Attachment, PortWiring
 
 #: Grids whose terms are kept (a run uses a handful: its sweep, the truth requests).
 _CACHE_LIMIT = 16
+#: Drift states whose terms and solved waves are kept (what matters is the current one, on
+#: each grid in use; each entry holds several 10,001-point arrays).
+_STATE_CACHE_LIMIT = 4
 
 
 @dataclass(frozen=True)
@@ -297,7 +300,7 @@ class SimulatedAnalyzer:
         terms = self._drifted_cache.get(key)
         if terms is None:
             terms = {d: freeze(t) for d, t in drifted(self._base_terms(f), f, state).items()}
-            if len(self._drifted_cache) >= _CACHE_LIMIT:
+            if len(self._drifted_cache) >= _STATE_CACHE_LIMIT:
                 self._drifted_cache.clear()
             self._drifted_cache[key] = terms
         return terms
@@ -351,7 +354,7 @@ class SimulatedAnalyzer:
                     b1, b2 = t.waves(s11, s12, s21, s22) if direction == "forward" else t.waves(s22, s21, s12, s11)
                     waves[direction] = (t.directivity, np.multiply(b1, t.reflection_tracking, out=b1),
                                         np.multiply(b2, t.transmission_tracking, out=b2))
-            if len(self._wave_cache) >= _CACHE_LIMIT:
+            if len(self._wave_cache) >= _STATE_CACHE_LIMIT:
                 self._wave_cache.clear()
             self._wave_cache[key] = waves
         return waves
