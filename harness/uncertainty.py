@@ -67,6 +67,11 @@ class UncertaintySettings:
     #: |Γ| of the small fixed mismatch at each end of each switch path (the switch's data
     #: sheet): standards, terminations and devices reached through different paths differ by it.
     switch_path_mismatch: float = 0.0
+    #: Largest |Γ| of the analyzer's uncorrected source match at port 1 and load match at port 2
+    #: (its data sheet; None: not stated): what a thru-response calibration leaves uncorrected
+    #: (see :mod:`lineproof.normalization`).
+    raw_source_match: float | None = None
+    raw_load_match: float | None = None
 
     def repeatability(self, frequencies_hz: np.ndarray) -> np.ndarray:
         return self.connection_repeatability * np.asarray(frequencies_hz, dtype=float) / self.repeatability_reference_hz
