@@ -122,11 +122,13 @@ def _band_result(band: BandLimit, frequencies: np.ndarray, traces: Sequence[Figu
     loss_trace = next((t for t in traces if t.name == INSERTION_LOSS), None)
     loss = next((f for f in figures if f.figure == INSERTION_LOSS), None)
     verdict = Verdict.combine(tuple(f.verdict for f in figures if f.verdict is not None))
+    match = head.figure in MATCH_FIGURES  # else transmission-only data: no reflection headline
     return BandResult(
-        band, head.worst, head.worst_frequency_hz, head.mean, head.expanded_uncertainty, verdict, RULE_TEXT[rule],
-        head.worst_upper, None if loss is None else loss.worst, None if loss is None else loss.worst_frequency_hz,
+        band, head.worst if match else None, head.worst_frequency_hz, head.mean if match else None,
+        head.expanded_uncertainty if match else None, verdict, RULE_TEXT[rule], head.worst_upper if match else None,
+        None if loss is None else loss.worst, None if loss is None else loss.worst_frequency_hz,
         None if loss is None else loss.expanded_uncertainty,
-        _markers(frequencies, band, markers, traces[0], loss_trace), figures)
+        _markers(frequencies, band, markers, traces[0], loss_trace) if match else (), figures)
 
 
 def judge_figures(device: DeviceIdentity, frequencies: np.ndarray, traces: Sequence[FigureTrace],
@@ -143,8 +145,11 @@ def judge_figures(device: DeviceIdentity, frequencies: np.ndarray, traces: Seque
 
 def headline_first(traces: Sequence[FigureTrace], judged: Collection[str]) -> list[FigureTrace]:
     """The traces with the headline first: the first judged match figure (as-terminated,
-    input match, output match), else the first match figure there is."""
+    input match, output match), else the first match figure there is (transmission-only
+    data have none: their order stands)."""
     matches = [t for t in traces if t.name in MATCH_FIGURES]
+    if not matches:
+        return list(traces)
     head = next((t for t in matches if t.name in judged), matches[0])
     return [head] + [t for t in traces if t is not head]
 

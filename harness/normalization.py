@@ -40,7 +40,7 @@ the bounded term dominates: U is then 0.9975 M, the 95.45 % quantile of the U-sh
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -48,7 +48,7 @@ import numpy as np
 from lineproof import metrics, two_port
 from lineproof.errors import CalibrationError
 from lineproof.uncertainty import UncertaintySettings, coverage_factor, estimate_trace_noise
-from lineproof.values import CalibrationRecord
+from lineproof.values import BandLimit, CalibrationRecord
 
 #: Rounds of tightening the device's match bound with its transmission bound (each holds;
 #: three more than the first change nothing visible: the ratio bounds move by < 1e-6 dB).
@@ -154,6 +154,16 @@ def normalize(cal: CalibrationRecord, frequencies_hz: np.ndarray, raw_s21: np.nd
         s21, metrics.insertion_loss_db(s21),
         _expanded(bounds.loss_db / math.sqrt(2), _DB * np.sqrt(magnitude), settings),
         _expanded(bounds.phase / math.sqrt(2), np.sqrt(phase), settings), bounds)
+
+
+def stated_device_match(frequencies_hz: np.ndarray, bands: Sequence[BandLimit], max_vswr: float | None) -> np.ndarray:
+    """What is known of the devices' |S11| and |S22| before they are measured: their specified
+    VSWR within the bands (where a specification applies), nothing (1) elsewhere."""
+    known = np.ones(np.shape(frequencies_hz))
+    if max_vswr is not None:
+        for band in bands:
+            known[metrics.band_indices(frequencies_hz, band)] = (max_vswr - 1) / (max_vswr + 1)
+    return known
 
 
 def _part(residuals: Mapping[str, np.ndarray], name: str, like: np.ndarray, default: complex = 0.0) -> np.ndarray:

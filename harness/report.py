@@ -118,15 +118,26 @@ def _verdict_table(records: RunRecords) -> str:
             first = index == 0
             rows.append([
                 _e(device.row["position"]) if first else "", _e(device.serial) if first else "",
-                _e(device.row["model"]) if first else "", _e(band["band"]), _number(band["worst_vswr"]),
-                _number(band["worst_frequency_hz"] / 1e6, 3), _number(band["limit_vswr"], 3),
-                _number(band["expanded_uncertainty"], 5), _verdict(band["verdict"]),
+                _e(device.row["model"]) if first else "", _e(band["band"]), *_headline_cells(device, band),
+                _verdict(band["verdict"]),
                 _verdict(device.row["verdict"]) if first else "",
                 _suspect_note(records, device) if first else "",
             ])
     headers = ["#", "serial", "model", "band", "worst VSWR", "at MHz", "limit", "U(|Γ|), k=2", "band", "device",
                "note"]
     return _table(headers, rows, frozenset({0, 4, 5, 6, 7}))
+
+
+def _headline_cells(device: DeviceRecord, band: dict[str, Any]) -> list[str]:
+    """Worst, where, limit and U of the band's headline: VSWR, or -- transmission-only data --
+    insertion loss in dB."""
+    if band.get("worst_vswr") is not None:
+        return [_number(band["worst_vswr"]), _number(band["worst_frequency_hz"] / 1e6, 3),
+                _number(band["limit_vswr"], 3), _number(band["expanded_uncertainty"], 5)]
+    loss = device.figure(str(band["band"]), INSERTION_LOSS)
+    at = loss.get("worst_frequency")
+    return [f"IL {_number(loss.get('worst'), 3)} dB", "" if at is None else _number(at / 1e6, 3),
+            f"{_number(loss.get('limit'), 3)} dB", f"{_number(loss.get('expanded_uncertainty'), 3)} dB"]
 
 
 def _suspect_note(records: RunRecords, device: DeviceRecord) -> str:
@@ -261,10 +272,11 @@ def _plots_section(records: RunRecords) -> str:
         parts.append(_image(overlay_plot(readable, records.band_limits), "VSWR of every device"))
     parts.append("<h2>Devices</h2>")
     for device in records.devices:
-        if device.reflection is None:
+        if device.problem is not None or device.frequencies_hz is None:
             parts.append(f"<p class='note'>{_e(device.serial)}: {_e(device.problem)}</p>")
             continue
-        parts.append(_image(device_plot(device, records.band_limits), f"VSWR of {device.serial}"))
+        if device.reflection is not None:  # none in a transmission-only record
+            parts.append(_image(device_plot(device, records.band_limits), f"VSWR of {device.serial}"))
         if device.s_parameters is not None:
             parts.append(_image(insertion_loss_plot(device, records.band_limits), f"insertion loss of {device.serial}"))
         if device.uncertainty is None:

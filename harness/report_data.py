@@ -36,6 +36,11 @@ class DeviceRecord:
     def serial(self) -> str:
         return str(self.row["serial"])
 
+    @property
+    def transmission_only(self) -> bool:
+        """A thru-response record: S21 alone (the other parameters NaN, not measured)."""
+        return self.s_parameters is not None and bool(np.isnan(self.s_parameters[:, 0, 0]).all())
+
     def figure(self, band: str, name: str) -> dict[str, float | None]:
         """One figure of a band as recorded (empty for a one-port record): worst, mean, limit,
         expanded_uncertainty, worst_upper, worst_frequency, worst_vswr, verdict (a number)."""
@@ -84,6 +89,9 @@ def _read_trace(record: DeviceRecord) -> None:
     record.metadata = read_metadata(network.comments)
     if network.nports == 2:
         record.s_parameters = np.asarray(network.s)
+        if record.transmission_only:
+            record.reflection = None  # nothing to plot as VSWR; the insertion-loss plot shows it
+            return
         # the headline figure is the as-terminated reflection when the record has it
         kept = record.arrays.get("as-terminated.reflection")
         if kept is not None and kept.shape == record.reflection.shape and record.metadata.get(

@@ -10,6 +10,8 @@ device's sweep).
 - :class:`TwoPortDevices` (one-path or SOLT): full S-parameters -- on a forward-only analyzer
   the device is turned round for its reverse direction -- and the figures of
   :mod:`lineproof.figures`, the sequence's choice judged.
+- :class:`TransmissionDevices` (thru response): S21 between the ports, normalized, its
+  insertion loss judged with the mismatch the normalization leaves in its uncertainty.
 """
 
 from __future__ import annotations
@@ -136,5 +138,43 @@ class TwoPortDevices:
             arrays["as-terminated.reflection"] = as_terminated.reflection
         way = "computed with" if self.as_terminated == "computed" else "measured on"
         description = (f"S-parameters of the device, port 1 its input and port 2 its output ({basis.calibration.method}"
-                       f"); as-terminated figure {way} {basis.qualification.name}")
+                       f"); as-terminated figure {way} {basis.qualification.name}" if basis.qualification else
+                       f"S-parameters of the device, port 1 its input and port 2 its output ({basis.calibration.method}"
+                       "); no termination qualified, no as-terminated figure")
         return Evaluated(result, f, two_port.s_matrix(*s), ordered[0].expanded, arrays, description)
+
+
+class TransmissionDevices:
+    """Thru-response runs: S21 alone, corrected for tracking, judged on insertion loss."""
+
+    two_port = True
+
+    def __init__(self, station: steps.Station, bands: Sequence[BandLimit], rule: DecisionRule,
+                 device_max_vswr: float | None) -> None:
+        self.station = station
+        self.bands = bands
+        self.rule = rule
+        self.device_max_vswr = device_max_vswr
+
+    def connect(self, device: DeviceIdentity, termination: str | None) -> None:
+        two_port_steps.connect_between_ports(self.station, device)
+
+    @property
+    def scan_output(self) -> str | None:
+        return "port:2"
+
+    def acquire(self, device: DeviceIdentity, termination: str | None) -> Acquired:
+        frequencies, raw = two_port_steps.sweep_device(self.station, calibration.THRU_RESPONSE_METHOD, device,
+                                                       connected=True)
+        return Acquired(frequencies, raw)
+
+    def evaluate(self, device: DeviceIdentity, acquired: Acquired, basis: MeasurementBasis) -> Evaluated:
+        f = acquired.frequencies_hz
+        result, found = two_port_steps.transmission_result(self.station, basis.calibration, device, f,
+                                                           acquired.raw["S21"], self.bands, self.rule,
+                                                           self.device_max_vswr)
+        arrays = {"insertion-loss.expanded_uncertainty": found.loss_expanded_db,
+                  "insertion-loss.mismatch_bound": found.bounds.loss_db,
+                  "phase.expanded_uncertainty": found.phase_expanded_rad}
+        return Evaluated(result, f, two_port_steps.transmission_data(found.s21), found.loss_expanded_db, arrays,
+                         two_port_steps.NORMALIZED)

@@ -25,10 +25,10 @@ from lineproof.journal import RunJournal
 from lineproof.operators import ConsoleOperator
 from lineproof.recording import MeasurementBasis, RecordedDevice, RunFacts, RunFolder, record_device
 from lineproof.run_checks import CalibrationPolicy, CheckRunner, failure_reason
-from lineproof.run_devices import Acquired, AsTerminatedDevices, TwoPortDevices
+from lineproof.run_devices import Acquired, AsTerminatedDevices, TransmissionDevices, TwoPortDevices
 from lineproof.run_view import RunView
 from lineproof.sequence import DeviceUnit, SequenceSpec, StepSpec, resolve_path
-from lineproof.sequence_methods import judged_figures
+from lineproof.sequence_methods import judged_figures, needs_termination
 from lineproof.stations import OpenStation
 from lineproof.steps import QualifiedTermination
 from lineproof.store import ResultStore
@@ -149,7 +149,7 @@ class StepRunner:
         self.recorded: list[RecordedDevice] = []
         self._record_lock = threading.Lock()
         self._pipeline: _RecordingPipeline | None = None
-        self._devices: AsTerminatedDevices | TwoPortDevices | None = None  # set by the batch
+        self._devices: AsTerminatedDevices | TwoPortDevices | TransmissionDevices | None = None  # set by the batch
         self.measuring = steps.Station(station.analyzer, _ProgressOperator(station.operator, view),  # type: ignore[arg-type]
                                        station.identity, spec.plan, station.spec.analyzer.port,
                                        station.spec.uncertainty)
@@ -214,7 +214,7 @@ class StepRunner:
         kit = load_kit(path)
         if cal_spec.chosen:
             self.view.note(f"calibration method: {cal_spec.method}, chosen by lineproof as {cal_spec.chosen}")
-        connections = {"one-port": 3, "one-path": 4, "solt": 7}.get(cal_spec.method, 3)
+        connections = {"one-port": 3, "one-path": 4, "solt": 7, "thru-response": 1}.get(cal_spec.method, 3)
         self.view.step_started(f"calibrating ({cal_spec.method}, kit {kit.name})", total=connections)
         temperature = self.checks.read_temperature()
         cal = dataclasses.replace(steps.calibrate(self.measuring, kit, cal_spec.method), temperature_c=temperature)
@@ -290,6 +290,8 @@ class StepRunner:
             operator.acknowledge(f"The calibration no longer holds ({problem}). Have the calibration standards "
                                  "ready: it is made again now")
         self._calibrate(-1, StepSpec("calibrate"))
+        if state.calibration is not None and state.calibration.method == calibration.THRU_RESPONSE_METHOD:
+            return  # transmission only: nothing to qualify or verify with it
         if self.spec.termination is not None:
             self._qualify(-1, StepSpec("qualify-termination"))
         if self.spec.check_standard is not None:
@@ -307,16 +309,22 @@ class StepRunner:
 
     def _basis(self) -> MeasurementBasis:
         state = self.state
-        if state.calibration is None or state.qualification is None:
+        if state.calibration is None or (state.qualification is None and needs_termination(self.spec)):
             raise RunHalted("the batch needs a calibration and a qualified termination first")
-        qualified, row, measured_utc = state.qualification
         check = state.last_check
+        if state.qualification is None:  # transmission judged alone: the device's output is on port 2
+            return MeasurementBasis(state.calibration, None, None, None, check[0] if check else None,
+                                    check[1] if check else None)
+        qualified, row, measured_utc = state.qualification
         return MeasurementBasis(state.calibration, qualified.qualification, row, measured_utc,
                                 check[0] if check else None, check[1] if check else None, qualified)
 
-    def _device_measurement(self) -> AsTerminatedDevices | TwoPortDevices:
+    def _device_measurement(self) -> AsTerminatedDevices | TwoPortDevices | TransmissionDevices:
         """How the batch measures each device: as the calibration in use allows."""
         cal, rule = self.state.calibration, self.spec.decision_rule
+        if cal is not None and cal.method == calibration.THRU_RESPONSE_METHOD:
+            return TransmissionDevices(self.measuring, self.spec.bands, rule,  # type: ignore[arg-type]
+                                       self.spec.measurement.device_max_vswr)
         if cal is None or cal.method not in (calibration.ONE_PATH_METHOD, calibration.FULL_TWO_PORT_METHOD):
             return AsTerminatedDevices(self.measuring, self.spec.bands, rule)  # type: ignore[arg-type]
         return TwoPortDevices(self.measuring, self.spec.bands, rule, cal.method,  # type: ignore[arg-type]
@@ -324,8 +332,8 @@ class StepRunner:
 
     def _batch(self, index: int, step: StepSpec) -> None:
         devices, termination = self.spec.devices, self.spec.termination
-        assert devices is not None and termination is not None
         self._devices = self._device_measurement()
+        assert devices is not None and (termination is not None or isinstance(self._devices, TransmissionDevices))
         overlap = not isinstance(self.station.operator, ConsoleOperator)
         pipeline = self._pipeline = _RecordingPipeline(overlap)
         self.measuring.operator.after_connect = pipeline.start  # type: ignore[attr-defined]
@@ -334,7 +342,7 @@ class StepRunner:
                 if self._check_due():
                     self.verify()
                 self._keep_calibration_valid()
-                self._measure_one(unit, termination.name, pipeline)
+                self._measure_one(unit, termination.name if termination is not None else None, pipeline)
                 if self.stop.requested:
                     break
             if not self.stop.requested and self.spec.reverify.at_end and self.state.measured > self.state.checked_at_devices:
@@ -361,25 +369,25 @@ class StepRunner:
                     yield unit
             return
         operator = self.station.operator
-        assert isinstance(operator, ConsoleOperator) and self.spec.termination is not None
+        assert isinstance(operator, ConsoleOperator)
         while not self.stop.requested:
             if devices.max_count is not None and len(self.state.taken) >= devices.max_count:
                 self.view.note(f"batch complete: {devices.max_count} device(s), the most this sequence takes")
                 return
             assert self._devices is not None
-            output = self._devices.scan_output or self.spec.termination.name
+            output = self._devices.scan_output or self.spec.termination.name  # type: ignore[union-attr]
             serial = operator.scan_device(self.measuring.port, devices.model, output, self.state.taken)
             if serial is None:
                 return
             yield DeviceUnit(serial, devices.model, None, "scanned")
 
-    def _measure_one(self, unit: DeviceUnit, termination: str, pipeline: _RecordingPipeline) -> None:
+    def _measure_one(self, unit: DeviceUnit, termination: str | None, pipeline: _RecordingPipeline) -> None:
         device = DeviceIdentity(unit.serial, unit.model)
         basis = self._basis()
         measurement = self._devices
         assert measurement is not None
-        connections = 1 if not measurement.two_port else (2 if self.measuring.paths == "forward" else 1) + (
-            self.spec.measurement.as_terminated == "measured")
+        connections = 1 if not isinstance(measurement, TwoPortDevices) else (
+            2 if self.measuring.paths == "forward" else 1) + (self.spec.measurement.as_terminated == "measured")
         self.view.step_started(f"{unit.serial}: connect and sweep", total=connections + 1)
         if self.spec.devices is not None and self.spec.devices.entry == "listed":
             measurement.connect(device, termination)

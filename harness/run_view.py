@@ -35,9 +35,11 @@ class RunView(Protocol):
 
 
 def _band_text(band: BandResult) -> str:
-    text = f"{band.limit.name} {band.worst_vswr:.3f}"
-    if not math.isinf(band.limit.max_vswr):
-        text += f" (limit {band.limit.max_vswr:.2f})"
+    text = band.limit.name
+    if band.worst_vswr is not None:  # none in transmission-only data
+        text += f" {band.worst_vswr:.3f}"
+        if not math.isinf(band.limit.max_vswr):
+            text += f" (limit {band.limit.max_vswr:.2f})"
     if band.worst_insertion_loss_db is not None:
         text += f" IL {band.worst_insertion_loss_db:.3f} dB"
         if band.limit.max_insertion_loss_db is not None:
@@ -54,11 +56,12 @@ def device_line(recorded: RecordedDevice) -> str:
 
 
 def _band_json(band: BandResult) -> dict[str, Any]:
-    found: dict[str, Any] = {"band": band.limit.name, "worst_vswr": round(band.worst_vswr, 5),
+    worst = band.worst_vswr
+    found: dict[str, Any] = {"band": band.limit.name, "worst_vswr": None if worst is None else round(worst, 5),
                              "limit_vswr": None if math.isinf(band.limit.max_vswr) else band.limit.max_vswr,
                              "worst_frequency_hz": band.worst_frequency_hz,
                              "verdict": band.verdict.value}
-    if band.figures and len(band.figures) > 1:
+    if band.figures and (len(band.figures) > 1 or worst is None):
         found["figures"] = [{"figure": f.figure, "worst": round(f.worst, 6), "worst_frequency_hz": f.worst_frequency_hz,
                              "limit": f.limit, "expanded_uncertainty": f.expanded_uncertainty,
                              "verdict": None if f.verdict is None else f.verdict.value} for f in band.figures]

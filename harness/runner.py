@@ -164,7 +164,7 @@ def _facts(spec: SequenceSpec, run_id: str, station: OpenStation, operator: str)
         reference_plane=station.spec.reference_plane, decision_rule=spec.decision_rule,
         figures_judged=judged_figures(spec), method_chosen=spec.calibration.chosen if spec.calibration else "",
         as_terminated=spec.measurement.as_terminated if spec.calibration and spec.calibration.method in TWO_PORT_METHODS
-        else "",
+        and spec.termination is not None else "",
     )
 
 

@@ -70,10 +70,14 @@ class CalibrationSpec:
 @dataclass(frozen=True)
 class MeasurementSpec:
     """``[measurement]``: the figures the verdicts are on (None: the default for the method,
-    see :mod:`lineproof.figures`) and how a two-port run finds the as-terminated figure."""
+    see :mod:`lineproof.figures`), how a two-port run finds the as-terminated figure, and --
+    for a thru-response run, which measures no reflection -- the devices' specified match
+    within the bands (VSWR at either port; None: bounded by their own transmission, see
+    :mod:`lineproof.normalization`)."""
 
     judge: tuple[str, ...] | None = None
     as_terminated: str = "computed"
+    device_max_vswr: float | None = None
 
 
 @dataclass(frozen=True)
@@ -421,7 +425,7 @@ def _measurement(table: TableReader | None) -> MeasurementSpec:
         return MeasurementSpec()
     from lineproof.figures import AS_TERMINATED_WAYS, FIGURES
 
-    table.reject_unknown({"judge", "as_terminated"})
+    table.reject_unknown({"judge", "as_terminated", "device_max_vswr"})
     names = table.get("judge", list, None)
     judged = None
     if names is not None:
@@ -432,7 +436,9 @@ def _measurement(table: TableReader | None) -> MeasurementSpec:
         else:
             judged = tuple(names)
     way = table.choice("as_terminated", AS_TERMINATED_WAYS, "computed") or "computed"
-    return MeasurementSpec(judged, way)
+    device_vswr = table.number("device_max_vswr", None, above=1.0,
+                               fix="give the devices' specified VSWR at either port, e.g. 1.25, or remove it")
+    return MeasurementSpec(judged, way, device_vswr)
 
 
 def _records(table: TableReader | None) -> tuple[str | None, str | None]:

@@ -162,6 +162,8 @@ def _check_check_standard(spec: SequenceSpec, problems: Problems) -> None:
 
 
 def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
+    from lineproof.sequence_methods import needs_termination
+
     needs: dict[str, tuple[str | None, str]] = {
         "calibrate": ("calibration", "add a [calibration] table with method and kit"),
         "qualify-termination": ("termination", "add a [termination] table with the termination's name"),
@@ -170,6 +172,7 @@ def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
         "repeatability-study": ("study", 'add a [study] table with kind = "repeatability" and reconnections'),
     }
     seen: set[str] = set()
+    transmission_only = spec.calibration is not None and spec.calibration.method == "thru-response"
     for step in spec.steps:
         table, fix = needs.get(step.action, (None, ""))
         if table is not None and getattr(spec, table) is None:
@@ -177,24 +180,41 @@ def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
         if step.action in ("qualify-termination", "verify", "measure-batch", "repeatability-study") and "calibrate" not in seen:
             problems.add(step.key, f"step {step.action!r} comes before any calibrate step",
                          "put a do = \"calibrate\" step before it")
+        if transmission_only:
+            _check_transmission_step(step, problems)
         if step.action == "measure-batch":
-            if "qualify-termination" not in seen:
-                problems.add(step.key, "the batch would be measured on a termination nobody qualified",
-                             "put a do = \"qualify-termination\" step before it")
             if "measure-batch" in seen:
                 problems.add(step.key, "a sequence measures one batch", "keep one measure-batch step")
-            if spec.termination is None:
+            if needs_termination(spec) and "qualify-termination" not in seen:
+                problems.add(step.key, "the batch would be measured on a termination nobody qualified",
+                             "put a do = \"qualify-termination\" step before it")
+            if needs_termination(spec) and spec.termination is None:
                 problems.add(step.key, "the batch needs a [termination] for the devices' outputs",
                              "add a [termination] table")
         if step.action == "repeatability-study":
             _check_study_step(spec, step, seen, problems)
         seen.add(step.action)
-    if spec.reverify.any:
+    if spec.reverify.any and transmission_only:
+        problems.add("reverify", "a thru-response calibration cannot read the check standard's reflection",
+                     'remove [reverify], or calibrate with method = "solt" or "one-path"')
+    elif spec.reverify.any:
         if spec.check_standard is None:
             problems.add("reverify", "re-verification needs a [check_standard]", "add one or remove [reverify]")
         if "measure-batch" not in seen:
             problems.add("reverify", "re-verification happens during a batch, and this sequence measures none",
                          "remove [reverify] or add a measure-batch step")
+
+
+def _check_transmission_step(step, problems: Problems) -> None:  # noqa: ANN001
+    """A thru-response run measures transmission only: no reflection to qualify a termination
+    or read a check standard with, and the devices' outputs go to analyzer port 2."""
+    why = {"qualify-termination": "it cannot qualify a termination, and the devices' outputs go to analyzer port 2",
+           "verify": "it cannot read the check standard's reflection",
+           "repeatability-study": "a repeatability study reads the devices' match"}.get(step.action)
+    if why is not None:
+        problems.add(step.key, f"step {step.action!r}: a thru-response calibration measures transmission only, so "
+                     f"{why}", 'remove the step (and the table it needs), or calibrate with method = "solt" or '
+                     '"one-path"')
 
 
 def _check_study_step(spec: SequenceSpec, step, seen: set[str], problems: Problems) -> None:  # noqa: ANN001
@@ -257,7 +277,7 @@ def _check_switch(spec: SequenceSpec, problems: Problems) -> None:
     for name, used_at in _needed_objects(spec, port_1_only=True):
         if name not in switch.wiring:
             problems.add(used_at, f"{name!r} is not wired to the switch", f"add it to [{key}] in {source}")
-    two_port = spec.calibration is not None and spec.calibration.method in ("solt", "one-path")
+    two_port = spec.calibration is not None and spec.calibration.method in ("solt", "one-path", "thru-response")
     for unit in spec.devices.units if spec.devices and not two_port else ():  # two-port routes: sequence_methods
         if unit.slot is not None and unit.slot not in switch.wiring:
             problems.add(unit.key.replace(".serial", ".slot"), f"slot {unit.slot!r} of {unit.serial} is not wired to the switch",

@@ -319,10 +319,12 @@ class ResultStore:
                                 verification_id, file_sha256, packed))
             device_row = int(cursor.lastrowid)
             for b in result.bands:
-                self._run(db, "INSERT INTO band_results VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                self._run(db, "INSERT INTO band_results (device_row, band, start_hz, stop_hz, limit_vswr, worst_vswr,"
+                          " worst_frequency_hz, mean_vswr, worst_return_loss_db, expanded_uncertainty, verdict,"
+                          " decision_rule, figure) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                           (device_row, b.limit.name, b.limit.start_hz, b.limit.stop_hz, b.limit.max_vswr,
                            b.worst_vswr, b.worst_frequency_hz, b.mean_vswr, b.worst_return_loss_db,
-                           b.expanded_uncertainty, b.verdict.value, b.decision_rule))
+                           b.expanded_uncertainty, b.verdict.value, b.decision_rule, b.headline))
             for (band, metric), (value, unit) in (metrics or {}).items():
                 self._run(db, "INSERT INTO band_metrics VALUES (?, ?, ?, ?, ?)", (device_row, band, metric, value, unit))
         return device_row

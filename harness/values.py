@@ -196,15 +196,18 @@ class FigureResult:
 class BandResult:
     """One band of one device: worst and mean figures and the verdict.
 
+    ``worst_reflection`` and ``mean_reflection`` are the headline match figure's |Γ| (None
+    for transmission-only data: a thru response measures no reflection; the band's figures
+    then hold insertion loss, and ``worst_frequency_hz`` is its worst point);
     ``expanded_uncertainty`` is the largest expanded (k = 2) uncertainty of |Γ| in the band;
     ``worst_upper_reflection`` the largest |Γ| + U (what guard-banded acceptance compares).
     Insertion-loss figures are present when the band has transmission data.
     """
 
     limit: BandLimit
-    worst_reflection: float
+    worst_reflection: float | None
     worst_frequency_hz: float
-    mean_reflection: float
+    mean_reflection: float | None
     expanded_uncertainty: float | None
     verdict: Verdict
     decision_rule: str
@@ -220,16 +223,23 @@ class BandResult:
         return next((f for f in self.figures if f.figure == name), None)
 
     @property
-    def worst_vswr(self) -> float:
-        return _vswr(self.worst_reflection)
+    def worst_vswr(self) -> float | None:
+        return None if self.worst_reflection is None else _vswr(self.worst_reflection)
 
     @property
-    def mean_vswr(self) -> float:
-        return _vswr(self.mean_reflection)
+    def mean_vswr(self) -> float | None:
+        return None if self.mean_reflection is None else _vswr(self.mean_reflection)
 
     @property
-    def worst_return_loss_db(self) -> float:
+    def worst_return_loss_db(self) -> float | None:
+        if self.worst_reflection is None:
+            return None
         return math.inf if self.worst_reflection == 0 else -20.0 * math.log10(self.worst_reflection)
+
+    @property
+    def headline(self) -> str:
+        """The figure the band's headline is: its first figure (as-terminated for one-port data)."""
+        return self.figures[0].figure if self.figures else "as-terminated"
 
 
 def _vswr(reflection: float) -> float:
