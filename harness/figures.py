@@ -183,6 +183,8 @@ def two_port_figures(cal: CalibrationRecord, frequencies: np.ndarray, s: two_por
     product = s21 * s12
     through = np.abs(s21)
     relative = transmission_relative_uncertainty(cal.residuals, s11, s21, s22, settings, s21_magnitude=through)
+    if cal.interpolation_error:  # a reused calibration moved onto this sweep: its estimate, of unknown phase
+        relative = np.hypot(relative, cal.interpolation_error / math.sqrt(2))
     found = [_match(cal, frequencies, s11, s22, product, settings, INPUT_MATCH, views[INPUT_MATCH]),
              _match(cal, frequencies, s22, s11, product, settings, OUTPUT_MATCH, views[OUTPUT_MATCH]),
              FigureTrace(INSERTION_LOSS, metrics.insertion_loss_db(through),

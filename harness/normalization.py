@@ -147,7 +147,7 @@ def normalize(cal: CalibrationRecord, frequencies_hz: np.ndarray, raw_s21: np.nd
     bounds = mismatch_bounds(s21, source, load, thru, device_match)
     through = np.maximum(np.abs(s21), 1e-12)
     sigma = settings.trace_noise if settings.trace_noise is not None else estimate_trace_noise(s21)
-    noise = (sigma / through) ** 2
+    noise = (sigma / through) ** 2 + (cal.interpolation_error or 0.0) ** 2 / 2  # and a reused calibration's moving
     magnitude = _part(residuals, "transmission.magnitude_variance", s21).real + noise
     phase = _part(residuals, "transmission.phase_variance", s21).real + noise
     return NormalizedTransmission(

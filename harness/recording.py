@@ -78,6 +78,8 @@ class MeasurementBasis:
     verification_id: int | None = None
     #: The termination's measured trace and uncertainty (a ``steps.QualifiedTermination``).
     termination_data: Any = None
+    #: Where the calibration came from when the sequence reused a stored one (None: made in this run).
+    reused_from: str | None = None
 
 
 @dataclass(frozen=True)
@@ -126,6 +128,10 @@ def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResu
         ("calibration.kit_sha256", cal.kit_hash),
         ("calibration.created_utc", cal.created_utc),
         ("calibration.age_s", f"{_age_seconds(cal.created_utc, result.measured_utc):.0f}"),
+        ("calibration.reused", "no: made in this run" if basis.reused_from is None
+         else f"yes: {basis.reused_from}"),
+        ("calibration.interpolation_error", "none: on the sweep's own grid" if cal.interpolation_error is None
+         else f"{cal.interpolation_error:.3g} (estimated; in the uncertainty)"),
     ]
     items += _termination_items(q, basis.qualification_utc)
     items += _verification_items(basis.verification, position)

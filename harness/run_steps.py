@@ -58,6 +58,8 @@ class RunState:
     checked_at_utc: datetime = field(default_factory=lambda: datetime.now(UTC))
     #: Why the calibration in use no longer holds (a failed check), until it is made again.
     calibration_doubt: str | None = None
+    #: Where the calibration in use came from when the sequence reused a stored one.
+    reused_from: str | None = None
 
 
 class _ProgressOperator:
@@ -208,6 +210,9 @@ class StepRunner:
             return
         cal_spec = self.spec.calibration
         assert cal_spec is not None
+        if cal_spec.reuse is not None and index >= 0:  # the sequence's step; made again when it stops holding
+            self._reuse()
+            return
         path = resolve_path(cal_spec.kit, self.spec)
         if path is None:
             raise InputError("cal kit file not found", path=cal_spec.kit, key="calibration.kit")
@@ -221,8 +226,28 @@ class StepRunner:
         self.store.save_calibration(self.facts.run_id, cal, self.facts.station)
         self.journal.write("calibrated", calibration_id=cal.calibration_id, reused=False)
         state.calibration, state.qualification, state.last_check = cal, None, None
-        state.reuse_calibration, state.calibration_doubt = False, None
+        state.reuse_calibration, state.calibration_doubt, state.reused_from = False, None, None
         self.view.step_finished(f"calibrated: {cal.method}, kit {kit.name} -> {cal.calibration_id}")
+
+    def _reuse(self) -> None:
+        """Load the stored calibration the sequence names (:mod:`lineproof.calibration_reuse`);
+        the steps after it -- qualification, verification -- run as listed."""
+        from lineproof.calibration_reuse import ReuseRefused, reuse_calibration
+
+        state = self.state
+        try:
+            reused = reuse_calibration(self.store, self.spec, self.facts.station, self.station.identity,
+                                       self.checks.read_temperature())
+        except ReuseRefused as exc:
+            raise RunHalted(str(exc)) from exc
+        self.store.update_run(self.facts.run_id, {"calibration_id": reused.calibration.calibration_id,
+                                                  "calibration_method": reused.calibration.method,
+                                                  "cal_kit": reused.calibration.kit_name})
+        self.journal.write("calibrated", calibration_id=reused.calibration.calibration_id, reused=True,
+                           reused_from_run=reused.run_id, interpolation_error=reused.calibration.interpolation_error)
+        state.calibration, state.qualification, state.last_check = reused.calibration, None, None
+        state.reuse_calibration, state.calibration_doubt, state.reused_from = False, None, reused.describe()
+        self.view.step_finished(f"calibration reused: {reused.describe()}")
 
     def _qualify(self, index: int, step: StepSpec) -> None:
         state, termination = self.state, self.spec.termination
@@ -314,10 +339,11 @@ class StepRunner:
         check = state.last_check
         if state.qualification is None:  # transmission judged alone: the device's output is on port 2
             return MeasurementBasis(state.calibration, None, None, None, check[0] if check else None,
-                                    check[1] if check else None)
+                                    check[1] if check else None, reused_from=state.reused_from)
         qualified, row, measured_utc = state.qualification
         return MeasurementBasis(state.calibration, qualified.qualification, row, measured_utc,
-                                check[0] if check else None, check[1] if check else None, qualified)
+                                check[0] if check else None, check[1] if check else None, qualified,
+                                state.reused_from)
 
     def _device_measurement(self) -> AsTerminatedDevices | TwoPortDevices | TransmissionDevices:
         """How the batch measures each device: as the calibration in use allows."""

@@ -25,6 +25,7 @@ from pathlib import Path
 from typing import Any
 
 from lineproof import __version__, calstore
+from lineproof.calibration import same_grid
 from lineproof.calkit import load_kit
 from lineproof.errors import CalibrationError, InputError, LineproofError, RunHalted
 from lineproof.journal import JOURNAL_NAME, RunJournal, read_journal
@@ -291,7 +292,9 @@ def calibration_problem(cal: CalibrationRecord | None, spec: SequenceSpec, ident
     moved = CalibrationPolicy(None, spec.calibration.max_temperature_change_k).problem(cal, temperature_c)
     if moved is not None:
         return moved
-    if cal.plan != spec.plan:
+    plan = spec.plan
+    if not same_grid(cal.frequencies_hz, plan.frequencies()) or \
+            (cal.plan.if_bandwidth_hz, cal.plan.power_dbm) != (plan.if_bandwidth_hz, plan.power_dbm):
         return "it was made for another sweep"
     path = resolve_path(spec.calibration.kit, spec)
     if path is None or load_kit(path).sha256 != cal.kit_hash:
@@ -299,6 +302,20 @@ def calibration_problem(cal: CalibrationRecord | None, spec: SequenceSpec, ident
     if last_check_passed is False:
         return "its last check-standard verification failed"
     return None
+
+
+def _reused(store: ResultStore, cal: CalibrationRecord, spec: SequenceSpec,
+            run_id: str) -> tuple[CalibrationRecord, str | None]:
+    """A calibration a resumed run had reused from another run, fitted to its sweep again, and
+    where it came from (None: this run made it)."""
+    from lineproof.calibration_reuse import ReusedCalibration
+
+    made_in = store.rows("SELECT run_id FROM calibrations WHERE calibration_id = ?", (cal.calibration_id,))
+    if not made_in or made_in[0]["run_id"] == run_id:
+        return cal, None
+    assert spec.calibration is not None
+    fitted = calstore.fit_to_sweep(cal, spec.plan.frequencies(), spec.calibration.max_interpolation_error)
+    return fitted, ReusedCalibration(fitted, made_in[0]["run_id"], cal.created_utc).describe()
 
 
 def _kept_qualification(row: dict[str, Any]) -> tuple[QualifiedTermination, int, str]:
@@ -323,6 +340,11 @@ def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dic
         cal = store.load_calibration(str(cal_id)) if cal_id else None
     except InputError as exc:
         return state, f"its saved terms cannot be read ({exc.problem})"
+    if cal is not None and spec.calibration is not None and spec.calibration.reuse is not None:
+        try:  # a calibration of another run, reused: fitted to this sweep again, as the run first did
+            cal, state.reused_from = _reused(store, cal, spec, run_id)
+        except CalibrationError as exc:
+            return state, str(exc)
     checks = store.rows("SELECT * FROM verifications WHERE run_id = ? AND calibration_id = ? ORDER BY verification_id",
                         (run_id, cal_id))
     problem = calibration_problem(cal, spec, identity, bool(checks[-1]["passed"]) if checks else None, temperature_c)

@@ -50,6 +50,10 @@ class SequenceProblems(InputError):
         return self.message
 
 
+#: ``[calibration] reuse``: the newest stored calibration that fits, or one by its id.
+REUSE = re.compile(r"^(latest|cal-[0-9]{8}T[0-9]{6}Z-[0-9a-f]{6})$")
+REUSE_FIX = 'write reuse = "latest" or a calibration id as lineproof printed it (cal-20260101T120000Z-1a2b3c)'
+
 #: ``[calibration] method`` when the sequence leaves the choice to the harness: the best
 #: method the analyzer allows and the station can carry out (:mod:`lineproof.sequence_methods`).
 AUTOMATIC_METHOD = "best"
@@ -65,6 +69,13 @@ class CalibrationSpec:
     #: The calibration holds while the analyzer's temperature stays within this of the
     #: temperature it was made at (None: not checked).
     max_temperature_change_k: float | None = 1.0
+    #: A stored calibration the calibrate step loads instead of measuring the standards:
+    #: "latest" (the newest of this station, analyzer and method) or a calibration id; None:
+    #: measure them (see :mod:`lineproof.calibration_reuse`).
+    reuse: str | None = None
+    #: The largest error interpolating a reused calibration onto this sweep may add to a
+    #: corrected result (|Γ|, or relative |S21|).
+    max_interpolation_error: float = 1e-3
 
 
 @dataclass(frozen=True)
@@ -304,7 +315,8 @@ def _calibration(table: TableReader | None) -> CalibrationSpec | None:
         return None
     from lineproof.calibration import METHOD_NAMES
 
-    table.reject_unknown({"method", "kit", "valid_for_minutes", "max_temperature_change_k"})
+    table.reject_unknown({"method", "kit", "valid_for_minutes", "max_temperature_change_k", "reuse",
+                          "max_interpolation_error"})
     method = table.choice("method", [*METHOD_NAMES, AUTOMATIC_METHOD], AUTOMATIC_METHOD)
     kit = table.get("kit", str, fix='add kit = "kits/n50-illustrative.toml" (or your kit file)')
     minutes = table.number("valid_for_minutes", 480.0, above=0.0)
@@ -312,9 +324,16 @@ def _calibration(table: TableReader | None) -> CalibrationSpec | None:
     # +-1 K of the temperature the calibration was made at.
     kelvin = table.number("max_temperature_change_k", 1.0, above=0.0,
                           fix="give the largest temperature change a calibration survives, e.g. 1.0")
-    if None in (method, kit, minutes, kelvin):
+    reuse = table.get("reuse", str, None, fix=REUSE_FIX)
+    if reuse is not None and not REUSE.match(reuse):
+        table.problems.add(table.key("reuse"), f"{reuse[:60]!r} names no stored calibration", REUSE_FIX)
+        reuse = None
+    tolerance = table.number("max_interpolation_error", 1e-3, above=0.0,
+                             fix="give the largest error interpolation may add, e.g. 1e-3 (|reflection|)")
+    if None in (method, kit, minutes, kelvin, tolerance):
         return None
-    return CalibrationSpec(method, kit, minutes * 60.0, max_temperature_change_k=kelvin)
+    return CalibrationSpec(method, kit, minutes * 60.0, max_temperature_change_k=kelvin, reuse=reuse,
+                           max_interpolation_error=tolerance)
 
 
 def _termination(table: TableReader | None) -> TerminationSpec | None:

@@ -106,6 +106,9 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
     cal = spec.calibration
     if cal is None:
         return
+    if cal.reuse is not None and not spec.has_step("calibrate"):
+        problems.add("calibration.reuse", "a stored calibration is loaded by the calibrate step, and this sequence "
+                     "has none", 'add a do = "calibrate" step before the steps that need it, or remove reuse')
     if caps is not None:
         from lineproof.calibration import choose_method
         from lineproof.errors import CalibrationError

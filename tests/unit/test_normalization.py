@@ -141,3 +141,37 @@ def test_normalize_states_the_mismatch_it_leaves() -> None:
     assert np.all(np.abs(np.angle(found.s21 / device[:, 1, 0])) <= found.phase_expanded_rad)
     with pytest.raises(CalibrationError, match="raw_source_match_db and raw_load_match_db"):
         normalize(cal, F, raw, UncertaintySettings())
+
+
+def test_a_moved_calibrations_estimate_widens_the_transmission_uncertainty() -> None:
+    # A reused calibration interpolated onto a sweep carries the interpolation's own estimate e
+    # (relative, of unknown phase: u = e/√2).  It adds to the insertion-loss uncertainty of a
+    # SOLT correction in quadrature (k = 2 there) and of a thru response beside the mismatch.
+    from dataclasses import replace
+
+    from lineproof.calkit import load_kit
+    from lineproof.figures import INSERTION_LOSS, two_port_figures
+    from lineproof.uncertainty import residual_model, transmission_model
+
+    kit = load_kit("kits/n50-illustrative.toml")
+    settings = UncertaintySettings(trace_noise=1e-4, raw_source_match=SOURCE, raw_load_match=LOAD)
+    residuals = {**residual_model(kit, ("open", "short", "load"), F, settings, "port1"),
+                 **residual_model(kit, ("open", "short", "load"), F, settings, "port2"),
+                 **transmission_model(kit, F, settings)}
+    terms = {f"{d}.{t}": np.full(F.size, 0.1 + 0j) for d in ("forward", "reverse") for t in two_port.DIRECTION_TERMS}
+    solt = calibration.make_record(calibration.FULL_TWO_PORT_METHOD, terms, F, PLAN,
+                                   InstrumentIdentity("T", "M", "0", "0"), "kit", "0" * 64, 50.0, residuals)
+    s = passive_reciprocal(np.random.default_rng(5), F.size)
+    traces = (s[:, 0, 0], s[:, 1, 0], s[:, 0, 1], s[:, 1, 1])
+
+    def loss_u(cal: object) -> np.ndarray:
+        return next(t for t in two_port_figures(cal, F, traces, settings) if t.name == INSERTION_LOSS).expanded
+
+    added = np.sqrt(loss_u(replace(solt, interpolation_error=0.01)) ** 2 - loss_u(solt) ** 2)
+    np.testing.assert_allclose(added, 2 * 20 / math.log(10) * 0.01 / math.sqrt(2), rtol=1e-9)
+    thru = calibration.make_record(calibration.THRU_RESPONSE_METHOD, {"forward.transmission_tracking": np.ones(F.size)},
+                                   F, PLAN, InstrumentIdentity("T", "M", "0", "0"), "kit", "0" * 64, 50.0, residuals)
+    plain = normalize(thru, F, s[:, 1, 0], settings, device_match=0.05)
+    moved = normalize(replace(thru, interpolation_error=0.01), F, s[:, 1, 0], settings, device_match=0.05)
+    assert np.all(moved.loss_expanded_db > plain.loss_expanded_db)
+    assert np.all(moved.phase_expanded_rad > plain.phase_expanded_rad)

@@ -200,3 +200,23 @@ dotted.key = 5
     assert lines.line_of("b[1].y") == 14 and lines.line_of("b[1].c.z") == 16
     assert lines.line_of("b[2].y") == 19 and lines.line_of("b[2].dotted.key") == 20
     assert lines.line_of("nothing.here") is None
+
+
+def test_a_stored_calibration_is_named_as_lineproof_names_it(tmp_path: Path) -> None:
+    reuse = 'kit = "kits/n50-illustrative.toml"\nreuse = "latest"\nmax_interpolation_error = 2e-3'
+    spec = load_sequence(write(tmp_path, GOOD.replace('kit = "kits/n50-illustrative.toml"', reuse)))
+    assert spec.calibration is not None and spec.calibration.reuse == "latest"
+    assert spec.calibration.max_interpolation_error == 2e-3
+    named = GOOD.replace('kit = "kits/n50-illustrative.toml"',
+                         'kit = "kits/n50-illustrative.toml"\nreuse = "cal-20260101T120000Z-1a2b3c"')
+    assert load_sequence(write(tmp_path, named)).calibration.reuse == "cal-20260101T120000Z-1a2b3c"
+    text = GOOD.replace('kit = "kits/n50-illustrative.toml"', 'kit = "kits/n50-illustrative.toml"\nreuse = "newest"')
+    (found,) = problems_of(tmp_path, text)
+    assert found.key == "calibration.reuse" and found.line == line_of(text, 'reuse = "newest"')
+    assert "'newest' names no stored calibration" in found.problem and 'reuse = "latest"' in found.fix
+    # the calibrate step is where a stored calibration is loaded
+    text = GOOD.replace('kit = "kits/n50-illustrative.toml"', reuse).replace(
+        '[[step]]\ndo = "calibrate"\n\n[[step]]\ndo = "qualify-termination"\n\n[[step]]\ndo = "verify"\n\n'
+        '[[step]]\ndo = "measure-batch"\n', '[[step]]\ndo = "message"\ntext = "nothing to do"\n')
+    by_key = {p.key: p for p in problems_of(tmp_path, text)}
+    assert "loaded by the calibrate step, and this sequence has none" in by_key["calibration.reuse"].problem
