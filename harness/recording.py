@@ -9,6 +9,7 @@ The header carries everything DESIGN.md's "Records" asks for, each line behind t
 from __future__ import annotations
 
 import hashlib
+import math
 import os
 import shutil
 from collections.abc import Mapping
@@ -154,6 +155,7 @@ def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResu
             (f"{prefix}.verdict", band.verdict.value),
         ]
     items += _figure_items(facts, result)
+    items += _group_delay_items(result) + marker_items(result)
     transmission_only = bool(result.bands) and all(band.worst_reflection is None for band in result.bands)
     items += _transmission_uncertainty_items(uncertainty) if transmission_only else _uncertainty_items(uncertainty)
     items += sorted(result.extra.items())
@@ -240,6 +242,49 @@ def _figure_items(facts: RunFacts, result: DeviceResult) -> list[tuple[str, obje
     return items
 
 
+_UNRESOLVED = "not resolved: the phase turns more than 90 degrees between sweep points (sweep more points)"
+
+
+def _group_delay_items(result: DeviceResult) -> list[tuple[str, object]]:
+    items: list[tuple[str, object]] = []
+    for band in result.bands:
+        if band.group_delay_s is not None:
+            low, high = band.group_delay_s
+            prefix = f"band.{band.limit.name}.group_delay"
+            items += [(f"{prefix}.min_s", _UNRESOLVED if math.isnan(low) else f"{low:.6g}"),
+                      (f"{prefix}.max_s", _UNRESOLVED if math.isnan(high) else f"{high:.6g}")]
+    return items
+
+
+def marker_items(result: DeviceResult) -> list[tuple[str, object]]:
+    """Each marker's reading as metadata: where it was read, then what the data hold there."""
+    items: list[tuple[str, object]] = []
+    for marker in result.markers:
+        prefix = f"marker.{marker.name}"
+        items.append((f"{prefix}.frequency_hz", f"{marker.frequency_hz:.10g}"))
+        if marker.reflection is not None:
+            items += [(f"{prefix}.figure", marker.figure), (f"{prefix}.vswr", f"{marker.vswr:.4f}"),
+                      (f"{prefix}.return_loss_db", f"{marker.return_loss_db:.2f}"),
+                      (f"{prefix}.expanded_uncertainty", _or_none(marker.expanded_uncertainty, ".5f"))]
+        if marker.insertion_loss_db is not None:
+            items += [(f"{prefix}.insertion_loss_db", f"{marker.insertion_loss_db:.4f}"),
+                      (f"{prefix}.insertion_loss_expanded_uncertainty_db",
+                       _or_none(marker.insertion_loss_uncertainty_db, ".4f"))]
+        if marker.phase_deg is not None:
+            items += [(f"{prefix}.phase_deg", f"{marker.phase_deg:.3f}"),
+                      (f"{prefix}.phase_expanded_uncertainty_deg", _or_none(marker.phase_uncertainty_deg, ".3f"))]
+        if marker.group_delay_s is not None:
+            resolved = not math.isnan(marker.group_delay_s)
+            items += [(f"{prefix}.group_delay_s", f"{marker.group_delay_s:.6g}" if resolved else _UNRESOLVED),
+                      (f"{prefix}.group_delay_expanded_uncertainty_s",
+                       _or_none(marker.group_delay_uncertainty_s if resolved else None, ".3g"))]
+    return items
+
+
+def _or_none(value: float | None, spec: str) -> str:
+    return "not evaluated" if value is None else format(value, spec)
+
+
 def _own_keys(band: BandResult) -> bool:
     """Whether a band's figures are recorded each under its own keys: with more than one, or
     when the one there is is not a match figure (transmission only)."""
@@ -296,6 +341,9 @@ def band_metrics(result: DeviceResult) -> dict[tuple[str, str], tuple[float, str
                 values["worst_vswr"] = (float(metrics.vswr_from_reflection(figure.worst)), "ratio")
             found.update({(band.limit.name, f"{figure.figure}.{name}"): value for name, value in values.items()
                           if value[0] is not None})
+        if band.group_delay_s is not None and not any(math.isnan(x) for x in band.group_delay_s):
+            found[(band.limit.name, "group_delay.min")] = (band.group_delay_s[0], "s")
+            found[(band.limit.name, "group_delay.max")] = (band.group_delay_s[1], "s")
     return found
 
 

@@ -213,6 +213,38 @@ def _figures_table(records: RunRecords) -> str:
     return "<h2>Figures</h2>" + note + _table(headers, rows, frozenset({3, 4, 5, 6}))
 
 
+def _plus_minus(value: object, u: object, digits: int, scale: float = 1.0) -> str:
+    if value is None:
+        return ""
+    text = _number(float(value) * scale, digits)  # type: ignore[arg-type]
+    return text if u is None else f"{text} ± {_number(float(u) * scale, digits)}"  # type: ignore[arg-type]
+
+
+def _markers_section(records: RunRecords) -> str:
+    """Each device's readings at the sequence's markers, and its group delay per band."""
+    rows = [[_e(d.serial), _e(m["marker"]), _number(m["frequency_hz"] / 1e6, 3), _e(m.get("figure") or ""),
+             _number(m.get("vswr")), _plus_minus(m.get("expanded_uncertainty"), None, 5),
+             _plus_minus(m.get("insertion_loss_db"), m.get("insertion_loss_expanded_uncertainty_db"), 3),
+             _plus_minus(m.get("phase_deg"), m.get("phase_expanded_uncertainty_deg"), 2),
+             _plus_minus(m.get("group_delay_s"), m.get("group_delay_expanded_uncertainty_s"), 3, 1e9)]
+            for d in records.devices for m in d.markers]
+    delays = [[_e(d.serial), _e(band["band"]), _number(values["group_delay.min"][0] * 1e9, 3),
+               _number(values["group_delay.max"][0] * 1e9, 3)]
+              for d in records.devices for band in d.bands
+              if "group_delay.min" in (values := d.metrics.get(str(band["band"]), {}))]
+    parts = []
+    if rows:
+        parts.append("<h2>Markers</h2><p class='note'>Read at the sweep point nearest each marker: the headline match "
+                     "figure, insertion loss, the phase of S21 and its group delay, each ± its expanded uncertainty "
+                     "(k = 2; the group delay's from the phase's at the neighbouring points, a bound).</p>"
+                     + _table(["serial", "marker", "MHz", "figure", "VSWR", "U(|Γ|)", "IL (dB)", "phase (°)",
+                               "group delay (ns)"], rows, frozenset({2, 4, 5, 6, 7, 8})))
+    if delays:
+        parts.append("<h2>Group delay</h2>" + _table(["serial", "band", "smallest (ns)", "largest (ns)"], delays,
+                                                     frozenset({2, 3})))
+    return "".join(parts)
+
+
 def _calibration_section(records: RunRecords) -> str:
     calibrations = _table(
         ["calibration", "made (UTC)", "method", "kit", "analyzer", "sweep"],
@@ -290,7 +322,7 @@ def render_html(records: RunRecords) -> str:
         f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>lineproof report {_e(run_id)}</title>"
         f"<style>{_STYLE}</style></head><body><h1>Run report: {_e(records.run['sequence_name'])}</h1>"
         f"{_run_section(records)}{_study_section(records)}<h2>Verdicts</h2>{_verdict_table(records)}"
-        f"{_figures_table(records)}{_suspect_section(records)}"
+        f"{_figures_table(records)}{_markers_section(records)}{_suspect_section(records)}"
         f"{_calibration_section(records)}"
         f"{_verification_section(records)}{_plots_section(records)}"
         f"<p class='note'>Written by lineproof {_e(__version__)} from the run's records.</p></body></html>"

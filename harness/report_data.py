@@ -31,6 +31,8 @@ class DeviceRecord:
     arrays: dict[str, np.ndarray] = field(default_factory=dict)
     #: band -> metric -> (value, unit), from ``band_metrics``
     metrics: dict[str, dict[str, tuple[float | None, str]]] = field(default_factory=dict)
+    #: the readings at the sequence's named markers (rows of ``markers``)
+    markers: list[dict[str, Any]] = field(default_factory=list)
 
     @property
     def serial(self) -> str:
@@ -116,6 +118,8 @@ def load_run_records(store: ResultStore, run_id: str, read_traces: bool = True) 
         for metric in store.rows("SELECT band, metric, value, unit FROM band_metrics WHERE device_row = ?",
                                  (row["device_row"],)):
             record.metrics.setdefault(metric["band"], {})[metric["metric"]] = (metric["value"], metric["unit"])
+        record.markers = store.rows("SELECT * FROM markers WHERE device_row = ? ORDER BY frequency_hz, marker",
+                                    (row["device_row"],))
         if read_traces:
             _read_trace(record)
         devices.append(record)

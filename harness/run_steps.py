@@ -347,19 +347,19 @@ class StepRunner:
 
     def _device_measurement(self) -> AsTerminatedDevices | TwoPortDevices | TransmissionDevices:
         """How the batch measures each device: as the calibration in use allows."""
-        cal, rule = self.state.calibration, self.spec.decision_rule
+        cal, rule, markers = self.state.calibration, self.spec.decision_rule, self.spec.marker_frequencies
         if cal is not None and cal.method == calibration.THRU_RESPONSE_METHOD:
             return TransmissionDevices(self.measuring, self.spec.bands, rule,  # type: ignore[arg-type]
-                                       self.spec.measurement.device_max_vswr)
+                                       self.spec.measurement.device_max_vswr, markers)
         if cal is None or cal.method not in (calibration.ONE_PATH_METHOD, calibration.FULL_TWO_PORT_METHOD):
-            return AsTerminatedDevices(self.measuring, self.spec.bands, rule)  # type: ignore[arg-type]
+            return AsTerminatedDevices(self.measuring, self.spec.bands, rule, markers)  # type: ignore[arg-type]
         return TwoPortDevices(self.measuring, self.spec.bands, rule, cal.method,  # type: ignore[arg-type]
-                              judged_figures(self.spec), self.spec.measurement.as_terminated)
+                              judged_figures(self.spec), self.spec.measurement.as_terminated, markers)
 
     def _batch(self, index: int, step: StepSpec) -> None:
         devices, termination = self.spec.devices, self.spec.termination
         self._devices = self._device_measurement()
-        assert devices is not None and (termination is not None or isinstance(self._devices, TransmissionDevices))
+        assert devices is not None and (termination is not None or not needs_termination(self.spec))
         overlap = not isinstance(self.station.operator, ConsoleOperator)
         pipeline = self._pipeline = _RecordingPipeline(overlap)
         self.measuring.operator.after_connect = pipeline.start  # type: ignore[attr-defined]

@@ -15,7 +15,7 @@ import sys
 import threading
 from typing import Any, Protocol, TextIO
 
-from lineproof.recording import RecordedDevice
+from lineproof.recording import RecordedDevice, marker_items
 from lineproof.values import BandResult, TerminationQualification, VerificationResult
 
 
@@ -212,7 +212,8 @@ class JsonRunView:
         result = recorded.result
         self._emit("device", position=recorded.position, serial=result.device.serial, model=result.device.model,
                    verdict=result.verdict.value, measured_utc=result.measured_utc, file=str(recorded.file),
-                   figure=result.figure, bands=[_band_json(b) for b in result.bands])
+                   figure=result.figure, bands=[_band_json(b) for b in result.bands],
+                   markers=dict(marker_items(result)))
 
     def qualification(self, result: TerminationQualification, reused: bool) -> None:
         self._emit("termination", name=result.name, worst_vswr=round(result.worst_vswr, 5),

@@ -92,6 +92,15 @@ class MeasurementSpec:
 
 
 @dataclass(frozen=True)
+class MarkerSpec:
+    """``[[marker]]``: a named frequency each device is read at (the nearest sweep point)."""
+
+    name: str
+    frequency_hz: float
+    key: str = ""  # where it is written, for messages
+
+
+@dataclass(frozen=True)
 class TerminationSpec:
     name: str
     max_vswr: float
@@ -156,10 +165,16 @@ class SequenceSpec:
     notes: str = ""
     study: StudySpec | None = None
     measurement: MeasurementSpec = MeasurementSpec()
+    markers: tuple[MarkerSpec, ...] = ()
 
     @property
     def folder(self) -> Path:
         return Path(self.source).parent
+
+    @property
+    def marker_frequencies(self) -> dict[str, float]:
+        """The markers by name, as the steps read them."""
+        return {marker.name: marker.frequency_hz for marker in self.markers}
 
     def has_step(self, action: str) -> bool:
         return any(step.action == action for step in self.steps)
@@ -190,7 +205,7 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
     root = TableReader(data, "", problems)
     root.reject_unknown({"sequence", "station", "sweep", "band", "calibration", "termination",
                          "check_standard", "devices", "decision", "reverify", "step", "records", "study",
-                         "measurement"})
+                         "measurement", "marker"})
     head = root.table("sequence", required=True)
     name, notes = None, ""
     if head is not None:
@@ -222,6 +237,7 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
         notes=notes,
         study=parse_study(root.table("study")),
         measurement=_measurement(root.table("measurement")),
+        markers=_markers(root, plan, problems),
     )
     if problems or station is None or plan is None:
         return None, problems
@@ -308,6 +324,29 @@ def _band_limits(table: TableReader) -> tuple[float, float | None, float | None]
     if any(values[key] is None for key in given):
         return None  # a given limit was refused above
     return (math.inf if vswr is None else vswr), return_loss, loss
+
+
+def _markers(root: TableReader, plan: SweepPlan | None, problems: Problems) -> tuple[MarkerSpec, ...]:
+    """``[[marker]]`` tables: a name (it becomes a metadata key) and a frequency in the sweep."""
+    markers: list[MarkerSpec] = []
+    for table in root.tables("marker"):
+        table.reject_unknown({"name", "frequency_hz"})
+        name = table.get("name", str, fix='add name = "f0" (lower case, as band names)')
+        hz = table.number("frequency_hz", above=0.0, fix="give the marker's frequency in Hz, e.g. 146e6")
+        if name is not None and not BAND_NAME.match(name):
+            problems.add(table.key("name"), f"marker name {name!r} is not allowed",
+                         'use 1-32 lower-case letters, digits, \'_\' or \'-\', e.g. "f0"')
+            name = None
+        elif name is not None and any(m.name == name for m in markers):
+            problems.add(table.key("name"), f"marker {name!r} is defined twice", "give each marker its own name")
+            name = None
+        if hz is not None and plan is not None and not plan.start_hz <= hz <= plan.stop_hz:
+            problems.add(table.key("frequency_hz"), f"marker at {hz / 1e6:g} MHz lies outside the sweep "
+                         f"({plan.describe()})", "move it into the sweep, or widen [sweep]")
+            hz = None
+        if name is not None and hz is not None:
+            markers.append(MarkerSpec(name, hz, table.key("name")))
+    return tuple(markers)
 
 
 def _calibration(table: TableReader | None) -> CalibrationSpec | None:

@@ -327,6 +327,15 @@ class ResultStore:
                            b.expanded_uncertainty, b.verdict.value, b.decision_rule, b.headline))
             for (band, metric), (value, unit) in (metrics or {}).items():
                 self._run(db, "INSERT INTO band_metrics VALUES (?, ?, ?, ?, ?)", (device_row, band, metric, value, unit))
+            for m in result.markers:
+                delay = None if m.group_delay_s is None or m.group_delay_s != m.group_delay_s else m.group_delay_s
+                self._run(db, "INSERT INTO markers (device_row, marker, frequency_hz, figure, vswr, return_loss_db,"
+                          " expanded_uncertainty, insertion_loss_db, insertion_loss_expanded_uncertainty_db, phase_deg,"
+                          " phase_expanded_uncertainty_deg, group_delay_s, group_delay_expanded_uncertainty_s)"
+                          " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                          (device_row, m.name, m.frequency_hz, m.figure, m.vswr, m.return_loss_db,
+                           m.expanded_uncertainty, m.insertion_loss_db, m.insertion_loss_uncertainty_db, m.phase_deg,
+                           m.phase_uncertainty_deg, delay, None if delay is None else m.group_delay_uncertainty_s))
         return device_row
 
     # -- reading ------------------------------------------------------------------------------------

@@ -25,6 +25,8 @@ Tables (schema 4)::
     study_readings        each reading of a repeatability study: device, operator, repeat, band
     study_results         per band of a study: repeatability, reproducibility, GR&R, part
                           variation (standard deviations) and their shares of the tolerance
+    markers               per device and named marker: the reading there (VSWR, return loss,
+                          insertion loss, phase, group delay, each with its uncertainty)
 """
 
 from __future__ import annotations
@@ -274,11 +276,13 @@ MIGRATION_3 = (
 _BAND_COLUMNS = ("device_row, band, start_hz, stop_hz, limit_vswr, worst_vswr, worst_frequency_hz, mean_vswr,"
                  " worst_return_loss_db, expanded_uncertainty, verdict, decision_rule")
 
-#: Schema 3 -> 4: transmission-only results.  A thru-response calibration
+#: Schema 3 -> 4: transmission-only results and marker readings.  A thru-response calibration
 #: measures no reflection, so ``band_results`` keeps its rows with the reflection columns empty
 #: and names the band's headline figure (``figure``; NULL in rows from before: as-terminated,
 #: or the judged match figure).  The table is rebuilt, the one way SQL relaxes NOT NULL in
-#: both dialects: every row is copied as it was.
+#: both dialects: every row is copied as it was.  ``markers``: each named marker's reading of a
+#: device (the headline match figure, insertion loss, S21 phase and group delay, each with its
+#: expanded uncertainty; NULL where the data have none or the sweep does not resolve it).
 MIGRATION_4 = (
     """CREATE TABLE band_results_4 (
         device_row INTEGER NOT NULL REFERENCES devices(device_row),
@@ -299,6 +303,22 @@ MIGRATION_4 = (
     f"INSERT INTO band_results_4 ({_BAND_COLUMNS}) SELECT {_BAND_COLUMNS} FROM band_results",
     "DROP TABLE band_results",
     "ALTER TABLE band_results_4 RENAME TO band_results",
+    """CREATE TABLE markers (
+        device_row INTEGER NOT NULL REFERENCES devices(device_row),
+        marker TEXT NOT NULL,
+        frequency_hz {real} NOT NULL,
+        figure TEXT,
+        vswr {real},
+        return_loss_db {real},
+        expanded_uncertainty {real},
+        insertion_loss_db {real},
+        insertion_loss_expanded_uncertainty_db {real},
+        phase_deg {real},
+        phase_expanded_uncertainty_deg {real},
+        group_delay_s {real},
+        group_delay_expanded_uncertainty_s {real},
+        PRIMARY KEY (device_row, marker)
+    )""",
 )
 
 #: schema version -> the statements that bring the previous version to it.

@@ -18,6 +18,7 @@ from lineproof.calkit import CalKit
 from lineproof.decision import DecisionRule
 from lineproof.deembed import Adapter, remove_from_two_port
 from lineproof.errors import CalibrationError
+from lineproof.markers import TransmissionTrace
 from lineproof.normalization import NormalizedTransmission, normalize, stated_device_match
 from lineproof.steps import QualifiedTermination, Station, device_uncertainty
 from lineproof.two_port_residuals import ThruView
@@ -211,7 +212,8 @@ def measure_two_port_device(
                   for side, adapter in zip(("input", "output"), adapters, strict=True) if adapter is not None})
     result = figures.judge_figures(device, f, found, bands, rule, judged, markers=markers,
                                    termination=None if termination is None else termination.qualification,
-                                   extra=extra)
+                                   extra=extra,
+                                   transmission=figures.transmission_trace(cal, traces, station.uncertainty, found))
     return result, f, s
 
 
@@ -241,8 +243,10 @@ def transmission_result(station: Station, cal: CalibrationRecord, device: Device
     for band in bands:
         points = metrics.band_indices(frequencies, band)
         extra[f"band.{band.name}.normalization.mismatch_bound_db"] = f"{float(found.bounds.loss_db[points].max()):.4f}"
+    transmission = TransmissionTrace(found.s21, found.loss_expanded_db, found.phase_expanded_rad)
     result = figures.judge_figures(device, frequencies, [trace], bands, rule, (figures.INSERTION_LOSS,),
-                                   markers=markers, extra=extra, description=NORMALIZED_FIGURE)
+                                   markers=markers, extra=extra, description=NORMALIZED_FIGURE,
+                                   transmission=transmission)
     return result, found
 
 

@@ -553,6 +553,29 @@ def transmission_relative_uncertainty(
     return np.sqrt(magnitude + 0.5 * mismatch + (sigma / np.maximum(through, 1e-12)) ** 2)
 
 
+def transmission_phase_uncertainty(
+    residuals: Mapping[str, np.ndarray],
+    s11: np.ndarray,
+    s21: np.ndarray,
+    s22: np.ndarray,
+    settings: UncertaintySettings = UncertaintySettings(),
+    interpolation_error: float | None = None,
+) -> np.ndarray:
+    """Standard uncertainty (rad) of the phase of S21: the first-order relative error of S21
+    is that of :func:`transmission_relative_uncertainty`, and its imaginary part turns the
+    phase -- the thru's delay and connection (the tracking's phase part), the residual match
+    terms and noise (of unknown phase: half their variance each way), and a moved
+    calibration's interpolation estimate."""
+    phase = residuals.get("transmission.phase_variance", np.zeros(s21.shape)).real
+    mismatch: np.ndarray | float = 0.0
+    variance = residuals.get("port1.variance")
+    if variance is not None:
+        mismatch = variance[:, 2, 2].real * _power(s11) + variance[:, 0, 0].real * _power(s22)
+    sigma = settings.trace_noise if settings.trace_noise is not None else estimate_trace_noise(s21)
+    return np.sqrt(phase + 0.5 * mismatch + (sigma / np.maximum(np.abs(s21), 1e-12)) ** 2
+                   + (interpolation_error or 0.0) ** 2 / 2)
+
+
 # -- published mismatch formulas -------------------------------------------------------------
 
 def mismatch_limits_db(reflection_1: float, reflection_2: float) -> tuple[float, float]:

@@ -150,20 +150,31 @@ class Verdict(str, enum.Enum):
 
 @dataclass(frozen=True)
 class MarkerReading:
-    """A figure read at a named marker frequency (the nearest sweep point)."""
+    """What a device reads at a named marker frequency (the nearest sweep point): the headline
+    match figure's |Γ| (``figure``; None for transmission-only data) and, with transmission
+    data, insertion loss, the phase of S21 and group delay -- each with its expanded
+    uncertainty (None: not evaluated; a group delay of NaN: the sweep does not resolve it)."""
 
     name: str
     frequency_hz: float
-    reflection: float
+    reflection: float | None
     expanded_uncertainty: float | None = None
     insertion_loss_db: float | None = None
+    figure: str | None = "as-terminated"
+    insertion_loss_uncertainty_db: float | None = None
+    phase_deg: float | None = None
+    phase_uncertainty_deg: float | None = None
+    group_delay_s: float | None = None
+    group_delay_uncertainty_s: float | None = None
 
     @property
-    def vswr(self) -> float:
-        return _vswr(self.reflection)
+    def vswr(self) -> float | None:
+        return None if self.reflection is None else _vswr(self.reflection)
 
     @property
-    def return_loss_db(self) -> float:
+    def return_loss_db(self) -> float | None:
+        if self.reflection is None:
+            return None
         return math.inf if self.reflection == 0 else -20.0 * math.log10(self.reflection)
 
 
@@ -215,9 +226,13 @@ class BandResult:
     worst_insertion_loss_db: float | None = None
     worst_insertion_loss_frequency_hz: float | None = None
     insertion_loss_uncertainty_db: float | None = None
+    #: The markers inside the band (the device's, see :attr:`DeviceResult.markers`).
     markers: tuple[MarkerReading, ...] = ()
     #: Every figure of the band, judged or reported beside (two-port data), the headline first.
     figures: tuple[FigureResult, ...] = ()
+    #: Smallest and largest group delay of S21 over the band (s; transmission data only; NaN
+    #: when the sweep does not resolve the phase).
+    group_delay_s: tuple[float, float] | None = None
 
     def figure(self, name: str) -> FigureResult | None:
         return next((f for f in self.figures if f.figure == name), None)
@@ -330,6 +345,8 @@ class DeviceResult:
     termination: TerminationQualification | None = None
     #: What the bands judge, e.g. "as-terminated input reflection" or "S11 (ideal termination)".
     figure: str = "as-terminated input reflection"
+    #: The readings at the sequence's named markers, anywhere in the sweep.
+    markers: tuple[MarkerReading, ...] = ()
 
     @property
     def verdict(self) -> Verdict:

@@ -220,3 +220,18 @@ def test_a_stored_calibration_is_named_as_lineproof_names_it(tmp_path: Path) -> 
         '[[step]]\ndo = "measure-batch"\n', '[[step]]\ndo = "message"\ntext = "nothing to do"\n')
     by_key = {p.key: p for p in problems_of(tmp_path, text)}
     assert "loaded by the calibrate step, and this sequence has none" in by_key["calibration.reuse"].problem
+
+
+def test_markers_are_named_and_lie_in_the_sweep(tmp_path: Path) -> None:
+    marker = '[[marker]]\nname = "{}"\nfrequency_hz = {}\n\n[calibration]'
+    two = marker.format("f0", "146e6").replace("\n\n[calibration]", "\n\n") + marker.format("f1", "435e6")
+    spec = load_sequence(write(tmp_path, GOOD.replace("[calibration]", two)))
+    assert spec.marker_frequencies == {"f0": 146e6, "f1": 435e6}
+    text = GOOD.replace("[calibration]", marker.format("f0", "146e6").replace("\n\n[calibration]", "\n\n")
+                        + marker.format("F 0", "600e6").replace("\n\n[calibration]", "\n\n")
+                        + marker.format("f0", "146e6"))
+    by_key = {p.key: p for p in problems_of(tmp_path, text)}
+    assert "marker name 'F 0' is not allowed" in by_key["marker[2].name"].problem
+    assert "marker at 600 MHz lies outside the sweep (100-500 MHz" in by_key["marker[2].frequency_hz"].problem
+    assert by_key["marker[2].frequency_hz"].line == line_of(text, "600e6")
+    assert "defined twice" in by_key["marker[3].name"].problem
