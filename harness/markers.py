@@ -48,28 +48,30 @@ class MatchTrace:
     expanded: np.ndarray | None
 
 
-def _steps(phase: np.ndarray) -> np.ndarray:
-    """|Δφ| between neighbouring points (wrapped into [0, π])."""
-    return np.abs(np.angle(np.exp(1j * np.diff(phase))))
-
-
 def group_delay(frequencies_hz: np.ndarray, transmission: TransmissionTrace) -> tuple[np.ndarray, np.ndarray | None]:
     """Group delay (s) at every point -- NaN where the sweep does not resolve the phase -- and
-    its expanded uncertainty (None when the phase has none)."""
+    its expanded uncertainty (None when the phase has none).  The differences of
+    :func:`lineproof.metrics.group_delay_s`, taken from the phase steps wrapped into [-π, π)
+    (what unwrapping does), once for both the delay and the resolution check."""
     f = np.asarray(frequencies_hz, dtype=float)
-    phase = np.angle(transmission.s21)
-    tau = metrics.group_delay_s(f, transmission.s21)
-    steps = _steps(phase)
-    coarse = np.zeros(f.shape, dtype=bool)  # a point whose difference spans an unresolved step
-    coarse[:-1] |= steps > _RESOLVED_RAD
-    coarse[1:] |= steps > _RESOLVED_RAD
-    tau = np.where(coarse, np.nan, tau)
-    u = transmission.phase_expanded_rad
-    if u is None:
-        return tau, None
-    below = np.concatenate(([0], np.arange(f.size - 1)))  # the neighbours np.gradient uses
+    steps = np.diff(np.angle(transmission.s21))
+    steps += np.pi
+    np.remainder(steps, 2 * np.pi, out=steps)
+    steps -= np.pi
+    below = np.concatenate(([0], np.arange(f.size - 1)))  # the neighbours each difference spans
     above = np.concatenate((np.arange(1, f.size), [f.size - 1]))
-    return tau, (u[below] + u[above]) / (2 * np.pi * (f[above] - f[below]))
+    turned = np.empty(f.size)  # the phase change from below to above: one or two steps
+    turned[0], turned[-1] = steps[0], steps[-1]
+    turned[1:-1] = steps[:-1] + steps[1:]
+    span = 2 * np.pi * (f[above] - f[below])
+    tau = -turned / span
+    coarse = np.abs(steps) > _RESOLVED_RAD
+    unresolved = np.zeros(f.size, dtype=bool)
+    unresolved[:-1] |= coarse
+    unresolved[1:] |= coarse
+    tau[unresolved] = np.nan
+    u = transmission.phase_expanded_rad
+    return tau, None if u is None else (u[below] + u[above]) / span
 
 
 def read_markers(frequencies_hz: np.ndarray, markers: Mapping[str, float], match: MatchTrace | None,

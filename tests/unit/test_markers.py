@@ -60,3 +60,14 @@ def test_a_marker_reads_the_nearest_point_of_every_trace() -> None:
     assert bare.reflection is None and bare.vswr is None and bare.return_loss_db is None and bare.figure is None
     with pytest.raises(ValueError, match="outside the sweep"):
         read_markers(F, {"far": 300e6}, match, None)
+
+
+def test_the_group_delay_is_the_metrics_central_difference() -> None:
+    # metrics.group_delay_s (numpy's gradient of the unwrapped phase) on a filter-like S21 of
+    # uneven delay: the same numbers wherever the sweep resolves the phase
+    rng = np.random.default_rng(4)
+    s21 = np.exp(-2j * np.pi * np.cumsum(rng.uniform(0, 5e-9, F.size)) * 1e6) * rng.uniform(0.1, 1, F.size)
+    tau, _ = group_delay(F, TransmissionTrace(s21, None, None))
+    from lineproof.metrics import group_delay_s
+
+    np.testing.assert_allclose(tau, group_delay_s(F, s21), rtol=1e-9)
