@@ -39,11 +39,18 @@ class ProfiledInstrument:
                              expected="maker, model, serial, firmware") from exc
 
     def reset(self) -> None:
-        """Back to the instrument's power-on settings, with its status cleared."""
+        """Back to the instrument's power-on settings, with its status cleared.
+
+        The wait that follows is allowed the longest ``timeout_s`` that the reset, clear and
+        wait operations state (else the command timeout): ``*RST`` has no reply, so the time
+        it takes shows only in the ``*OPC?`` after it (IEEE 488.2 §10.32, §12.5.3).
+        """
         for name in ("reset", "clear"):
             if self.profile.operation(name):
                 self._call(name)
-        self._sync(self.profile.timing.command_timeout_s)
+        stated = [op.timeout_s for name in ("reset", "clear", "wait")
+                  if (op := self.profile.operation(name)) is not None and op.timeout_s is not None]
+        self._sync(max(stated, default=self.profile.timing.command_timeout_s))
 
     def close(self) -> None:
         self.session.close()

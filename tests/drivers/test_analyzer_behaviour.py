@@ -96,6 +96,17 @@ def test_reset_returns_to_power_on_and_asks_for_a_new_configuration(link: Driver
     assert analyzer.measure(["S11"])["S11"].size == PLAN.points
 
 
+def test_a_slow_reset_is_waited_for_as_long_as_the_profile_says(visa_link: DriverBench) -> None:
+    # *RST has no reply: its time shows in the *OPC? after it, here 1 s -- longer than the
+    # command timeout, within the reset's own timeout_s (DEVELOPERS.md worked example 1).
+    link = visa_link
+    analyzer = link.analyzer(timing={"command_timeout_s": 0.3, "retries": 0},
+                             operations={"reset": {"send": "*RST", "timeout_s": 5}})
+    link.arm("stall", seconds=1.0, match="*OPC?")
+    analyzer.reset()
+    assert link.fired() == ["*OPC?"] and analyzer.recoveries == []
+
+
 @pytest.mark.analyzer_settings(time_scale=1.0)
 def test_the_sweep_timeout_scales_with_the_sweep_not_the_command_timeout(link: DriverBench) -> None:
     # 201 points at 1 kHz IF bandwidth take 0.2 s plus per-point time (simulated in real
