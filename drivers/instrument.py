@@ -70,7 +70,13 @@ class ProfiledInstrument:
         if operation.reply == "none":
             self.session.send(command, timeout, operation.idempotent)
             return None
-        return self.session.query(command, timeout, operation.idempotent)
+        reply = self.session.query(command, timeout, operation.idempotent)
+        if operation.reply == "complete":
+            try:
+                ieee488.parse_opc_reply(reply)
+            except ieee488.CodecError as exc:
+                raise ReplyError(str(exc), resource=self.resource, command=command, expected="1") from exc
+        return reply
 
     def _setting(self, name: str, **values: object) -> None:
         """Apply one setting, if the profile has it, and check the instrument accepted it:

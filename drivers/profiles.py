@@ -9,6 +9,7 @@ instrument profile") documents every key with a worked example.
 
 from __future__ import annotations
 
+import json
 import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -23,24 +24,35 @@ from lineproof.errors import InputError
 _SWEEP = frozenset({"start_hz", "stop_hz", "points"})
 
 
+#: Reply formats an operation may declare.
+REPLY_KINDS = ("none", "text", "identity", "complete", "error-entry", "numbers", "block", "rows")
+#: What a command (a setting, an action) may answer: nothing, one line (read and dropped), or
+#: ``1`` when it is done (``INITiate;*OPC?``).
+COMMAND_REPLIES = ("none", "text", "complete")
+#: How a trace or a frequency list comes back.
+TRACE_REPLIES = ("block", "numbers", "rows")
+
+
 @dataclass(frozen=True)
 class OperationSpec:
-    """What the schema allows for one operation: its slots and whether repeating it is safe."""
+    """What the schema allows for one operation: its slots, whether repeating it is safe, and
+    the reply kinds the driver can use (the first is the usual one)."""
 
     fields: frozenset[str] = frozenset()
     idempotent: bool = True
+    replies: tuple[str, ...] = COMMAND_REPLIES
 
 
 #: Operations every profile may define.  Settings and queries are idempotent (sending the
 #: same value twice does no harm); actions (trigger, reset, clear) and reading the error
 #: queue (which removes the entry) are not, and are never repeated after a lost link.
 COMMON_OPERATIONS: dict[str, OperationSpec] = {
-    "identify": OperationSpec(),
+    "identify": OperationSpec(replies=("identity",)),
     "reset": OperationSpec(idempotent=False),
     "clear": OperationSpec(idempotent=False),
-    "wait": OperationSpec(),
-    "next_error": OperationSpec(idempotent=False),
-    "event_status": OperationSpec(idempotent=False),
+    "wait": OperationSpec(replies=("complete",)),
+    "next_error": OperationSpec(idempotent=False, replies=("error-entry",)),
+    "event_status": OperationSpec(idempotent=False, replies=("text",)),
 }
 
 #: Operations an analyzer profile may define.
@@ -56,10 +68,10 @@ ANALYZER_OPERATIONS: dict[str, OperationSpec] = {
     "select_parameter": OperationSpec(frozenset({"parameter"})),
     "trigger": OperationSpec(idempotent=False),
     "set_data_format": OperationSpec(),
-    "read_raw": OperationSpec(frozenset({"parameter"})),
-    "read_corrected": OperationSpec(frozenset({"parameter"})),
-    "read_frequencies": OperationSpec(),
-    "read_temperature": OperationSpec(),
+    "read_raw": OperationSpec(frozenset({"parameter"}), replies=TRACE_REPLIES),
+    "read_corrected": OperationSpec(frozenset({"parameter"}), replies=TRACE_REPLIES),
+    "read_frequencies": OperationSpec(replies=TRACE_REPLIES),
+    "read_temperature": OperationSpec(replies=("numbers",)),
 }
 REQUIRED_ANALYZER_OPERATIONS = ("identify", "trigger", "read_raw")
 
@@ -69,12 +81,10 @@ SWITCH_OPERATIONS: dict[str, OperationSpec] = {
     "open_all": OperationSpec(),
     "open_channels": OperationSpec(frozenset({"channels"})),
     "close_channels": OperationSpec(frozenset({"channels"})),
-    "query_closed": OperationSpec(frozenset({"channels"})),
+    "query_closed": OperationSpec(frozenset({"channels"}), replies=("numbers",)),
 }
 REQUIRED_SWITCH_OPERATIONS = ("identify", "close_channels", "query_closed")
 
-#: Reply formats an operation may declare.
-REPLY_KINDS = ("none", "text", "identity", "complete", "error-entry", "numbers", "block", "rows")
 #: Column names of a "rows" reply.
 ROW_COLUMNS = ("frequency", "re", "im", "ignore")
 
@@ -198,6 +208,18 @@ def _check_template(reader: TableReader, name: str, send: str, fields: frozenset
         raise reader.error(f"{name}.send", "unbalanced brace in template")
 
 
+def _either(kinds: tuple[str, ...]) -> str:
+    quoted = [f'"{kind}"' for kind in kinds]
+    return quoted[0] if len(quoted) == 1 else ", ".join(quoted[:-1]) + " or " + quoted[-1]
+
+
+def _reply_fix(name: str, send: str, allowed: tuple[str, ...]) -> str:
+    example = f"{name} = {{ send = {json.dumps(send)}, reply = \"{allowed[0]}\" }}"
+    if len(allowed) == 1:
+        return f"write {example}"
+    return f"write e.g. {example} (reply may be {_either(allowed)}; see DEVELOPERS.md, the operations table)"
+
+
 def _parse_operation(reader: TableReader, name: str, spec: OperationSpec) -> Operation:
     raw = reader.data[name]
     if isinstance(raw, str):
@@ -209,6 +231,10 @@ def _parse_operation(reader: TableReader, name: str, spec: OperationSpec) -> Ope
     send = table.get("send", str)
     _check_template(reader, name, send, spec.fields)
     reply = table.choice("reply", REPLY_KINDS, "none")
+    if reply not in spec.replies:
+        raise table.error("reply", f"{name} must reply {_either(spec.replies)}, not {reply!r}"
+                          + (" (a plain string means no reply)" if isinstance(reader.data[name], str) else ""),
+                          fix=_reply_fix(name, send, spec.replies))
     columns = tuple(table.get("columns", list, []))
     if reply == "rows":
         if not columns or not all(c in ROW_COLUMNS for c in columns):
@@ -361,19 +387,12 @@ def _check_reads(operations: Mapping[str, Operation], capabilities: AnalyzerCapa
         operation = operations.get(name)
         if operation is None:
             continue
-        if operation.reply not in ("block", "numbers", "rows"):
-            raise InputError(f"a trace read must reply block, numbers or rows, not {operation.reply!r}",
-                             path=source, key=f"operations.{name}.reply")
         if operation.reply == "rows" and not needed <= set(operation.columns):
             raise InputError(f"columns must include {', '.join(sorted(needed))}", path=source,
                              key=f"operations.{name}.columns")
         if operation.reply == "block" and (link.needs_serial or capabilities.data_format == "ASCII"):
             raise InputError("a block reply needs message framing and a REAL data format", path=source,
                              key=f"operations.{name}.reply", fix='use reply = "rows" or "numbers"')
-    temperature = operations.get("read_temperature")
-    if temperature is not None and temperature.reply != "numbers":
-        raise InputError(f"a temperature read must reply numbers, not {temperature.reply!r}", path=source,
-                         key="operations.read_temperature.reply", fix='use reply = "numbers"')
 
 
 def parse_switch_profile(text: str, source: str) -> SwitchProfile:
@@ -383,9 +402,6 @@ def parse_switch_profile(text: str, source: str) -> SwitchProfile:
     if "open_all" not in operations and "open_channels" not in operations:
         raise InputError("missing operation", path=source, key="operations.open_all",
                          fix="add open_all, or open_channels with a {channels} slot")
-    if operations["query_closed"].reply != "numbers":
-        raise InputError("must reply numbers (one 1 or 0 per channel)", path=source,
-                         key="operations.query_closed.reply")
     capabilities = _parse_switch_capabilities(root.table("capabilities"))
     return SwitchProfile(**common, operations=operations, capabilities=capabilities)
 

@@ -82,6 +82,37 @@ def test_bad_profiles_name_the_key(change: tuple[str, str], key: str) -> None:
     assert "mine.toml" in message and f"[{key}]" in message
 
 
+@pytest.mark.parametrize(
+    ("operation", "allowed"),
+    [
+        ('identify = "*IDN?"', '"identity"'),  # a plain string means no reply
+        ('event_status = "*ESR?"', '"text"'),
+        ('next_error = { send = "SYST:ERR?", reply = "text" }', '"error-entry"'),
+        ('wait = "*OPC?"', '"complete"'),
+        ('read_temperature = { send = "SYST:TEMP?", reply = "text" }', '"numbers"'),
+        ('read_frequencies = { send = "FREQ:DATA?", reply = "text" }', '"block", "numbers" or "rows"'),
+        ('reset = { send = "*RST", reply = "identity" }', '"none", "text" or "complete"'),
+        ('set_power = { send = "POW {power_dbm}", reply = "numbers" }', '"none", "text" or "complete"'),
+    ],
+)
+def test_each_operation_allows_only_the_reply_kinds_the_driver_reads(operation: str, allowed: str) -> None:
+    name, send = operation.split(" = ", 1)
+    text = MINIMAL.replace("[operations]", f"[operations]\n{operation}")
+    if name == "identify":
+        text = text.replace('identify = { send = "*IDN?", reply = "identity" }\n', "")
+    with pytest.raises(InputError) as caught:
+        parse_analyzer_profile(text, "mine.toml")
+    error = caught.value
+    assert (error.path, error.key) == ("mine.toml", f"operations.{name}.reply")
+    assert f"{name} must reply {allowed}" in error.problem and f"{name} = {{ send = " in error.fix
+
+
+def test_a_switch_reads_its_channels_as_numbers() -> None:
+    with pytest.raises(InputError, match=r"\[operations.query_closed.reply\]: query_closed must reply \"numbers\""):
+        parse_switch_profile(SWITCH + '[operations]\nquery_closed = { send = "ROUT:CLOS? {channels}", reply = "text" }',
+                             "matrix.toml")
+
+
 def test_unknown_shipped_profile_lists_the_known_ones() -> None:
     with pytest.raises(InputError, match="generic-scpi-analyzer"):
         load_analyzer_profile("no-such-profile")
