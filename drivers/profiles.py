@@ -25,7 +25,7 @@ _SWEEP = frozenset({"start_hz", "stop_hz", "points"})
 
 
 #: Reply formats an operation may declare.
-REPLY_KINDS = ("none", "text", "identity", "complete", "error-entry", "numbers", "block", "rows")
+REPLY_KINDS = ("none", "text", "identity", "complete", "status", "error-entry", "numbers", "block", "rows")
 #: What a command (a setting, an action) may answer: nothing, one line (read and dropped), or
 #: ``1`` when it is done (``INITiate;*OPC?``).
 COMMAND_REPLIES = ("none", "text", "complete")
@@ -50,9 +50,11 @@ COMMON_OPERATIONS: dict[str, OperationSpec] = {
     "identify": OperationSpec(replies=("identity",)),
     "reset": OperationSpec(idempotent=False),
     "clear": OperationSpec(idempotent=False),
-    "wait": OperationSpec(replies=("complete",)),
+    # "complete": one query held open until pending operations end (*OPC?); "status": a status
+    # register polled until done_bits show (after arm, e.g. *OPC then *ESR? bit 0).
+    "wait": OperationSpec(replies=("complete", "status")),
     "next_error": OperationSpec(idempotent=False, replies=("error-entry",)),
-    "event_status": OperationSpec(idempotent=False, replies=("text",)),
+    "event_status": OperationSpec(idempotent=False, replies=("text", "status")),
 }
 
 #: Operations an analyzer profile may define.
@@ -101,6 +103,10 @@ class Operation:
     idempotent: bool = True
     timeout_s: float | None = None
     columns: tuple[str, ...] = ()
+    #: A polled wait: the command that arms the status bit (``*OPC``), sent once first.
+    arm: str | None = None
+    #: A polled wait: done when the status register reads with any of these bits set.
+    done_bits: int = 0
 
     def render(self, **values: Any) -> str:
         """Fill the template's slots from ``values`` (already validated at load time)."""
@@ -197,15 +203,16 @@ class SwitchProfile(Profile):
     capabilities: SwitchCapabilities | None = None
 
 
-def _check_template(reader: TableReader, name: str, send: str, fields: frozenset[str]) -> None:
+def _check_template(reader: TableReader, key: str, send: str, fields: frozenset[str]) -> None:
     for slot in _SLOT.findall(send):
         match = _SLOT_BODY.match(slot)
         if not match or match.group(1) not in fields:
-            raise reader.error(f"{name}.send", f"template slot {{{slot}}} is not allowed here",
+            raise reader.error(key, f"template slot {{{slot}}} is not allowed here",
                                fix=f"use only these slots: {', '.join(sorted(fields)) or 'none'} "
                                "(with an optional numeric format such as :.0f)")
     if "{" in _SLOT.sub("", send) or "}" in _SLOT.sub("", send):
-        raise reader.error(f"{name}.send", "unbalanced brace in template")
+        raise reader.error(key, "unbalanced brace in template",
+                           fix="close every { with } around a slot name; braces cannot be sent literally")
 
 
 def _either(kinds: tuple[str, ...]) -> str:
@@ -227,9 +234,9 @@ def _parse_operation(reader: TableReader, name: str, spec: OperationSpec) -> Ope
     if not isinstance(raw, dict):
         raise reader.error(name, "must be a string or a table {send = ..., reply = ...}")
     table = TableReader(raw, reader.path, f"{reader.key(name)}.")
-    table.reject_unknown({"send", "reply", "idempotent", "timeout_s", "columns"})
+    table.reject_unknown({"send", "reply", "idempotent", "timeout_s", "columns", "arm", "done_bits"})
     send = table.get("send", str)
-    _check_template(reader, name, send, spec.fields)
+    _check_template(reader, f"{name}.send", send, spec.fields)
     reply = table.choice("reply", REPLY_KINDS, "none")
     if reply not in spec.replies:
         raise table.error("reply", f"{name} must reply {_either(spec.replies)}, not {reply!r}"
@@ -243,8 +250,29 @@ def _parse_operation(reader: TableReader, name: str, spec: OperationSpec) -> Ope
     elif columns:
         raise table.error("columns", "only a rows reply has columns", fix='remove it or set reply = "rows"')
     timeout = table.positive("timeout_s", None) if "timeout_s" in raw else None
+    arm, done_bits = _parse_polling(reader, table, name, reply)
     return Operation(send=send, reply=reply, idempotent=table.get("idempotent", bool, spec.idempotent),
-                     timeout_s=timeout, columns=columns)
+                     timeout_s=timeout, columns=columns, arm=arm, done_bits=done_bits)
+
+
+def _parse_polling(reader: TableReader, table: TableReader, name: str, reply: str) -> tuple[str | None, int]:
+    """``arm`` and ``done_bits`` of a polled wait (and of nothing else)."""
+    if not (name == "wait" and reply == "status"):
+        for key in ("arm", "done_bits"):
+            if key in table.data:
+                raise table.error(key, f"only a polled wait (wait with reply = \"status\") has {key}",
+                                  fix="remove it")
+        return None, 0
+    done_bits = table.get("done_bits", int, fix='e.g. done_bits = 1 (bit 0 of *ESR?, Operation Complete)')
+    if not 1 <= done_bits <= 0xFFFF:
+        raise table.error("done_bits", f"must be a bit mask 1..65535, got {done_bits}",
+                          fix="give the bits that say the operation is done, e.g. 1 for bit 0 of *ESR?")
+    arm = table.get("arm", str, None)
+    if arm is not None:
+        _check_template(table, "arm", arm, frozenset())
+        if not arm.strip():
+            raise table.error("arm", "must not be empty", fix='e.g. arm = "*OPC", or remove it')
+    return arm, done_bits
 
 
 def _parse_operations(root: TableReader, allowed: Mapping[str, OperationSpec],
@@ -375,9 +403,23 @@ def parse_analyzer_profile(text: str, source: str) -> AnalyzerProfile:
             if name not in operations:
                 raise InputError("missing operation", path=source, key=f"operations.{name}",
                                  fix=f"add {name}, or one set_sweep with {{start_hz}} {{stop_hz}} {{points}}")
+    _check_sweep_end(operations, source)
     capabilities = _parse_analyzer_capabilities(root.table("capabilities"))
     _check_reads(operations, capabilities, common["link"], source)
     return AnalyzerProfile(**common, operations=operations, capabilities=capabilities)
+
+
+def _check_sweep_end(operations: Mapping[str, Operation], source: str) -> None:
+    """Something must tell when a triggered sweep has ended: without it the trace read after
+    the trigger may be the previous sweep's."""
+    if operations["trigger"].reply == "none" and "wait" not in operations:
+        raise InputError(
+            "the trigger has no reply and there is no wait operation: nothing would tell when the sweep "
+            "ends, and the trace read after it could be the previous sweep's", path=source, key="operations.wait",
+            fix='add wait = { send = "*OPC?", reply = "complete" } (or a polled wait: { send = "*ESR?", '
+                'reply = "status", arm = "*OPC", done_bits = 1 }), or give the trigger the reply the '
+                'instrument sends when the sweep ends (reply = "text" or "complete")',
+        )
 
 
 def _check_reads(operations: Mapping[str, Operation], capabilities: AnalyzerCapabilities,

@@ -38,6 +38,10 @@ _LINE_LIMIT = 1 << 22
 TRACE_LIMIT = 200
 #: Bytes of a binary payload shown (as hex) in a trace line.
 _TRACE_BYTES = 16
+#: Pauses between the reads of a polled status register: short at first (a sweep may be
+#: over at once), growing so that a long sweep costs few reads.
+_POLL_FIRST_PAUSE_S = 0.001
+_POLL_LONGEST_PAUSE_S = 0.05
 
 Result = TypeVar("Result")
 
@@ -444,6 +448,42 @@ class MessageSession:
             ieee488.parse_opc_reply(reply)
         except ieee488.CodecError as exc:
             raise ReplyError(str(exc), resource=self.resource, command=command, expected="1") from exc
+
+    def poll_status(self, command: str, done_bits: int, timeout_s: float, arm: str | None = None) -> int:
+        """Block until the status register ``command`` reads with any of ``done_bits`` set.
+
+        For instruments that cannot hold a query open until a sweep ends: ``arm`` (``*OPC``)
+        asks for the Operation Complete bit, bit 0 of ``*ESR?``, to be set when pending
+        operations end (IEEE 488.2 §12.5.2), and the register is read until it is.  Between
+        reads the pause grows from 1 ms to 50 ms; there is no fixed sleep, and the whole wait
+        ends at ``timeout_s``.  Each read may clear the register (``*ESR?`` does), so none is
+        ever repeated after a lost link.  Returns every bit seen set, for the caller to keep
+        what the reads cleared (the Power On bit).
+        """
+        deadline = self._deadline(timeout_s)
+        if arm:
+            self.send(arm, timeout_s)
+        seen = value = 0
+        pause = _POLL_FIRST_PAUSE_S
+        while True:
+            left = deadline - time.monotonic()
+            if left <= 0:
+                raise LinkError(
+                    f"timed out after {timeout_s:.3g} s: {command!r} read {value} (bits {value:#x}) and never "
+                    f"any of bits {done_bits:#x}", resource=self.resource, command=command,
+                    expected=f"a value with any of bits {done_bits:#x} set within {timeout_s:.3g} s",
+                )
+            reply = self.query(command, min(self.default_timeout_s, left), idempotent=False)
+            try:
+                value = ieee488.parse_status_register(reply)
+            except ieee488.CodecError as exc:
+                raise ReplyError(str(exc), resource=self.resource, command=command,
+                                 expected="a status register value 0..65535") from exc
+            seen |= value
+            if value & done_bits:
+                return seen
+            time.sleep(max(0.0, min(pause, deadline - time.monotonic())))
+            pause = min(2 * pause, _POLL_LONGEST_PAUSE_S)
 
     def _next_error_entry(self, command: str | None = None) -> tuple[int, str]:
         command = command or self.error_query or "SYSTem:ERRor?"

@@ -14,7 +14,7 @@ from lineproof.drivers import ieee488
 from lineproof.drivers.analyzer import ProfiledAnalyzer
 from lineproof.drivers.profiles import parse_analyzer_profile
 from lineproof.drivers.session import MessageSession
-from lineproof.errors import ReplyError
+from lineproof.errors import InputError, LinkError, ReplyError
 from lineproof.values import SweepPlan
 
 PROFILE = """
@@ -126,3 +126,46 @@ def test_a_trigger_that_answers_when_done_must_answer_1() -> None:
     with pytest.raises(ReplyError, match="must answer 1") as caught:
         analyzer.measure(["S11"])
     assert caught.value.command == "INITiate:IMMediate;*OPC?" and caught.value.expected == "1"
+
+
+POLLED = 'wait = { send = "*ESR?", reply = "status", arm = "*OPC", done_bits = 1 }'
+
+
+def test_a_polled_wait_reads_the_status_until_the_operation_complete_bit() -> None:
+    # IEEE 488.2 §12.5.2: *OPC sets bit 0 of the event status register when the sweep ends.
+    instrument = _ScpiReflectometer(**{"*ESR?": ["0", "0", "0", "1"]})  # configure's read, then the polls
+    analyzer, transport = _analyzer(instrument, POLLED)
+    analyzer.configure(PLAN)
+    start = len(transport.written)
+    assert analyzer.measure(["S11"])["S11"].size == 11
+    sweep = [w.decode().strip() for w in transport.written[start:start + 6]]
+    assert sweep == ["INITiate:IMMediate", "*OPC", "*ESR?", "*ESR?", "*ESR?", 'SENSe:FUNCtion "XFRequency:S11"']
+
+
+def test_a_reset_seen_by_a_polled_wait_is_not_lost() -> None:
+    # The poll's *ESR? read clears the Power On bit (128): the driver must still tell.
+    instrument = _ScpiReflectometer(**{"*ESR?": ["0", "129"]})
+    analyzer, _ = _analyzer(instrument, POLLED)
+    analyzer.configure(PLAN)
+    with pytest.raises(ReplyError, match="Power On bit"):
+        analyzer.measure(["S11"])
+    with pytest.raises(InputError, match="configure"):
+        analyzer.measure(["S11"])
+
+
+def test_a_polled_wait_that_never_completes_ends_at_its_timeout() -> None:
+    analyzer, _ = _analyzer(_ScpiReflectometer(), POLLED)
+    analyzer.configure(PLAN)
+    started = time.monotonic()
+    with pytest.raises(LinkError, match="never any of bits 0x1") as caught:
+        analyzer.measure(["S11"])
+    assert time.monotonic() - started < 3.0  # the sweep timeout: 3 x 11 ms + 0.5 s
+    assert caught.value.command == "*ESR?" and "waiting for a sweep" in str(caught.value)
+
+
+def test_a_polled_status_that_is_not_a_number_is_a_reply_error() -> None:
+    analyzer, _ = _analyzer(_ScpiReflectometer(**{"*ESR?": ["0", "busy"]}), POLLED)
+    analyzer.configure(PLAN)
+    with pytest.raises(ReplyError, match="whole number") as caught:
+        analyzer.measure(["S11"])
+    assert caught.value.command == "*ESR?"

@@ -34,6 +34,7 @@ set_start = "FREQ:STAR {start_hz:.0f}"
 set_stop = "FREQ:STOP {stop_hz:.0f}"
 set_points = "SWE:POIN {points}"
 trigger = "INIT"
+wait = { send = "*OPC?", reply = "complete" }
 read_raw = { send = "TRAC? RAW", reply = "block" }
 """
 
@@ -86,9 +87,9 @@ def test_bad_profiles_name_the_key(change: tuple[str, str], key: str) -> None:
     ("operation", "allowed"),
     [
         ('identify = "*IDN?"', '"identity"'),  # a plain string means no reply
-        ('event_status = "*ESR?"', '"text"'),
+        ('event_status = "*ESR?"', '"text" or "status"'),
         ('next_error = { send = "SYST:ERR?", reply = "text" }', '"error-entry"'),
-        ('wait = "*OPC?"', '"complete"'),
+        ('wait = "*OPC?"', '"complete" or "status"'),
         ('read_temperature = { send = "SYST:TEMP?", reply = "text" }', '"numbers"'),
         ('read_frequencies = { send = "FREQ:DATA?", reply = "text" }', '"block", "numbers" or "rows"'),
         ('reset = { send = "*RST", reply = "identity" }', '"none", "text" or "complete"'),
@@ -96,15 +97,52 @@ def test_bad_profiles_name_the_key(change: tuple[str, str], key: str) -> None:
     ],
 )
 def test_each_operation_allows_only_the_reply_kinds_the_driver_reads(operation: str, allowed: str) -> None:
-    name, send = operation.split(" = ", 1)
-    text = MINIMAL.replace("[operations]", f"[operations]\n{operation}")
-    if name == "identify":
-        text = text.replace('identify = { send = "*IDN?", reply = "identity" }\n', "")
+    name = operation.split(" = ", 1)[0]
+    lines = [line for line in MINIMAL.splitlines() if not line.startswith(f"{name} = ")]
+    text = "\n".join(lines).replace("[operations]", f"[operations]\n{operation}")
     with pytest.raises(InputError) as caught:
         parse_analyzer_profile(text, "mine.toml")
     error = caught.value
     assert (error.path, error.key) == ("mine.toml", f"operations.{name}.reply")
     assert f"{name} must reply {allowed}" in error.problem and f"{name} = {{ send = " in error.fix
+
+
+def test_an_analyzer_must_have_a_way_to_tell_that_its_sweep_ended() -> None:
+    # Without a wait, a trigger without a reply would be followed at once by the trace read,
+    # which could return the previous sweep.
+    without_wait = MINIMAL.replace('wait = { send = "*OPC?", reply = "complete" }\n', "")
+    with pytest.raises(InputError) as caught:
+        parse_analyzer_profile(without_wait, "mine.toml")
+    error = caught.value
+    assert (error.path, error.key) == ("mine.toml", "operations.wait")
+    assert "previous sweep" in error.problem and 'wait = { send = "*OPC?", reply = "complete" }' in error.fix
+    for trigger in ('{ send = "INIT;*OPC?", reply = "complete" }', '{ send = "take", reply = "text" }'):
+        profile = parse_analyzer_profile(without_wait.replace('trigger = "INIT"', f"trigger = {trigger}"), "x.toml")
+        assert profile.operation("wait") is None
+
+
+def test_a_polled_wait() -> None:
+    polled = '{ send = "*ESR?", reply = "status", arm = "*OPC", done_bits = 1 }'
+    profile = parse_analyzer_profile(MINIMAL.replace('{ send = "*OPC?", reply = "complete" }', polled), "x.toml")
+    wait = profile.operation("wait")
+    assert (wait.send, wait.reply, wait.arm, wait.done_bits) == ("*ESR?", "status", "*OPC", 1)
+
+
+@pytest.mark.parametrize(
+    ("wait", "key"),
+    [
+        ('{ send = "*ESR?", reply = "status" }', "operations.wait.done_bits"),
+        ('{ send = "*ESR?", reply = "status", done_bits = 0 }', "operations.wait.done_bits"),
+        ('{ send = "*ESR?", reply = "status", done_bits = 1, arm = "*OPC {points}" }', "operations.wait.arm"),
+        ('{ send = "*OPC?", reply = "complete", done_bits = 1 }', "operations.wait.done_bits"),
+        ('{ send = "*OPC?", reply = "complete", arm = "*OPC" }', "operations.wait.arm"),
+    ],
+)
+def test_bad_polled_waits_name_the_key_and_the_fix(wait: str, key: str) -> None:
+    text = MINIMAL.replace('{ send = "*OPC?", reply = "complete" }', wait)
+    with pytest.raises(InputError) as caught:
+        parse_analyzer_profile(text, "mine.toml")
+    assert (caught.value.path, caught.value.key) == ("mine.toml", key) and caught.value.fix
 
 
 def test_a_switch_reads_its_channels_as_numbers() -> None:
