@@ -368,7 +368,8 @@ class MessageSession:
 
         The header is read in two short reads, then the payload and its terminator in one
         exact-length read with the termination character off.  A declared length above the
-        cap, a short payload or a missing line end after it is an error, never data.
+        cap, a short payload or a missing line end after it is an error, never data; so is
+        an indefinite-length block (``#0``), whose end a byte stream cannot show.
         """
         if self.framing.prompted:
             raise ReplyError("binary blocks are not read on a prompted line", resource=self.resource,
@@ -395,11 +396,15 @@ class MessageSession:
             wanted = int(header_bytes[-1:]) if header_bytes[-2:-1] == b"#" else 1
             header_bytes += read(wanted, deadline)
         if header.payload_length is None:
-            # IEEE 488.2 §8.7.10: the payload runs to NL^END.  Without END on a byte stream
-            # the first NL ends it, so this form is only safe for text payloads.
-            line = self.transport.read_line_raw((self.framing.read_termination,), deadline, self.block_cap)
-            self._in_response = False
-            return line[: -len(self.framing.read_termination)]
+            # IEEE 488.2 §8.7.10: the payload runs to NL^END.  A byte stream carries no END,
+            # so only the first NL could end it -- and binary data holds that byte anywhere:
+            # the payload would be cut and its rest read as the next reply.  Refused; the
+            # rest of it stays unread and the link is renewed before the next command.
+            raise ieee488.CodecError(
+                "the instrument sent an indefinite-length block (#0, IEEE 488.2 §8.7.10), whose end cannot be "
+                "told from a line feed inside binary data; refused -- fix: set the instrument to definite-length "
+                'blocks, or read ASCII data (data_format = "ASCII" and reply = "numbers" in the profile)'
+            )
         payload = read(header.payload_length, deadline)
         # A definite block is followed by the response message terminator (§8.5); anything
         # else means the payload length and the data disagree.
