@@ -10,6 +10,7 @@ instrument profile") documents every key with a worked example.
 from __future__ import annotations
 
 import json
+import math
 import re
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -232,7 +233,8 @@ def _parse_operation(reader: TableReader, name: str, spec: OperationSpec) -> Ope
     if isinstance(raw, str):
         raw = {"send": raw}
     if not isinstance(raw, dict):
-        raise reader.error(name, "must be a string or a table {send = ..., reply = ...}")
+        raise reader.error(name, "must be a string or a table {send = ..., reply = ...}",
+                           fix=f'write {name} = "<command>" or {name} = {{ send = "<command>", reply = "..." }}')
     table = TableReader(raw, reader.path, f"{reader.key(name)}.")
     table.reject_unknown({"send", "reply", "idempotent", "timeout_s", "columns", "arm", "done_bits"})
     send = table.get("send", str)
@@ -308,10 +310,10 @@ def _parse_link(reader: TableReader) -> LinkSettings:
         prompt=prompt,
         error_line=error_line,
         rows_end=reader.get("rows_end", str, defaults.rows_end),
-        baud_rate=int(reader.positive("baud_rate", defaults.baud_rate)),
+        baud_rate=reader.whole("baud_rate", 1, None, defaults.baud_rate, fix="give the line's rate, e.g. baud_rate = 115200"),
         byte_size=_byte_size(reader),
         parity=reader.choice("parity", ("N", "E", "O", "M", "S"), defaults.parity),
-        stop_bits=reader.get("stop_bits", float, defaults.stop_bits),
+        stop_bits=_stop_bits(reader),
         flow_control=reader.choice("flow_control", ("none", "rtscts", "xonxoff"), defaults.flow_control),
     )
 
@@ -319,20 +321,29 @@ def _parse_link(reader: TableReader) -> LinkSettings:
 def _byte_size(reader: TableReader) -> int:
     value = reader.get("byte_size", int, 8)
     if value not in (5, 6, 7, 8):
-        raise reader.error("byte_size", f"must be 5, 6, 7 or 8, got {value}")
+        raise reader.error("byte_size", f"must be 5, 6, 7 or 8, got {value}",
+                           fix="give the data bits per character, usually byte_size = 8")
+    return value
+
+
+def _stop_bits(reader: TableReader) -> float:
+    value = reader.get("stop_bits", float, LinkSettings().stop_bits)
+    if value not in (1, 1.5, 2):
+        raise reader.error("stop_bits", f"must be 1, 1.5 or 2, got {value:g}", fix="usually stop_bits = 1")
     return value
 
 
 def _parse_timing(reader: TableReader) -> Timing:
     reader.reject_unknown(set(Timing.__dataclass_fields__))
     defaults = Timing()
-    retries = reader.get("retries", int, defaults.retries)
-    if not 0 <= retries <= 10:
-        raise reader.error("retries", f"must be 0..10, got {retries}")
+    retries = reader.whole("retries", 0, 10, defaults.retries,
+                           fix="give how often an idempotent query may be repeated, 0..10 (default 2)")
     return Timing(
         command_timeout_s=reader.positive("command_timeout_s", defaults.command_timeout_s),
-        sweep_overhead_s=reader.get("sweep_overhead_s", float, defaults.sweep_overhead_s),
-        settle_per_point_s=reader.get("settle_per_point_s", float, defaults.settle_per_point_s),
+        sweep_overhead_s=reader.non_negative("sweep_overhead_s", defaults.sweep_overhead_s,
+                                             fix="give the sweep's fixed time in seconds, 0 or more"),
+        settle_per_point_s=reader.non_negative("settle_per_point_s", defaults.settle_per_point_s,
+                                               fix="give the time each point takes beyond 1/IF bandwidth, 0 or more"),
         sweep_timeout_margin=reader.positive("sweep_timeout_margin", defaults.sweep_timeout_margin),
         transfer_timeout_margin=reader.positive("transfer_timeout_margin", defaults.transfer_timeout_margin),
         retries=retries,
@@ -343,23 +354,29 @@ def _parse_analyzer_capabilities(reader: TableReader) -> AnalyzerCapabilities:
     reader.reject_unknown(set(AnalyzerCapabilities.__dataclass_fields__))
     paths = reader.choice("paths", ("reflection", "forward", "full"),
                           fix="use reflection (1-port), forward (one-path 2-port) or full")
-    low = reader.get("frequency_min_hz", float)
-    high = reader.get("frequency_max_hz", float)
-    if not 0 < low < high:
-        raise reader.error("frequency_max_hz", "frequency range must satisfy 0 < min < max")
-    max_points = reader.get("max_points", int)
-    if max_points < 2:
-        raise reader.error("max_points", "max_points must be at least 2")
+    ports = reader.whole("ports", 1, 4, fix="give the analyzer's test ports, 1 to 4 (parameters are named S11..S44)")
+    if paths != "reflection" and ports < 2:
+        raise reader.error("paths", f"paths = {paths!r} measures transmission, which needs two ports, not {ports}",
+                           fix='use paths = "reflection" for a one-port analyzer, or set ports = 2')
+    low, high = _frequency_range(reader)
+    max_points = reader.whole("max_points", 2, None,
+                              fix="give the most points the instrument sweeps at once, e.g. max_points = 1601")
     parameters = reader.get("parameters", list)
     if not parameters or not all(isinstance(p, str) and re.fullmatch(r"S[1-4][1-4]", p) for p in parameters):
-        raise reader.error("parameters", "parameters must be a non-empty list such as [\"S11\", \"S21\"]")
+        raise reader.error("parameters", "parameters must be a non-empty list of S-parameter names",
+                           fix='e.g. parameters = ["S11", "S21"]')
+    beyond = [p for p in parameters if max(int(p[1]), int(p[2])) > ports]
+    if beyond:
+        raise reader.error("parameters", f"{', '.join(beyond)} need{'s' if len(beyond) == 1 else ''} more than "
+                           f"the {ports} port{'s' if ports > 1 else ''} of capabilities.ports",
+                           fix=f"list only parameters of ports 1..{ports}, or set ports to the analyzer's number of ports")
     names = reader.get("parameter_names", dict, {})
     for key, value in names.items():
         if key not in parameters or not isinstance(value, str) or not re.fullmatch(r"[\w:/.-]+", value):
             raise reader.error(f"parameter_names.{key}", "must map a listed parameter to a plain name",
                                fix='e.g. parameter_names = { S11 = "s11" }')
     return AnalyzerCapabilities(
-        ports=reader.get("ports", int), paths=paths, frequency_min_hz=low, frequency_max_hz=high,
+        ports=ports, paths=paths, frequency_min_hz=low, frequency_max_hz=high,
         max_points=max_points, parameters=tuple(parameters),
         raw_data=reader.get("raw_data", bool, True), corrected_data=reader.get("corrected_data", bool, False),
         data_format=reader.choice("data_format", ("REAL,64", "REAL,32", "ASCII"), "REAL,64"),
@@ -368,12 +385,23 @@ def _parse_analyzer_capabilities(reader: TableReader) -> AnalyzerCapabilities:
     )
 
 
+def _frequency_range(reader: TableReader) -> tuple[float, float]:
+    fix = "give the analyzer's range in Hz, finite and 0 < frequency_min_hz < frequency_max_hz, e.g. 100e3 and 6e9"
+    low = reader.get("frequency_min_hz", float, fix=fix)
+    high = reader.get("frequency_max_hz", float, fix=fix)
+    if not 0 < low < math.inf:
+        raise reader.error("frequency_min_hz", f"must be a finite frequency above 0 Hz, got {low!r}", fix=fix)
+    if not low < high < math.inf:
+        raise reader.error("frequency_max_hz", f"must be a finite frequency above frequency_min_hz ({low:g} Hz), "
+                           f"got {high!r}", fix=fix)
+    return low, high
+
+
 def _parse_switch_capabilities(reader: TableReader) -> SwitchCapabilities:
     reader.reject_unknown(set(SwitchCapabilities.__dataclass_fields__))
-    modules = reader.get("modules", int)
-    channels = reader.get("channels_per_module", int)
-    if modules < 1 or channels < 1:
-        raise reader.error("modules", "modules and channels_per_module must be at least 1")
+    modules = reader.whole("modules", 1, None, fix="give the switch's number of modules, e.g. modules = 1")
+    channels = reader.whole("channels_per_module", 1, None,
+                            fix="give the channels of each module, e.g. channels_per_module = 8")
     return SwitchCapabilities(modules, channels)
 
 
@@ -385,7 +413,8 @@ def _parse_common(text: str, source: str, kind: str) -> tuple[TableReader, dict[
     found = head.get("kind", str)
     if found != kind:
         raise head.error("kind", f"expected kind = \"{kind}\", got {found!r}",
-                         fix=f"load it as a {found} profile" if found in ("analyzer", "switch") else None)
+                         fix=f"load it as a {found} profile" if found in ("analyzer", "switch")
+                         else f'set kind = "{kind}"')
     common = {
         "name": head.get("name", str), "kind": kind, "summary": head.get("summary", str, ""), "source": source,
         "link": _parse_link(root.table("link", required=False)),
@@ -431,7 +460,8 @@ def _check_reads(operations: Mapping[str, Operation], capabilities: AnalyzerCapa
             continue
         if operation.reply == "rows" and not needed <= set(operation.columns):
             raise InputError(f"columns must include {', '.join(sorted(needed))}", path=source,
-                             key=f"operations.{name}.columns")
+                             key=f"operations.{name}.columns",
+                             fix='name each column the reply has, e.g. columns = ["frequency", "re", "im"]')
         if operation.reply == "block" and (link.needs_serial or capabilities.data_format == "ASCII"):
             raise InputError("a block reply needs message framing and a REAL data format", path=source,
                              key=f"operations.{name}.reply", fix='use reply = "rows" or "numbers"')
