@@ -111,8 +111,10 @@ class DirectSocketIO:
     def _wait(self, readable: bool, deadline: float, what: str) -> None:
         sock = self._backend.interface
         left = deadline - time.monotonic()
+        if left <= 0:  # select() refuses a negative timeout with a ValueError
+            raise TimeoutError(what)
         ready = select.select([sock], [], [], left) if readable else select.select([], [sock], [], left)
-        if left <= 0 or not (ready[0] or ready[1]):
+        if not (ready[0] or ready[1]):
             raise TimeoutError(what)
 
     def write(self, data: bytes, deadline: float) -> None:
