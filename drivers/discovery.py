@@ -90,11 +90,16 @@ def list_serial_ports() -> list[tuple[str, str]]:
 
 def _identify(resource: str, profile: Profile, transport: str, timeout_s: float,
               library: str = "@py") -> InstrumentIdentity:
-    """Ask once (no retries) with the profile's identify operation."""
+    """Ask once (no retries) with the profile's identify operation, every exchange within
+    ``timeout_s``: an unanswered query is not followed by a question to the error queue
+    (which would take the profile's command timeout, and whatever is there may not speak
+    SCPI at all)."""
     session = open_session(resource, profile, transport,  # type: ignore[arg-type]
                            visa=VisaOptions(library, open_timeout_s=timeout_s))
     try:
         session.retries = 0
+        session.error_query = None
+        session.default_timeout_s = timeout_s
         return parse_identity(session.query(profile.operations["identify"].send, timeout_s), resource)
     finally:
         session.close()
