@@ -19,6 +19,7 @@ from lineproof.drivers.ieee488 import CodecError, parse_identity
 from lineproof.drivers.profile_files import shipped_profile_names
 from lineproof.drivers.profiles import AnalyzerProfile, Profile, load_analyzer_profile, profile_kind
 from lineproof.drivers.transports import VisaOptions
+from lineproof.drivers.visa_backend import install_advice
 from lineproof.errors import InstrumentError, LineproofError
 from lineproof.values import InstrumentIdentity
 
@@ -77,7 +78,7 @@ def _pyvisa_py_gaps() -> list[str]:
     gaps = []
     for interface, state in PyVisaLibrary.get_debug_info().items():
         if isinstance(state, list) and state:
-            gaps.append(f"{interface}: {state[0]}")
+            gaps.append(f"{interface}: {install_advice(state[0])}")
     return gaps
 
 

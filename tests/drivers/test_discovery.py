@@ -87,3 +87,6 @@ def test_listing_names_what_was_not_searched(capsys: pytest.CaptureFixture[str])
     assert main(["instruments"]) == 0
     out = capsys.readouterr().out
     assert "VISA resources:" in out and "serial ports (pyserial):" in out and "--identify" in out
+    # pyvisa-py's sentence on each missing package comes with the command that installs it
+    asked = [line for line in out.splitlines() if "Please install" in line]
+    assert all("pip install" in line for line in asked)

@@ -34,9 +34,16 @@ def test_a_refused_connection_fails_at_open() -> None:
 
 
 @pytest.mark.skipif(importlib.util.find_spec("usb") is not None, reason="PyUSB is installed here")
-def test_a_missing_backend_package_is_named() -> None:
-    with pytest.raises(LinkError, match="Please install PyUSB"):
+def test_a_missing_backend_package_is_named_with_the_command_that_installs_it() -> None:
+    with pytest.raises(LinkError, match="Please install PyUSB.*Install it with: pip install pyusb"):
         VisaTransport("USB0::0x1234::0x5678::SN1::INSTR")
+
+
+@pytest.mark.skipif(importlib.util.find_spec("gpib") is not None or importlib.util.find_spec("gpib_ctypes") is not None,
+                    reason="a GPIB package is installed here")
+def test_a_missing_gpib_package_is_named_with_the_command_that_installs_it() -> None:
+    with pytest.raises(LinkError, match="gpib-ctypes.*Install it with: pip install gpib-ctypes"):
+        VisaTransport("GPIB0::5::INSTR")
 
 
 def test_a_missing_visa_library_says_what_to_do(tmp_path) -> None:
