@@ -137,6 +137,11 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
     if missing:
         problems.add("calibration.kit", f"kit {kit.name} has no {', '.join(missing)} standard for a {cal.method} calibration",
                      f"add the standards to {path} or use another kit")
+        return
+    from lineproof.calibration import check_kit_for_sweep
+
+    for problem in check_kit_for_sweep(kit, spec.plan.frequencies(), METHOD_STANDARDS.get(cal.method, ())):
+        problems.absorb(problem, "calibration.kit")
 
 
 def _check_check_standard(spec: SequenceSpec, problems: Problems) -> None:
