@@ -6,15 +6,18 @@ holds.
 The policy: a calibration holds while (1) it is younger than the sequence's
 ``valid_for_minutes``, (2) the analyzer's temperature (when its profile can read it) has
 moved less than ``max_temperature_change_k`` since it was made, and (3) its last check
-passed -- the check standard agreed with its reference and its control chart showed no
-signal.  When it no longer holds, an unattended run calibrates again (and qualifies the
-termination and verifies again) before the next device; an attended one stops at a prompt
-until the person has the standards ready (:mod:`lineproof.run_steps`).
+passed and was in statistical control.  When it no longer holds, an unattended run calibrates
+again (and qualifies the termination and verifies again) before the next device; an attended
+one stops at a prompt until the person has the standards ready (:mod:`lineproof.run_steps`).
 
-A failed check marks every device of the run measured with that calibration since the last
-passing check as suspect -- in the database (with the reason and the failed check), in a
-sidecar file beside each result file (``<file>.suspect.json``; the Touchstone file itself is
-never rewritten), in the report and in the JSON summary.
+A check **fails** when the check standard disagrees with its reference (En > 1, or the fixed
+tolerance) or a band's point lies beyond its control limits.  A failed check marks every
+device of the run measured with that calibration since the last passing check as suspect --
+in the database (with the reason and the failed check), in a sidecar file beside each result
+file (``<file>.suspect.json``; the Touchstone file itself is never rewritten), in the report
+and in the JSON summary.  A run rule or the precision chart only **warns**
+(:mod:`lineproof.control_chart`): the check passes and its results stand, but the calibration
+no longer holds.
 """
 
 from __future__ import annotations
@@ -27,7 +30,7 @@ from pathlib import Path
 from typing import Any
 
 from lineproof import steps
-from lineproof.check_history import combined_signals, history_rows, judge_new_points
+from lineproof.check_history import beyond_limits, combined_signals, history_rows, judge_new_points
 from lineproof.errors import InputError
 from lineproof.journal import RunJournal
 from lineproof.recording import RunFacts, RunFolder
@@ -75,9 +78,18 @@ class CalibrationPolicy:
                 and abs(temperature_c - cal.temperature_c) > self.max_temperature_change_k):
             return (f"the analyzer's temperature moved from {cal.temperature_c:.2f} to {temperature_c:.2f} °C, "
                     f"more than the {self.max_temperature_change_k:g} K it holds for")
-        if last_check is not None and not last_check.passed:
-            return f"its last check failed ({failure_reason(last_check)})"
-        return None
+        return None if last_check is None else check_problem(last_check)
+
+
+def check_problem(result: VerificationResult) -> str | None:
+    """Why the calibration a check was made with no longer holds after it, or None: the check
+    failed (En > 1, or a point beyond the control limits), or the chart warned (a run rule, the
+    precision chart) -- the calibration is made again, but no result is put in doubt."""
+    if not result.passed:
+        return f"its last check failed ({failure_reason(result)})"
+    if not result.in_control:
+        return f"its last check was out of statistical control ({'; '.join(result.control_signals or ())})"
+    return None
 
 
 def failure_reason(result: VerificationResult) -> str:
@@ -157,7 +169,8 @@ class CheckRunner:
         station, analyzer = self.facts.station, self.analyzer_name
         said = judge_new_points(self.store, station, analyzer, check.name, points, check.baseline_checks,
                                 result.agrees)
-        result = replace(result, control_signals=combined_signals(said), temperature_c=temperature)
+        result = replace(result, control_signals=combined_signals(said), beyond_limits=beyond_limits(said),
+                         temperature_c=temperature)
         drain()  # recorded during the check's sweeps: the lines stay in order, the marks see every device
         window = None
         after = last_pass.devices_before if last_pass is not None and last_pass.calibration_id == cal.calibration_id else 0

@@ -24,7 +24,7 @@ from lineproof.interfaces import Operator
 from lineproof.journal import RunJournal
 from lineproof.operators import ConsoleOperator
 from lineproof.recording import MeasurementBasis, RecordedDevice, RunFacts, RunFolder, record_device
-from lineproof.run_checks import CalibrationPolicy, CheckRunner, failure_reason
+from lineproof.run_checks import CalibrationPolicy, CheckRunner, check_problem, failure_reason
 from lineproof.run_devices import Acquired, AsTerminatedDevices, TwoPortDevices
 from lineproof.run_view import RunView
 from lineproof.sequence import DeviceUnit, SequenceSpec, StepSpec, resolve_path
@@ -33,6 +33,13 @@ from lineproof.stations import OpenStation
 from lineproof.steps import QualifiedTermination
 from lineproof.store import ResultStore
 from lineproof.values import CalibrationRecord, DeviceIdentity, VerificationResult
+
+
+#: Checks in a row out of statistical control -- each followed by a new calibration -- that halt
+#: a run (our choice, no published source).  A warning now and then is the charts' false-alarm
+#: rate (the precision chart alone: 1 % per band and check); three in a row, each with a fresh
+#: calibration, is the process itself (a worn connector, a damaged standard).
+WARNINGS_BEFORE_HALT = 3
 
 
 class StopSignal:
@@ -58,6 +65,8 @@ class RunState:
     checked_at_utc: datetime = field(default_factory=lambda: datetime.now(UTC))
     #: Why the calibration in use no longer holds (a failed check), until it is made again.
     calibration_doubt: str | None = None
+    #: Checks in a row that passed out of statistical control (a warning each).
+    warnings_in_a_row: int = 0
 
 
 class _ProgressOperator:
@@ -253,7 +262,9 @@ class StepRunner:
         """Measure the check standard with the calibration in use (:mod:`lineproof.run_checks`).
         A failed first check of a calibration halts the run; a later one leaves the
         calibration in doubt (the results since the last passing check are marked suspect),
-        and it is made again before the next device."""
+        and it is made again before the next device.  A check that passes out of statistical
+        control (a warning) has the calibration made again too; the run halts when the first
+        checks of two new calibrations in a row warn again: then it is not the calibration."""
         state = self.state
         assert self.spec.check_standard is not None and state.calibration is not None
         last = state.last_check[0] if state.last_check else None
@@ -262,13 +273,23 @@ class StepRunner:
         result = recorded.result
         if result.passed:
             state.last_check = (result, recorded.row)
+            state.warnings_in_a_row = 0 if result.in_control else state.warnings_in_a_row + 1
+        problem = check_problem(result)
+        if problem is None:
             return
-        if last is None:
+        if last is None and not result.passed:
             raise RunHalted(
                 f"check standard {result.check_standard} failed verification after {state.measured} device(s): "
                 f"{failure_reason(result)}. The calibration does not hold; results since the last passing check "
                 "are in doubt. Check the connections and the standards and resume the run: it will calibrate again")
-        state.calibration_doubt = f"its last check failed ({failure_reason(result)})"
+        if state.warnings_in_a_row >= WARNINGS_BEFORE_HALT:
+            raise RunHalted(
+                f"check standard {result.check_standard} is out of statistical control again, {WARNINGS_BEFORE_HALT} "
+                f"checks in a row with a new calibration before each ({failure_reason(result)}): the measurement "
+                "process, not one calibration, has changed. "
+                "Look at the check standard, the calibration standards and the connectors, then resume the run: "
+                "it will calibrate again")
+        state.calibration_doubt = problem
 
     def _drain(self) -> None:
         if self._pipeline is not None:

@@ -115,7 +115,7 @@ class CheckReading:
 
 
 def _judge_band(band: BandLimit, reading: CheckReading, reference: CheckReference, deviation: np.ndarray,
-                tolerance: float | None) -> tuple[VerificationBand, ChartPoint] | None:
+                tolerance: float | None, calibration_id: str) -> tuple[VerificationBand, ChartPoint] | None:
     inside = np.flatnonzero(metrics.band_mask(reading.frequencies_hz, band))
     if inside.size == 0:
         return None
@@ -124,7 +124,7 @@ def _judge_band(band: BandLimit, reading: CheckReading, reference: CheckReferenc
     measured = float(np.mean(per_repeat))
     expected = float(np.mean(reference.magnitude[inside]))
     spread = float(np.std(per_repeat, ddof=1)) if reading.repeats >= 2 else None
-    point = ChartPoint(measured, spread, reading.repeats)
+    point = ChartPoint(measured, spread, reading.repeats, calibration_id)
     if reference.expanded_uncertainty is None:
         assert tolerance is not None
         return VerificationBand(band.name, band.start_hz, band.stop_hz, measured, expected, float(deviation[worst]),
@@ -141,12 +141,12 @@ def judge_check(name: str, calibration_id: str, reading: CheckReading, reference
                 tolerance: float | None, bands: tuple[BandLimit, ...],
                 devices_before: int) -> tuple[VerificationResult, dict[str, ChartPoint]]:
     """Judge the reading band by band (En, or the fixed tolerance over the sweep); returns the
-    result and each band's chart point (the band's mean |Γ| over the repeats)."""
+    result and each band's chart point (the band's mean |Γ| over the repeats, with its calibration)."""
     deviation = np.abs(reading.mean - reference.magnitude)
     worst = int(np.argmax(deviation))
     judged, points = [], {}
     for band in bands:
-        found = _judge_band(band, reading, reference, deviation, tolerance)
+        found = _judge_band(band, reading, reference, deviation, tolerance, calibration_id)
         if found is not None:
             judged.append(found[0])
             points[band.name] = found[1]

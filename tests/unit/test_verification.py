@@ -153,18 +153,20 @@ def test_a_check_standard_definition_is_checked(tmp_path: Path, table: str, key:
 
 # -- history ------------------------------------------------------------------------------------
 
-def _record(store: ResultStore, value: float, agrees: bool = True, baseline: int = 3) -> tuple[str, ...] | None:
-    said = judge_new_points(store, "bench", "SIM", "check-75", {"2m": ChartPoint(value, 1e-4, 2)}, baseline, agrees)
-    result = VerificationResult("check-75", "cal-1", "2026-01-01T00:00:00+00:00", 0, 0.0, 146e6, 0.01, (),
-                                control_signals=said["2m"] if said["2m"] is None else tuple(said["2m"]))
-    if not agrees:
-        result = VerificationResult("check-75", "cal-1", "2026-01-01T00:00:00+00:00", 0, 0.02, 146e6, 0.01, ())
+def _record(store: ResultStore, value: float, cal: str, agrees: bool = True,
+            baseline: int = 3) -> tuple[str, ...] | None:
+    point = ChartPoint(value, 1e-4, 2, cal)
+    said = judge_new_points(store, "bench", "SIM", "check-75", {"2m": point}, baseline, agrees)
+    signals = said["2m"]
+    result = VerificationResult("check-75", cal, "2026-01-01T00:00:00+00:00", 0, 0.0 if agrees else 0.02, 146e6,
+                                0.01, (), control_signals=signals,
+                                beyond_limits=signals is not None and "beyond the control limits" in signals)
     store.record_verification("run-1", result, "bench", "SIM", "tolerance", [{
-        "calibration_id": "cal-1", "station": "bench", "analyzer": "SIM", "check_standard": "check-75",
+        "calibration_id": cal, "station": "bench", "analyzer": "SIM", "check_standard": "check-75",
         "figure": figure_name("2m"), "measured_utc": result.measured_utc, "value": value, "std_dev": 1e-4,
         "repeats": 2, "reference": 0.2, "en": None, "temperature_c": 23.0,
-        "signals": None if said["2m"] is None else "; ".join(said["2m"])}])
-    return said["2m"]
+        "signals": None if signals is None else "; ".join(signals)}])
+    return signals
 
 
 def test_the_history_is_kept_per_key_and_its_chart_recomputed_from_the_records(tmp_path: Path) -> None:
@@ -173,19 +175,22 @@ def test_the_history_is_kept_per_key_and_its_chart_recomputed_from_the_records(t
                          "sequence_name": "s", "station": "bench", "operator": "o", "software_version": "0",
                          "analyzer": "SIM", "resource": "r", "sweep_plan": "p"})
         f = np.linspace(1e8, 5e8, 3)
-        store.save_calibration("run-1", CalibrationRecord(
-            "cal-1", "one-port", "kit", "ab" * 32, "2026-01-01T00:00:00+00:00",
-            InstrumentIdentity("Maker", "SIM", "1", "1"), SweepPlan(1e8, 5e8, 3), 50.0, f,
-            {"directivity": np.zeros(3, complex)}), "bench")
-        said = [_record(store, v) for v in (0.2001, 0.1999)]
-        said.append(_record(store, 0.2300, agrees=False))  # disagreed with its reference: not in the baseline
-        said += [_record(store, v) for v in (0.2000, 0.2000, 0.2100)]
-        assert said[:4] == [None, None, None, None]
-        assert said[4] == () and said[5] and "beyond the control limits" in said[5]
+        for n in range(1, 7):
+            store.save_calibration("run-1", CalibrationRecord(
+                f"cal-{n}", "one-port", "kit", "ab" * 32, "2026-01-01T00:00:00+00:00",
+                InstrumentIdentity("Maker", "SIM", "1", "1"), SweepPlan(1e8, 5e8, 3), 50.0, f,
+                {"directivity": np.zeros(3, complex)}), "bench")
+        said = [_record(store, 0.2001, "cal-1")]
+        said.append(_record(store, 0.1990, "cal-1"))  # the same calibration again: not a second baseline point
+        said.append(_record(store, 0.1999, "cal-2"))
+        said.append(_record(store, 0.2300, "cal-3", agrees=False))  # disagreed with its reference: not in the baseline
+        said += [_record(store, 0.2000, "cal-4"), _record(store, 0.2000, "cal-5"), _record(store, 0.2100, "cal-6")]
+        assert said[:5] == [None] * 5
+        assert said[5] == () and said[6] and "beyond the control limits" in said[6]
         key = HistoryKey("bench", "SIM", "check-75", figure_name("2m"))
         assert history_keys(store) == [key] and history_keys(store, figure="2m") == [key]
         assert history_keys(store, station="elsewhere") == []
         chart = load_chart(store, key)
         assert chart.baseline is not None and chart.baseline.count == 3
         assert chart.baseline.center == pytest.approx((0.2001 + 0.1999 + 0.2000) / 3)
-        assert [j.signals for j in chart.judged][4:] == [(), said[5]]
+        assert [j.signals for j in chart.judged][5:] == [(), said[6]]
