@@ -27,9 +27,11 @@ from lineproof.control_chart import (
     TWO_OF_THREE,
     Baseline,
     ChartPoint,
+    baseline_indices,
     judge_series,
     limit_factor,
     make_baseline,
+    occasions,
     pooled_standard_deviation,
     precision_limit,
     run_rule_signals,
@@ -157,3 +159,84 @@ def test_a_widened_short_term_spread_is_flagged_by_the_precision_chart() -> None
     assert limit == pytest.approx(math.sqrt(stats.f.ppf(0.99, 2, 20)))
     _, judged = judge_series([*baseline, ChartPoint(0.0, 0.9 * limit, 3), ChartPoint(0.0, 1.1 * limit, 3)], 10)
     assert judged[10].signals == () and judged[11].signals == (SPREAD_TOO_WIDE,)
+
+
+# -- one point per calibration ----------------------------------------------------------------
+
+def _calibrations(values_by_calibration: list[list[float]], first: int = 0, spread: float | None = None,
+                  repeats: int = 1) -> list[ChartPoint]:
+    """Checks grouped by calibration (cal-<first>, cal-<first + 1>, ...), oldest first."""
+    return [ChartPoint(v, spread, repeats, f"cal-{first + n}")
+            for n, values in enumerate(values_by_calibration) for v in values]
+
+
+def test_the_baseline_takes_the_first_agreeing_check_of_each_calibration() -> None:
+    points = _calibrations([[0.1, 0.11, 0.12], [0.2], [0.3, 0.31], [0.4]])
+    assert baseline_indices(points, 3) == [0, 3, 4]
+    # A calibration whose first check disagreed with its reference is represented by its next.
+    assert baseline_indices(points, 3, [True, True, True, True, False, True, True]) == [0, 3, 5]
+    assert occasions(points) == 4 and occasions(points[:3]) == 1
+    # Points without a calibration are each an occasion of their own (as before).
+    assert baseline_indices([ChartPoint(v) for v in (1.0, 2.0, 3.0)], 2) == [0, 1]
+    base, judged = judge_series(points, 3)
+    assert base is not None and base.count == 3 and base.center == pytest.approx(0.2)
+    assert [j.judged for j in judged] == [False] * 5 + [True] * 2
+
+
+def test_checks_sharing_one_calibration_do_not_make_a_run() -> None:
+    # Ten calibrations set the baseline (s2 = 1, centre 0); the next calibration reads 1.5 s2
+    # high -- inside the limits -- and is checked after each of twenty devices.  Its checks
+    # share its error: one occasion, not twenty.  Judged as independent points they would break
+    # the 4-of-5 and 8-in-a-row rules; one point per calibration breaks none.
+    baseline = _calibrations([[v] for v in (-1.5, -1.0, -0.5, 0.0, 0.0, 0.0, 0.5, 1.0, 1.5, 0.0)])
+    offset = _calibrations([[1.5 + 0.01 * (i % 3) for i in range(20)]], first=10)
+    base, judged = judge_series(baseline + offset, 10)
+    assert base is not None and base.center == pytest.approx(0.0) and base.upper > 1.6
+    assert all(j.signals == () for j in judged[10:])
+    # The same values, each its own calibration: the rules fire (the audit's false alarms).
+    _, independent = judge_series(baseline + [ChartPoint(p.value) for p in offset], 10)
+    assert any(FOUR_OF_FIVE in (j.signals or ()) for j in independent[10:])
+
+
+def test_a_calibration_is_represented_by_its_latest_check() -> None:
+    # After the baseline, calibrations 10 and 11 read +2.5 s2 (two of three beyond 2 s2 needs a
+    # third).  Calibration 12's first check reads 0: no signal; its second reads +2.2: with
+    # calibrations 10 and 11 it completes 2 of 3 beyond 2 s2 -- its first check no longer counts.
+    baseline = _calibrations([[v] for v in (-1.5, -1.0, -0.5, 0.0, 0.0, 0.0, 0.5, 1.0, 1.5, 0.0)])
+    later = _calibrations([[2.5], [0.5], [0.0, 2.2]], first=10)
+    _, judged = judge_series(baseline + later, 10)
+    assert [j.signals for j in judged[10:]] == [(), (), (), (TWO_OF_THREE,)]
+
+
+def test_run_rules_catch_a_slow_drift_across_calibrations_before_any_check_leaves_the_limits() -> None:
+    # The README's claim.  A check standard read by successive calibrations that drift by 0.3 s2
+    # each (noise-free, so the answer is known by construction), with five checks per calibration
+    # scattering by 0.05 s2 around it.  The limits (4.09 s2 for K = 10) are first crossed by the
+    # 14th calibration after the baseline (cal-23, 4.2 s2); the trend rule fires at the first
+    # check of the 6th (cal-15: six calibrations in a row rising), the 4-of-5 rule would at the
+    # 7th.  Every check before that stays inside the limits and in control.
+    rng = np.random.default_rng(11)
+    baseline = _calibrations([[float(v)] for v in rng.standard_normal(10)])
+    base = make_baseline(baseline)
+    scatter = [0.0, 0.05, -0.05, 0.02, -0.02]
+    drift = _calibrations([[base.center + base.process_std * (0.3 * (c + 1) + d) for d in scatter]
+                           for c in range(16)], first=10)
+    _, judged = judge_series(baseline + drift, 10)
+    later = judged[10:]
+    first_signal = next(i for i, j in enumerate(later) if j.signals)
+    first_beyond = next(i for i, p in enumerate(drift) if not base.lower <= p.value <= base.upper)
+    assert drift[first_signal].calibration == "cal-15" and drift[first_beyond].calibration == "cal-23"
+    assert first_signal == 5 * 5 and first_signal < first_beyond
+    assert later[first_signal].signals == (SIX_TRENDING,) and not later[first_signal].fails
+    assert all(j.signals == () for j in later[:first_signal])
+
+
+def test_only_a_point_beyond_the_limits_fails_a_check() -> None:
+    baseline = _calibrations([[v] for v in (-1.5, -1.0, -0.5, 0.0, 0.0, 0.0, 0.5, 1.0, 1.5, 0.0)], spread=1.0,
+                             repeats=3)
+    later = _calibrations([[9.0], [2.5], [0.5], [2.2], [0.0]], first=10, spread=1.0, repeats=3)
+    later[-1] = ChartPoint(0.0, 10.0, 3, "cal-14")
+    _, judged = judge_series(baseline + later, 10)
+    signals = [j.signals for j in judged[10:]]
+    assert signals == [(BEYOND_LIMITS,), (), (), (TWO_OF_THREE,), (SPREAD_TOO_WIDE,)]
+    assert [j.fails for j in judged[10:]] == [True, False, False, False, False]
