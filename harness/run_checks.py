@@ -81,6 +81,29 @@ class CalibrationPolicy:
         return None if last_check is None else check_problem(last_check)
 
 
+#: Checks in a row out of statistical control -- each followed by a new calibration -- that halt
+#: a run (our choice, no published source).  A warning now and then is the charts' false-alarm
+#: rate (the precision chart alone: 1 % per band and check); three in a row, each with a fresh
+#: calibration, is the process itself (a worn connector, a damaged standard).
+WARNINGS_BEFORE_HALT = 3
+
+
+def halt_reason(result: VerificationResult, first_of_calibration: bool, warnings_in_a_row: int) -> str | None:
+    """Why the run must stop after ``result`` (None: it goes on).  ``warnings_in_a_row``: the
+    checks in a row, this one included, that passed out of statistical control."""
+    if first_of_calibration and not result.passed:
+        return (f"check standard {result.check_standard} failed verification after {result.devices_before} "
+                f"device(s): {failure_reason(result)}. The calibration does not hold; results since the last "
+                "passing check are in doubt. Check the connections and the standards and resume the run: it will "
+                "calibrate again")
+    if result.passed and not result.in_control and warnings_in_a_row >= WARNINGS_BEFORE_HALT:
+        return (f"check standard {result.check_standard} is out of statistical control again, {warnings_in_a_row} "
+                f"checks in a row with a new calibration before each ({failure_reason(result)}): the measurement "
+                "process, not one calibration, has changed. Look at the check standard, the calibration standards "
+                "and the connectors, then resume the run: it will calibrate again")
+    return None
+
+
 def check_problem(result: VerificationResult) -> str | None:
     """Why the calibration a check was made with no longer holds after it, or None: the check
     failed (En > 1, or a point beyond the control limits), or the chart warned (a run rule, the

@@ -24,7 +24,7 @@ from lineproof.interfaces import Operator
 from lineproof.journal import RunJournal
 from lineproof.operators import ConsoleOperator
 from lineproof.recording import MeasurementBasis, RecordedDevice, RunFacts, RunFolder, record_device
-from lineproof.run_checks import CalibrationPolicy, CheckRunner, check_problem, failure_reason
+from lineproof.run_checks import CalibrationPolicy, CheckRunner, check_problem, halt_reason
 from lineproof.run_devices import Acquired, AsTerminatedDevices, TwoPortDevices
 from lineproof.run_view import RunView
 from lineproof.sequence import DeviceUnit, SequenceSpec, StepSpec, resolve_path
@@ -33,13 +33,6 @@ from lineproof.stations import OpenStation
 from lineproof.steps import QualifiedTermination
 from lineproof.store import ResultStore
 from lineproof.values import CalibrationRecord, DeviceIdentity, VerificationResult
-
-
-#: Checks in a row out of statistical control -- each followed by a new calibration -- that halt
-#: a run (our choice, no published source).  A warning now and then is the charts' false-alarm
-#: rate (the precision chart alone: 1 % per band and check); three in a row, each with a fresh
-#: calibration, is the process itself (a worn connector, a damaged standard).
-WARNINGS_BEFORE_HALT = 3
 
 
 class StopSignal:
@@ -264,7 +257,8 @@ class StepRunner:
         calibration in doubt (the results since the last passing check are marked suspect),
         and it is made again before the next device.  A check that passes out of statistical
         control (a warning) has the calibration made again too; the run halts when the first
-        checks of two new calibrations in a row warn again: then it is not the calibration."""
+        checks of two new calibrations in a row warn again: then it is not the calibration
+        (:func:`lineproof.run_checks.halt_reason`)."""
         state = self.state
         assert self.spec.check_standard is not None and state.calibration is not None
         last = state.last_check[0] if state.last_check else None
@@ -274,22 +268,12 @@ class StepRunner:
         if result.passed:
             state.last_check = (result, recorded.row)
             state.warnings_in_a_row = 0 if result.in_control else state.warnings_in_a_row + 1
+        halt = halt_reason(result, last is None, state.warnings_in_a_row)
+        if halt is not None:
+            raise RunHalted(halt)
         problem = check_problem(result)
-        if problem is None:
-            return
-        if last is None and not result.passed:
-            raise RunHalted(
-                f"check standard {result.check_standard} failed verification after {state.measured} device(s): "
-                f"{failure_reason(result)}. The calibration does not hold; results since the last passing check "
-                "are in doubt. Check the connections and the standards and resume the run: it will calibrate again")
-        if state.warnings_in_a_row >= WARNINGS_BEFORE_HALT:
-            raise RunHalted(
-                f"check standard {result.check_standard} is out of statistical control again, {WARNINGS_BEFORE_HALT} "
-                f"checks in a row with a new calibration before each ({failure_reason(result)}): the measurement "
-                "process, not one calibration, has changed. "
-                "Look at the check standard, the calibration standards and the connectors, then resume the run: "
-                "it will calibrate again")
-        state.calibration_doubt = problem
+        if problem is not None:
+            state.calibration_doubt = problem
 
     def _drain(self) -> None:
         if self._pipeline is not None:

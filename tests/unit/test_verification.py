@@ -4,6 +4,7 @@ definition in a sequence, and the history a store keeps of each figure."""
 from __future__ import annotations
 
 import math
+from datetime import UTC, datetime
 from pathlib import Path
 
 import numpy as np
@@ -14,9 +15,17 @@ from test_sequence import GOOD, write
 from lineproof.check_history import HistoryKey, figure_name, history_keys, judge_new_points, load_chart
 from lineproof.check_standards import ReferenceModel
 from lineproof.control_chart import ChartPoint
+from lineproof.run_checks import WARNINGS_BEFORE_HALT, CalibrationPolicy, check_problem, halt_reason
 from lineproof.sequence import SequenceProblems, load_sequence
 from lineproof.store import ResultStore
-from lineproof.values import BandLimit, CalibrationRecord, InstrumentIdentity, SweepPlan, VerificationResult
+from lineproof.values import (
+    BandLimit,
+    CalibrationRecord,
+    InstrumentIdentity,
+    SweepPlan,
+    VerificationBand,
+    VerificationResult,
+)
 from lineproof.verification import (
     CheckReading,
     CheckReference,
@@ -194,3 +203,52 @@ def test_the_history_is_kept_per_key_and_its_chart_recomputed_from_the_records(t
         assert chart.baseline is not None and chart.baseline.count == 3
         assert chart.baseline.center == pytest.approx((0.2001 + 0.1999 + 0.2000) / 3)
         assert [j.signals for j in chart.judged][5:] == [(), said[6]]
+
+
+# -- what a check means for its calibration ----------------------------------------------------
+
+def _check(en: float = 0.3, signals: tuple[str, ...] | None = (), beyond: bool = False) -> VerificationResult:
+    band = VerificationBand("2m", 144e6, 148e6, 0.3340, 0.3333, 0.001, 146e6, 0.0091, en)
+    return VerificationResult("mismatch-2to1", "cal-1", "2026-01-01T01:00:00+00:00", 5, 0.001, 146e6, 0.0091,
+                              (band,), en, control_signals=signals, beyond_limits=beyond)
+
+
+def test_a_run_rule_or_precision_signal_warns_only_en_or_the_limits_fail() -> None:
+    # The rule (see lineproof.control_chart): a check fails -- its results since the last
+    # passing check become suspect -- on En > 1 or a point beyond the control limits; a run rule
+    # or the precision chart is a warning: the check passes, the calibration no longer holds.
+    cal = CalibrationRecord("cal-1", "one-port", "kit", "ab" * 32, "2026-01-01T00:00:00+00:00",
+                            InstrumentIdentity("Maker", "SIM", "1", "1"), SweepPlan(1e8, 5e8, 3), 50.0,
+                            np.linspace(1e8, 5e8, 3), {"directivity": np.zeros(3, complex)})
+    now = datetime(2026, 1, 1, 1, 0, tzinfo=UTC)
+    calm, baseline = _check(), _check(signals=None)
+    trend = _check(signals=("70cm: 6 points in a row steadily rising or falling (Nelson test 3)",))
+    spread = _check(signals=("2m: short-term standard deviation above its limit (precision chart)",))
+    beyond = _check(signals=("2m: beyond the control limits",), beyond=True)
+    disagrees = _check(en=1.4)
+    for fine in (calm, baseline):
+        assert fine.passed and fine.in_control and check_problem(fine) is None
+        assert CalibrationPolicy().problem(cal, None, fine, now) is None
+    for warned in (trend, spread):
+        assert warned.passed and not warned.in_control
+        assert "out of statistical control" in (check_problem(warned) or "")
+        assert CalibrationPolicy().problem(cal, None, warned, now) == check_problem(warned)
+        assert "passed, but out of statistical control" in warned.describe()
+    for failed in (beyond, disagrees):
+        assert not failed.passed and "its last check failed" in (check_problem(failed) or "")
+        assert failed.describe().endswith("FAILED")
+
+
+def test_a_failed_first_check_halts_and_so_do_warnings_that_outlast_new_calibrations() -> None:
+    spread = _check(signals=("2m: short-term standard deviation above its limit (precision chart)",))
+    beyond = _check(signals=("2m: beyond the control limits",), beyond=True)
+    assert WARNINGS_BEFORE_HALT == 3
+    # A warning has the calibration made again; the third in a row (two new calibrations each
+    # warned at once) halts the run: it is not the calibration.
+    assert halt_reason(spread, False, 1) is None and halt_reason(spread, True, 2) is None
+    assert "out of statistical control again, 3 checks in a row" in (halt_reason(spread, True, 3) or "")
+    assert halt_reason(_check(), True, 0) is None
+    # A failed check halts only as a calibration's first: later, its results become suspect and
+    # the calibration is made again.
+    assert halt_reason(beyond, False, 0) is None and halt_reason(_check(en=1.4), False, 0) is None
+    assert "failed verification after 5 device(s)" in (halt_reason(beyond, True, 0) or "")
