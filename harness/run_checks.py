@@ -181,12 +181,15 @@ class CheckRunner:
               drain: Callable[[], None]) -> RecordedCheck:
         """Measure the check standard with ``cal`` (after ``devices_before`` devices of the run)
         and record it; a failed check marks the devices since ``last_pass`` suspect.  ``drain``
-        finishes the recordings still running before anything is marked."""
+        finishes the recordings still running before anything is marked.  The check is recorded
+        at the analyzer's temperature before its sweeps (the conditions it set out to prove); the
+        journal has the temperature after them too."""
         check = self.spec.check_standard
         assert check is not None
         self.view.step_started(f"verifying with check standard {check.name}", total=check.repeats)
-        reading = measure_check_standard(self.measuring, cal, check.name, check.repeats)
         temperature = self.read_temperature()
+        reading = measure_check_standard(self.measuring, cal, check.name, check.repeats)
+        temperature_after = self.read_temperature() if temperature is not None else None
         result, points = judge_check(check.name, cal.calibration_id, reading, self.reference(), check.tolerance,
                                      self.spec.bands, devices_before)
         station, analyzer = self.facts.station, self.analyzer_name
@@ -209,8 +212,9 @@ class CheckRunner:
             suspects = tuple(str(r[0]) for r in self.store.query(
                 "SELECT serial FROM devices WHERE suspect_verification_id = ? ORDER BY position", (row,)))
             write_suspect_notes(self.store, self.folder, self.facts.run_id)
-        self.journal.write("verified", verification_id=row, passed=result.passed, devices_before=devices_before,
-                           suspect=list(suspects))
+        self.journal.write("verified", verification_id=row, passed=result.passed, in_control=result.in_control,
+                           devices_before=devices_before, suspect=list(suspects), temperature_before_c=temperature,
+                           temperature_after_c=temperature_after)
         self.view.step_finished("")
         self.view.verification(result, reused=False)
         if suspects and window is not None:

@@ -302,3 +302,26 @@ def test_a_stable_bench_checked_after_every_device_puts_no_right_result_in_doubt
     assert [e["in_control"] for e in told[1:]] == [c[3] == 1 for c in checks[1:]]
     assert not [e for e in run["events"] if e["event"] == "suspect"]
 
+
+
+def test_a_check_is_recorded_at_the_temperature_before_its_sweeps(tmp_path: Path) -> None:
+    # The room warms by 1.5 K between the first and second sweep of the check after device 8
+    # (its sweeps at 18, 19 and 20 min of the bench clock): the check is recorded at the 23.0 deg C
+    # it set out to prove, the journal has both readings, and the 1 K limit has the calibration
+    # made again before device 9.
+    scenario = SCENARIO.read_text(encoding="utf-8")
+    warming = "temperature_profile = [[0, 23.0], [1262, 23.0], [1318, 35.0]]"
+    assert warming in scenario
+    (tmp_path / "warming.toml").write_text(
+        scenario.replace(warming, "temperature_profile = [[0, 23.0], [1100, 23.0], [1110, 24.5]]"), encoding="utf-8")
+    sequence = _variant(tmp_path, "warming-seq.toml", {'simulated_bench = "drifting-bench"':
+                                                       'simulated_bench = "warming.toml"'})
+    records = tmp_path / "rec"
+    assert main(["run", str(sequence), "--records", str(records)]) == 0
+    with sqlite3.connect(records / "results.sqlite") as db:
+        checks = db.execute("SELECT devices_before, temperature_c FROM verifications ORDER BY verification_id").fetchall()
+        history = {t for (t,) in db.execute("SELECT temperature_c FROM check_history WHERE verification_id = 3")}
+    assert checks == [(0, 23.0), (4, 23.0), (8, 23.0), (8, 24.5), (12, 24.5), (16, 24.5)] and history == {23.0}
+    journal = next((records / "runs").glob("*/journal.jsonl")).read_text(encoding="utf-8").splitlines()
+    verified = [json.loads(line) for line in journal if '"verified"' in line]
+    assert [(v["temperature_before_c"], v["temperature_after_c"]) for v in verified][2] == (23.0, 24.5)
