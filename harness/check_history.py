@@ -13,10 +13,18 @@ records.
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
-from lineproof.control_chart import FAILING_SIGNALS, Baseline, ChartPoint, PointJudgement, judge_series, occasions
+from lineproof.control_chart import (
+    FAILING_SIGNALS,
+    Baseline,
+    ChartPoint,
+    PointJudgement,
+    baseline_indices,
+    judge_series,
+    occasions,
+)
 from lineproof.store import ResultStore
 from lineproof.values import VerificationResult
 
@@ -97,10 +105,34 @@ class ChartData:
     rows: list[dict[str, Any]]
     baseline: Baseline | None
     judged: list[PointJudgement]
+    #: Per row: it is (or, while the baseline is being built, will be) a baseline point -- the
+    #: first check that agreed of its calibration.
+    in_baseline: list[bool] = field(default_factory=list)
 
     @property
     def baseline_count(self) -> int:
         return self.baseline.count if self.baseline is not None else len(self.rows)
+
+    def category(self, index: int) -> str:
+        """What the chart makes of row ``index``: ``baseline``, ``not judged`` (a later check of
+        a calibration in the baseline, before the baseline was complete), ``left out`` (it
+        disagreed with its reference), ``in control``, ``warning`` or ``failed``."""
+        judged = self.judged[index]
+        if judged.signals is None:
+            if self.in_baseline[index]:
+                return "baseline"
+            return "not judged" if self.rows[index]["check_passed"] else "left out"
+        if not judged.signals:
+            return "in control"
+        return "failed" if judged.fails else "warning"
+
+    def status(self, index: int) -> str:
+        """What the chart says of row ``index``, in a few words."""
+        category = self.category(index)
+        signals = "; ".join(self.judged[index].signals or ())
+        return {"not judged": "not judged (its calibration's first check is in the baseline)",
+                "left out": "left out (disagreed with its reference)",
+                "warning": f"OUT, warning: {signals}", "failed": f"OUT, failed: {signals}"}.get(category, category)
 
 
 def history_keys(store: ResultStore, station: str | None = None, check_standard: str | None = None,
@@ -129,7 +161,9 @@ def load_chart(store: ResultStore, key: HistoryKey) -> ChartData:
     usable = [bool(r["check_passed"]) for r in rows]
     first_judged = next((i for i, r in enumerate(rows) if r["signals"] is not None), None)
     count = occasions(points[:first_judged], usable[:first_judged]) if first_judged is not None else 0
+    chosen = set(baseline_indices(points, count if count >= 2 else len(points), usable))
+    in_baseline = [i in chosen for i in range(len(rows))]
     if count < 2:
-        return ChartData(key, rows, None, [PointJudgement(p, None) for p in points])
+        return ChartData(key, rows, None, [PointJudgement(p, None) for p in points], in_baseline)
     baseline, judged = judge_series(points, count, usable=usable)
-    return ChartData(key, rows, baseline, judged)
+    return ChartData(key, rows, baseline, judged, in_baseline)

@@ -23,10 +23,12 @@ import pytest
 import skrf
 from record_checks import check_records_agree, device_rows, run_cli
 
+from lineproof.check_history import history_keys, load_chart
 from lineproof.cli import main
+from lineproof.report_plots import control_chart_figure
 from lineproof.simulators.bench import SimulatedBench
 from lineproof.simulators.control import BenchControlClient
-from lineproof.store import unpack_arrays
+from lineproof.store import ResultStore, unpack_arrays
 
 ROOT = Path(__file__).parent.parent.parent
 SEQUENCE = ROOT / "sequences" / "drifting-bench.toml"
@@ -161,8 +163,17 @@ def test_the_history_command_prints_the_chart_and_plots_it(drifted, capsys: pyte
     out = capsys.readouterr().out
     assert "check standard mismatch-2to1, 70cm mean |Γ|" in out and "baseline of 10 checks" in out
     statuses = [line.split()[-1] for line in out.splitlines() if line.strip()[:2].strip().isdigit()]
-    assert statuses.count("baseline") == 10 and "OUT: beyond the control limits" in out
+    assert statuses.count("baseline") == 10 and "OUT, failed: beyond the control limits" in out
     assert (folder / "chart.png").read_bytes().startswith(b"\x89PNG\r\n\x1a\n")
+    # The title -- check standard, station, analyzer -- is drawn whole inside the figure.
+    with ResultStore(records / "results.sqlite") as store:
+        figure = control_chart_figure(load_chart(store, history_keys(store, figure="70cm")[0]))
+    figure.canvas.draw()  # an Agg canvas: matplotlib gives its Figure one when drawn off screen
+    title = figure.axes[0].title
+    inside = figure.bbox
+    assert title.get_text().count("\n") == 2 and "SIM0007 fw 0.9" in title.get_text()
+    drawn = title.get_window_extent()
+    assert inside.x0 <= drawn.x0 and drawn.x1 <= inside.x1 and drawn.y1 <= inside.y1
     assert main(["history", "--records", str(records), "--json"]) == 0
     charts = json.loads(capsys.readouterr().out)
     assert [c["figure"] for c in charts] == ["2m mean |Γ|", "70cm mean |Γ|"]

@@ -203,6 +203,9 @@ def test_the_history_is_kept_per_key_and_its_chart_recomputed_from_the_records(t
         assert chart.baseline is not None and chart.baseline.count == 3
         assert chart.baseline.center == pytest.approx((0.2001 + 0.1999 + 0.2000) / 3)
         assert [j.signals for j in chart.judged][5:] == [(), said[6]]
+        assert [chart.category(i) for i in range(7)] == ["baseline", "not judged", "baseline", "left out",
+                                                         "baseline", "in control", "failed"]
+        assert chart.status(6).startswith("OUT, failed: beyond the control limits")
 
 
 # -- what a check means for its calibration ----------------------------------------------------
