@@ -81,7 +81,10 @@ def test_the_study_is_in_the_report(study: tuple[Path, str]) -> None:
     records, run_id = study
     assert main(["report", run_id, "--records", str(records)]) == 0
     folder = records / "runs" / run_id
-    assert "Repeatability study" in (folder / "report.html").read_text(encoding="utf-8")
+    html = (folder / "report.html").read_text(encoding="utf-8")
+    assert "Repeatability study" in html
+    # Who measured: the study's own operators, named in its sequence.
+    assert "<dt>operators (the study&#x27;s)</dt><dd>A. Tester, B. Tester; run started by " in html
     summary = json.loads((folder / "summary.json").read_text(encoding="utf-8"))
     assert len(summary["repeatability_study"]["results"]) == 2
     assert len(summary["repeatability_study"]["readings"]) == 2 * 40

@@ -189,6 +189,11 @@ def test_suspect_results_are_measured_again(drifted, capsys: pytest.CaptureFixtu
     rows = device_rows(records / "results.sqlite", again)
     assert [r["serial"] for r in rows] == SERIALS[8:12] and not any(r["suspect"] for r in rows)
     assert _actually_off(records, again) == set()
+    # The report of the first run says they were measured again, and how they came out.
+    assert main(["report", run_id, "--records", str(records)]) == 0
+    html = (records / "runs" / run_id / "report.html").read_text(encoding="utf-8")
+    assert "All of them have been measured again" in html and "Measure them again with" not in html
+    assert html.count(f"measured again in {again}") == 2 * 4  # in the verdicts and the suspect table
     capsys.readouterr()
     assert main(["run", "--remeasure-suspect", run_id, "--records", str(records)]) == 3
     assert "no suspect result left" in capsys.readouterr().err
