@@ -132,8 +132,8 @@ class Baseline:
 
 
 def limit_factor(count: int, alpha: float = DEFAULT_ALPHA) -> float:
-    """k = t(1 - α/2; count - 1): the e-Handbook's t-based factor for limits from a baseline
-    of ``count`` values."""
+    """k = t(1 - α/2; count - 1): the e-Handbook's t-based factor (§2.3.5.2) for limits from a
+    baseline of ``count`` values."""
     from scipy import stats
 
     if count < 2:

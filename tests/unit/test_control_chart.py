@@ -1,13 +1,18 @@
 """Control charts of a check standard's history: limits, pooling and run rules against published
 values and general-purpose libraries.
 
-No published worked example of a check-standard chart *with its limits computed* could be
-found in the sources searchable here (the NIST/SEMATECH e-Handbook's examples in §2.2 and
-§2.6.2 are figures whose numbers the available excerpts do not show; NBS SP 676-II and NISTIR
-6969 SOP 9 were found, but not an example with its limits).  So the limits are checked piece
-by piece: the pooled repeatability against the e-Handbook's own worked pooling example, the t
-and F factors against published tables and scipy, the mean and standard deviation against
-numpy, and the run rules on series whose answer is known by construction.
+The formulas, as the NIST/SEMATECH e-Handbook of Statistical Methods states them (its pages
+found and read with the search tool): the limits C̄ ± t(1-α/2; K-1)·s2 in §2.3.5.2 ("Control of
+bias and long-term variability"), the precision limit s1·sqrt(F(α; J-1, K(J-1))) in §2.2.3.1
+("Control chart for standard deviations").  No published worked example with the limits
+themselves computed could be found: §2.3.5.1.1 (a balance's precision chart from 117
+calibrations pooled to 351 degrees of freedom at the 1 % level) gives its limit as a plot and
+the Dataplot commands that draw it, not a number, and §2.6.2.2's worked table of a check
+standard (J = 6, K = 5) does not show its numbers in the excerpts available here.  So the
+limits are checked piece by piece: the baseline's centre, s2 and pooled s1 against USP <1010>'s
+worked example (runs as occasions), the pooled repeatability against the e-Handbook's own
+pooling examples (§2.4.4.4, §2.4.4.3), the t and F factors against published tables and scipy,
+and the run rules on series whose answer is known by construction.
 """
 
 from __future__ import annotations
@@ -38,6 +43,23 @@ from lineproof.control_chart import (
 )
 
 
+def test_a_baseline_matches_a_published_worked_example() -> None:
+    # USP <1010> "Analytical Data -- Interpretation and Treatment" (USP 29-NF 24), its worked
+    # one-way example: five runs (the occasions) of three replicates.  Published: the mean of all
+    # 100.96; within runs MS 0.102 on 10 degrees of freedom (the pooled s1 squared); "1 run of 3
+    # replicates": variance of the mean 1.183, SD 1.088 -- the variance of a run's mean, MS
+    # between / 3, which the run means' sample standard deviation s2 estimates.
+    runs = [[100.70, 101.05, 101.15], [99.46, 99.37, 99.59], [99.96, 100.17, 101.01],
+            [101.80, 102.16, 102.44], [101.91, 102.00, 101.67]]
+    points = [ChartPoint(float(np.mean(r)), float(np.std(r, ddof=1)), 3, f"run-{n}") for n, r in enumerate(runs)]
+    base = make_baseline(points)
+    assert base.center == pytest.approx(100.96, abs=5e-3)
+    assert base.process_std == pytest.approx(1.088, abs=5e-4) and base.process_std**2 == pytest.approx(1.183, abs=5e-4)
+    assert base.pooled_std**2 == pytest.approx(0.102, abs=5e-4) and base.pooled_dof == 10  # type: ignore[operator]
+    # The limits from it (e-Handbook §2.3.5.2): no published figure; t(0.99865; 4) from scipy.
+    assert base.upper - base.center == pytest.approx(stats.t.ppf(1 - 0.0027 / 2, 4) * base.process_std)
+
+
 def test_pooled_repeatability_matches_the_handbooks_worked_example() -> None:
     # NIST/SEMATECH e-Handbook of Statistical Methods §2.4.4.4 ("Example of calculations"):
     # repeatability sums of squares of five wafers (#138-#142), 60 degrees of freedom each,
@@ -47,10 +69,14 @@ def test_pooled_repeatability_matches_the_handbooks_worked_example() -> None:
     pooled, dof = pooled_standard_deviation(std_devs, [60] * 5)
     assert dof == 300
     assert pooled == pytest.approx(0.10290, abs=5e-6)
+    # §2.4.4.3 ("Analysis of stability"): level-3 standard deviations of five check standards,
+    # one degree of freedom each -- 0.0223, 0.0027, 0.0289, 0.0133, 0.0205 -- pooled to 0.0197.
+    pooled, dof = pooled_standard_deviation([0.0223, 0.0027, 0.0289, 0.0133, 0.0205], [1] * 5)
+    assert dof == 5 and pooled == pytest.approx(0.0197, abs=5e-5)
 
 
 @pytest.mark.parametrize(("count", "alpha", "published"), [
-    # Upper critical values of Student's t with 9 degrees of freedom: 2.262 at 0.025 and 3.250
+    # The limits' factor t(1 - alpha/2; K - 1) (e-Handbook §2.3.5.2).  Upper critical values of Student's t with 9 degrees of freedom: 2.262 at 0.025 and 3.250
     # at 0.005 in one tail (the t table of the NIST/SEMATECH e-Handbook §1.3.6.7.2, as printed
     # in its reproductions; the same figures are in Fisher's tables).
     (10, 0.05, 2.262),
@@ -80,6 +106,12 @@ def test_the_precision_limit_follows_the_handbooks_f_formula() -> None:
     # F(0.01; 2, 10) = 7.56 in the 1 % table.
     assert precision_limit(2.0, 3, 10, 0.01) == pytest.approx(2 * math.sqrt(7.56), rel=2e-3)
     assert precision_limit(0.5, 4, 30, 0.01) == pytest.approx(0.5 * math.sqrt(stats.f.ppf(0.99, 3, 30)), rel=1e-12)
+    # §2.3.5.1.1's balance: 3 degrees of freedom per run (J - 1 = 3), s1 pooled over 117 runs
+    # (351 degrees of freedom), the 1 % level -- its Dataplot commands: sqrt(fppf(.99, 3, 351))
+    # times s1.  The published 1 % F table's last rows bound it: F(0.01; 3, 120) = 3.95 and
+    # F(0.01; 3, infinity) = 3.78 (from memory).
+    factor = precision_limit(1.0, 4, 351, 0.01) ** 2
+    assert 3.78 < factor < 3.95
 
 
 def test_a_baseline_is_the_mean_and_sample_standard_deviation_of_its_values() -> None:
