@@ -10,9 +10,10 @@ Two criteria:
 - **En** (when the reference has a stated uncertainty): per band, the normalized error of
   the band's mean |Γ|, En = |measured - reference| / sqrt(U_meas² + U_ref²), with U_meas the
   expanded uncertainty lineproof itself states for the reading (its mean over the band's
-  points) and U_ref the reference's.  The check agrees when |En| <= 1 in every band: the
-  criterion of ISO/IEC 17043:2010, Annex B (B.4.1.1 e), and of ISO 13528:2015 §9.7 (clause
-  numbers from memory).
+  points) and U_ref the reference's.  The check agrees when |En| <= 1 in every band: En as
+  ISO 13528:2015 §9.7 defines it and ISO/IEC 17043:2010 Annex B lists it among the performance
+  statistics, |En| <= 1 satisfactory (clause and annex from memory; the formula as the NIST
+  Dataplot reference manual states ISO 13528's En score).
 - **A fixed tolerance** (no reference uncertainty given): the largest deviation of |Γ| at any
   point of the sweep must stay within it.
 
