@@ -341,3 +341,57 @@ def test_a_check_is_recorded_at_the_temperature_before_its_sweeps(tmp_path: Path
     journal = next((records / "runs").glob("*/journal.jsonl")).read_text(encoding="utf-8").splitlines()
     verified = [json.loads(line) for line in journal if '"verified"' in line]
     assert [(v["temperature_before_c"], v["temperature_after_c"]) for v in verified][2] == (23.0, 24.5)
+
+
+#: The check standard ageing: its resistance rises by this much a session (about half the chart's
+#: calibration-to-calibration spread s2 of its 2 m figure, 1.2e-4 in |Γ|, at 4.4e-3 |Γ| per ohm).
+AGEING_OHM_PER_SESSION = 0.0136
+
+
+def _aged_session(folder: Path, index: int) -> tuple[Path, Path]:
+    """A later day at the bench (room at 23 deg C): the check standard aged by ``index`` steps,
+    three meter heads with a check after each."""
+    scenario = SCENARIO.read_text(encoding="utf-8").replace("[analyzer]\n", f"[analyzer]\nsession_seed = {21 + index}\n")
+    standard = 'description = "check standard: 2:1 mismatch (a 100-ohm termination)"\nresistance_ohm = 100.0'
+    assert standard in scenario
+    scenario = scenario.replace(standard, standard.replace("100.0", f"{100.0 + AGEING_OHM_PER_SESSION * index:.4f}"))
+    scenario = re.sub(r"temperature_profile = .*", "temperature_profile = [[0, 23.0], [100000, 23.0]]", scenario)
+    bench = folder / f"aged-{index}-bench.toml"
+    bench.write_text(scenario, encoding="utf-8")
+    text = SEQUENCE.read_text(encoding="utf-8").replace('simulated_bench = "drifting-bench"',
+                                                        f'simulated_bench = "{bench.name}"')
+    text = re.sub(r"serials = \[[^\]]*\]", f"serials = {json.dumps(SERIALS[:3])}", text)
+    sequence = folder / f"aged-{index}.toml"
+    sequence.write_text(text.replace("every_devices = 4\n", "every_devices = 1\n"), encoding="utf-8")
+    return sequence, bench
+
+
+def test_the_run_rules_catch_a_check_standard_ageing_before_it_leaves_the_limits(baseline: Path,
+                                                                                  tmp_path: Path) -> None:
+    # After the baseline's ten sessions, the check standard ages a little every day (the bench's
+    # truth: its resistance 100 ohm + 0.0136 ohm a day); the analyzer and the devices do not
+    # change.  A run rule warns days before any check leaves the limits: the calibration is made
+    # again, and no result is put in doubt -- rightly, by the truth.  Days go on until a check
+    # fails (at most twelve).
+    records = tmp_path / "rec"
+    shutil.copytree(baseline, records)
+    days = []
+    for index in range(1, 13):
+        sequence, bench = _aged_session(tmp_path, index)
+        run = _run_json(sequence, records)
+        told = [e for e in run["events"] if e["event"] == "verification"]
+        days.append({**run, "bench": bench, "warned": [e for e in told if e["passed"] and not e["in_control"]],
+                     "failed": [e for e in told if not e["passed"]]})
+        if days[-1]["failed"]:
+            break
+    failed = next(i for i, d in enumerate(days) if d["failed"])
+    warned = next(i for i, d in enumerate(days) if d["warned"] or d["failed"])
+    assert warned + 2 <= failed  # seen on day 4 (2 of 3 beyond 2 s2 at 2 m), the limits crossed on day 10
+    first = days[warned]["warned"][0]["control_signals"]
+    assert first and all("(Western Electric)" in s or "(Nelson test 3)" in s for s in first)
+    assert "beyond the control limits" in " ".join(days[failed]["failed"][0]["control_signals"])
+    # Every day before the failure completes (exit 0): a warning is followed by a new calibration,
+    # no result is suspect, and every device reads right by the truth.
+    for day in days[:failed]:
+        assert day["code"] == 0 and not [e for e in day["events"] if e["event"] == "suspect"]
+        assert _actually_off(records, day["run_id"], day["bench"]) == set()
