@@ -395,3 +395,29 @@ def test_the_run_rules_catch_a_check_standard_ageing_before_it_leaves_the_limits
     for day in days[:failed]:
         assert day["code"] == 0 and not [e for e in day["events"] if e["event"] == "suspect"]
         assert _actually_off(records, day["run_id"], day["bench"]) == set()
+
+
+def test_a_resumed_run_does_not_keep_a_calibration_whose_last_check_warned(baseline: Path, tmp_path: Path) -> None:
+    # The ageing check standard's day 4, attended: its first check warns (2 of 3 beyond 2 s2),
+    # the person is asked for the standards and types stop.  Resumed, the run calibrates again
+    # rather than keep the calibration the chart has doubts about.
+    records = tmp_path / "rec"
+    shutil.copytree(baseline, records)
+    for index in (1, 2, 3):
+        assert _run_json(_aged_session(tmp_path, index)[0], records)["code"] == 0
+    sequence, _ = _aged_session(tmp_path, 4)
+    sequence.write_text(sequence.read_text(encoding="utf-8").replace('connected_by = "simulated-operator"',
+                                                                     'connected_by = "operator"'), encoding="utf-8")
+    # Enter for the three standards, the termination and the check's three connections, then stop.
+    stopped = run_cli("run", str(sequence), "--records", str(records), cwd=tmp_path, stdin="\n" * 7 + "stop\n")
+    assert stopped.returncode == 2 and "passed, but out of statistical control" in stopped.stdout
+    assert ">>> The calibration no longer holds (its last check was out of statistical control" in stopped.stdout
+    with sqlite3.connect(records / "results.sqlite") as db:
+        run_id, = db.execute("SELECT run_id FROM runs ORDER BY rowid DESC LIMIT 1").fetchone()
+    resumed = run_cli("run", "--resume", run_id, "--records", str(records), cwd=tmp_path, stdin="\n" * 40)
+    assert resumed.returncode == 0, resumed.stdout[-2000:]
+    assert "the calibration cannot be kept (its last check-standard verification failed or was out of statistical" \
+           " control): calibrating again" in resumed.stdout
+    with sqlite3.connect(records / "results.sqlite") as db:
+        made = db.execute("SELECT count(*) FROM calibrations WHERE run_id = ?", (run_id,)).fetchone()[0]
+    assert made == 2 and len(device_rows(records / "results.sqlite", run_id)) == 3
