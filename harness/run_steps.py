@@ -24,7 +24,7 @@ from lineproof.interfaces import Operator
 from lineproof.journal import RunJournal
 from lineproof.operators import ConsoleOperator
 from lineproof.recording import MeasurementBasis, RecordedDevice, RunFacts, RunFolder, record_device
-from lineproof.run_checks import CalibrationPolicy, CheckRunner, failure_reason
+from lineproof.run_checks import CalibrationPolicy, CheckRunner, check_problem, halt_reason
 from lineproof.run_devices import Acquired, AsTerminatedDevices, TwoPortDevices
 from lineproof.run_view import RunView
 from lineproof.sequence import DeviceUnit, SequenceSpec, StepSpec, resolve_path
@@ -58,6 +58,8 @@ class RunState:
     checked_at_utc: datetime = field(default_factory=lambda: datetime.now(UTC))
     #: Why the calibration in use no longer holds (a failed check), until it is made again.
     calibration_doubt: str | None = None
+    #: Checks in a row that passed out of statistical control (a warning each).
+    warnings_in_a_row: int = 0
 
 
 class _ProgressOperator:
@@ -253,7 +255,10 @@ class StepRunner:
         """Measure the check standard with the calibration in use (:mod:`lineproof.run_checks`).
         A failed first check of a calibration halts the run; a later one leaves the
         calibration in doubt (the results since the last passing check are marked suspect),
-        and it is made again before the next device."""
+        and it is made again before the next device.  A check that passes out of statistical
+        control (a warning) has the calibration made again too; the run halts when the first
+        checks of two new calibrations in a row warn again: then it is not the calibration
+        (:func:`lineproof.run_checks.halt_reason`)."""
         state = self.state
         assert self.spec.check_standard is not None and state.calibration is not None
         last = state.last_check[0] if state.last_check else None
@@ -262,13 +267,13 @@ class StepRunner:
         result = recorded.result
         if result.passed:
             state.last_check = (result, recorded.row)
-            return
-        if last is None:
-            raise RunHalted(
-                f"check standard {result.check_standard} failed verification after {state.measured} device(s): "
-                f"{failure_reason(result)}. The calibration does not hold; results since the last passing check "
-                "are in doubt. Check the connections and the standards and resume the run: it will calibrate again")
-        state.calibration_doubt = f"its last check failed ({failure_reason(result)})"
+            state.warnings_in_a_row = 0 if result.in_control else state.warnings_in_a_row + 1
+        halt = halt_reason(result, last is None, state.warnings_in_a_row)
+        if halt is not None:
+            raise RunHalted(halt)
+        problem = check_problem(result)
+        if problem is not None:
+            state.calibration_doubt = problem
 
     def _drain(self) -> None:
         if self._pipeline is not None:

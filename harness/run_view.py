@@ -131,7 +131,7 @@ class ConsoleRunView:
     def verification(self, result: VerificationResult, reused: bool) -> None:
         kept = " (kept from before the interruption)" if reused else ""
         self._print(f"check after {result.devices_before} device(s): {result.describe()}{kept}",
-                    None if result.passed else "bold red")
+                    None if result.passed and result.in_control else "yellow" if result.passed else "bold red")
 
     def note(self, text: str) -> None:
         self._print(text)
@@ -220,7 +220,7 @@ class JsonRunView:
                    worst_deviation=round(result.sweep_worst_deviation, 6), tolerance=result.tolerance,
                    en=None if result.en is None else round(result.en, 4), agrees=result.agrees,
                    control_signals=None if result.control_signals is None else list(result.control_signals),
-                   passed=result.passed, reused=reused)
+                   in_control=result.in_control, passed=result.passed, reused=reused)
 
     def note(self, text: str) -> None:
         self._emit("note", text=text)

@@ -297,7 +297,7 @@ def calibration_problem(cal: CalibrationRecord | None, spec: SequenceSpec, ident
     if path is None or load_kit(path).sha256 != cal.kit_hash:
         return "the cal kit definition has changed since"
     if last_check_passed is False:
-        return "its last check-standard verification failed"
+        return "its last check-standard verification failed or was out of statistical control"
     return None
 
 
@@ -325,7 +325,8 @@ def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dic
         return state, f"its saved terms cannot be read ({exc.problem})"
     checks = store.rows("SELECT * FROM verifications WHERE run_id = ? AND calibration_id = ? ORDER BY verification_id",
                         (run_id, cal_id))
-    problem = calibration_problem(cal, spec, identity, bool(checks[-1]["passed"]) if checks else None, temperature_c)
+    held = bool(checks[-1]["passed"]) and checks[-1].get("in_control") != 0 if checks else None
+    problem = calibration_problem(cal, spec, identity, held, temperature_c)
     if problem is not None:
         return state, problem
     state.calibration, state.reuse_calibration = cal, True
