@@ -172,3 +172,11 @@ def test_checks_fall_due_by_time_and_the_analyzer_is_identified_again(tmp_path: 
     assert checks == sorted(set(checks))  # never two checks without a device between them
     assert any(e["event"] == "step-finished" and e["text"].startswith("identified: Tarnmoor Instruments")
                for e in events)
+
+
+def test_a_command_line_mistake_exits_3_from_the_installed_command(tmp_path: Path) -> None:
+    # argparse alone would exit 2, which means "the run could not complete".
+    completed = run_cli("run", "--bogus", "x", "--json", cwd=tmp_path)
+    assert completed.returncode == 3
+    assert json.loads(completed.stdout)["problems"][0]["key"] == "--bogus"
+    assert "usage: lineproof run" in completed.stderr and not (tmp_path / "lineproof-records").exists()
