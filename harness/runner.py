@@ -37,12 +37,10 @@ from lineproof.sequence import SequenceSpec, check_sequence_text, resolve_path
 from lineproof.sequence_methods import TWO_PORT_METHODS, judged_figures
 from lineproof.stations import OpenStation, open_station
 from lineproof.steps import QualifiedTermination
-from lineproof.store import ResultStore, open_store, unpack_arrays
+from lineproof.store import DATABASE_NAME, DEFAULT_RECORDS, ResultStore, open_store, unpack_arrays
 from lineproof.touchstone import write_new_file
 from lineproof.values import CalibrationRecord, InstrumentIdentity, TerminationQualification, VerificationResult
 
-DEFAULT_RECORDS = Path("lineproof-records")
-DATABASE_NAME = "results.sqlite"
 SEQUENCE_COPY = "sequence.toml"
 STATION_COPY = "station.toml"
 RUN_ID_PATTERN = re.compile(r"^run-[0-9]{8}T[0-9]{6}Z-[0-9a-f]{6}$")

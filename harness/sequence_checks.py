@@ -40,6 +40,7 @@ def check_references(spec: SequenceSpec, problems: Problems) -> SequenceSpec:
     _check_switch(spec, problems)
     _check_simulated_bench(spec, problems)
     check_two_port(spec, problems, capabilities)
+    _check_records(spec, problems)
     return spec
 
 
@@ -271,6 +272,31 @@ def _check_switch(spec: SequenceSpec, problems: Problems) -> None:
         problems.items.append(exc)
         problems.add(profile_key, "the switch profile named here cannot be used (see above)",
                      "name a shipped switch profile or a valid profile file", source=source)
+
+
+def _check_records(spec: SequenceSpec, problems: Problems) -> None:
+    """The results database the sequence names: a URL this version can use, and -- read only --
+    an existing file that a run would accept (SQLite, lineproof's schema marker).  A location
+    the sequence leaves to --records or the default folder is checked by the run itself."""
+    from lineproof.store import DATABASE_NAME, DEFAULT_RECORDS, database_file_problem, url_problem
+
+    if spec.database is None and spec.records_folder is None:
+        return
+    key = "records.database" if spec.database is not None else "records.folder"
+    if spec.database is not None:
+        refused = url_problem(spec.database)
+        if refused is not None:
+            problems.add(key, *refused)
+            return
+    folder = spec.folder / spec.records_folder if spec.records_folder else DEFAULT_RECORDS
+    if folder.exists() and not folder.is_dir():
+        problems.add("records.folder" if spec.records_folder else key, f"the records folder {str(folder)!r} is a file",
+                     "name a folder (new, or one lineproof wrote to)")
+        return
+    path = folder / (spec.database or DATABASE_NAME)
+    found = database_file_problem(path)
+    if found is not None:
+        problems.add(key, f"{path}: {found[0]}", found[1])
 
 
 def _check_simulated_bench(spec: SequenceSpec, problems: Problems) -> None:

@@ -180,3 +180,20 @@ def test_a_command_line_mistake_exits_3_from_the_installed_command(tmp_path: Pat
     assert completed.returncode == 3
     assert json.loads(completed.stdout)["problems"][0]["key"] == "--bogus"
     assert "usage: lineproof run" in completed.stderr and not (tmp_path / "lineproof-records").exists()
+
+
+def test_check_refuses_the_database_run_would_refuse_with_file_and_line(tmp_path: Path, sequence_variant) -> None:
+    stranger = tmp_path / "passwd"
+    stranger.write_text("root:x:0:0:root:/root:/bin/sh\n")
+    for database, problem in (("postgresql://u@h/db", "PostgreSQL results databases are not supported"),
+                              (str(stranger), "is not an SQLite database")):
+        sequence = sequence_variant(replace={"[[step]]\ndo = \"calibrate\"":
+                                             f'[records]\ndatabase = "{database}"\n\n[[step]]\ndo = "calibrate"'})
+        line = sequence.read_text().splitlines().index(f'database = "{database}"') + 1
+        where = f"{sequence}:{line} [records.database]: "
+        checked = run_cli("check", str(sequence), cwd=tmp_path)
+        assert checked.returncode == 3 and where in checked.stderr and problem in checked.stderr
+        refused = run_cli("run", str(sequence), "--records", "rec", cwd=tmp_path)
+        assert refused.returncode == 3 and where in refused.stderr and "<input>" not in refused.stderr
+        assert not (tmp_path / "rec").exists()
+    assert stranger.read_text() == "root:x:0:0:root:/root:/bin/sh\n"

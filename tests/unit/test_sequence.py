@@ -200,3 +200,33 @@ dotted.key = 5
     assert lines.line_of("b[1].y") == 14 and lines.line_of("b[1].c.z") == 16
     assert lines.line_of("b[2].y") == 19 and lines.line_of("b[2].dotted.key") == 20
     assert lines.line_of("nothing.here") is None
+
+
+def test_the_results_database_a_sequence_names_is_checked_read_only(tmp_path: Path) -> None:
+    # `lineproof run` would refuse each of these only after opening the station; check says so first.
+    import sqlite3
+
+    from lineproof.store import ResultStore
+
+    url = problems_of(tmp_path, GOOD + '\n[records]\ndatabase = "postgresql://u@h/db"\n')
+    assert [(p.key, p.line) for p in url] == [("records.database", GOOD.count("\n") + 3)]
+    assert "PostgreSQL" in url[0].problem and url[0].path == str(tmp_path / "sequence.toml") and url[0].fix
+
+    stranger = tmp_path / "passwd"
+    stranger.write_text("root:x:0:0:root:/root:/bin/sh\n")
+    named = problems_of(tmp_path, GOOD + f'\n[records]\ndatabase = "{stranger}"\n')
+    assert [p.key for p in named] == ["records.database"] and "not an SQLite database" in named[0].problem
+    assert str(stranger) in named[0].problem and stranger.read_text() == "root:x:0:0:root:/root:/bin/sh\n"
+
+    (tmp_path / "rec").mkdir()
+    with sqlite3.connect(tmp_path / "rec" / "results.sqlite") as db:
+        db.execute("CREATE TABLE stock (part TEXT)")
+    text = GOOD + '\n[records]\nfolder = "rec"\n'
+    in_folder = problems_of(tmp_path, text)
+    assert [(p.key, p.line) for p in in_folder] == [("records.folder", line_of(text, 'folder = "rec"'))]
+    assert "not one lineproof created" in in_folder[0].problem
+
+    (tmp_path / "rec" / "results.sqlite").unlink()
+    ResultStore(tmp_path / "rec" / "results.sqlite").close()  # ours: the run may use it
+    assert load_sequence(write(tmp_path, text)).records_folder == "rec"
+    assert load_sequence(write(tmp_path, GOOD + '\n[records]\ndatabase = "new.sqlite"\n')).database == "new.sqlite"
