@@ -118,7 +118,8 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
             problems.add("calibration.method", f"{exc} ({caps.ports} port(s))",
                          "choose a method the analyzer allows, or an analyzer with the paths this one needs")
         else:
-            if cal.method == "one-port" and f"S{port}{port}" not in caps.parameters:
+            # A port beyond the analyzer's is reported once, at [analyzer.port] (_check_analyzer).
+            if cal.method == "one-port" and port <= caps.ports and f"S{port}{port}" not in caps.parameters:
                 problems.add("calibration.method", f"the analyzer does not measure S{port}{port} for a one-port "
                              "calibration", "use the port its profile measures")
     path = resolve_path(cal.kit, spec)

@@ -230,3 +230,27 @@ def test_the_results_database_a_sequence_names_is_checked_read_only(tmp_path: Pa
     ResultStore(tmp_path / "rec" / "results.sqlite").close()  # ours: the run may use it
     assert load_sequence(write(tmp_path, text)).records_folder == "rec"
     assert load_sequence(write(tmp_path, GOOD + '\n[records]\ndatabase = "new.sqlite"\n')).database == "new.sqlite"
+
+
+def test_a_station_files_problems_name_its_own_lines_and_tables(tmp_path: Path) -> None:
+    # The analyzer's port is judged against its profile after the station file is read: the
+    # problem still carries the station file's line, and a fix names the table as that file writes it.
+    station = write(tmp_path, f'name = "bench B"\nsimulated_bench = "{SCENARIOS / "batch-bench.toml"}"\n'
+                    'connected_by = "simulated-operator"\n\n[analyzer]\nprofile = "generic-scpi-reflectometer"\n'
+                    "port = 2\n", "station.toml")
+    with pytest.raises(SequenceProblems) as caught:
+        load_sequence(write(tmp_path, GOOD), station)
+    [port] = caught.value.problems  # once: not again as a parameter the one-port calibration lacks
+    assert (port.path, port.key, port.line) == (str(station), "analyzer.port", 7)
+    assert "the analyzer has 1 port(s)" in port.problem and port.fix == "use a port from 1 to 1"
+
+    station.write_text(station.read_text().replace('"simulated-operator"', '"switch"').replace("port = 2\n", ""))
+    with pytest.raises(SequenceProblems) as caught:
+        load_sequence(tmp_path / "sequence.toml", station)
+    [switch] = caught.value.problems
+    assert (switch.key, switch.line) == ("connected_by", 3)
+    assert switch.fix.startswith("add a [switch] table")  # in a station file; [station.switch] in a sequence
+
+    in_sequence = problems_of(tmp_path, GOOD.replace('connected_by = "simulated-operator"', 'connected_by = "switch"'))
+    [switch] = [p for p in in_sequence if p.key == "station.connected_by"]
+    assert switch.fix.startswith("add a [station.switch] table") and switch.line == line_of(GOOD, "connected_by")
