@@ -173,8 +173,8 @@ def _execute(runner: StepRunner, store: ResultStore, journal: RunJournal, outcom
     try:
         runner.run()
         status, reason = ("interrupted", "stopped by Ctrl-C between devices") if runner.stop.requested else ("complete", None)
-    except StopRequested:
-        status, reason = "interrupted", "stopped at the operator's request"
+    except StopRequested as exc:
+        status, reason = "interrupted", exc.reason
     except KeyboardInterrupt:
         status, reason = "interrupted", "stopped by Ctrl-C"
     except RunHalted as exc:
