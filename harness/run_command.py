@@ -80,7 +80,7 @@ def _command(arguments: argparse.Namespace) -> int:
                 spec = load_sequence(arguments.sequence, options.station_file)
                 outcome = start_run(spec, options, view, stop)
     except InputError as exc:
-        view.close()
+        view.close(f"invalid input: {exc.problem}")
         if not arguments.json:
             raise
         print(json.dumps({"event": "error", "kind": "invalid-input", "exit_code": 3,
@@ -89,8 +89,8 @@ def _command(arguments: argparse.Namespace) -> int:
     except (LineproofError, OSError) as exc:
         # An OSError here is the records' disk or folder (full, read-only, gone): the run is
         # marked failed where it could still be written, and it can be resumed.
-        view.close()
         reason = str(exc) if isinstance(exc, LineproofError) else f"cannot write the records ({exc})"
+        view.close(reason)
         if not arguments.json:
             print(f"lineproof: run could not complete: {reason}", file=sys.stderr)
             return 2

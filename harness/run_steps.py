@@ -176,6 +176,7 @@ class StepRunner:
     # -- simple steps ---------------------------------------------------------------------------
 
     def _identify(self, index: int, step: StepSpec) -> None:
+        self.view.step_started("identifying the analyzer", total=1)
         now = self.station.analyzer.identify()
         before = self.station.identity
         if (now.manufacturer, now.model, now.serial) != (before.manufacturer, before.model, before.serial):
@@ -194,6 +195,7 @@ class StepRunner:
 
     def _route(self, index: int, step: StepSpec) -> None:
         assert step.target is not None
+        self.view.step_started(f"routing to {step.target}", total=1)
         self.measuring.operator.connect(self.measuring.port, step.target, None, f"Connect {step.target} to port "
                                       f"{self.measuring.port}")
         self.view.step_finished(f"routed to {step.target}")
@@ -203,6 +205,7 @@ class StepRunner:
     def _calibrate(self, index: int, step: StepSpec) -> None:
         state = self.state
         if state.reuse_calibration and state.calibration is not None:
+            self.view.step_started(f"keeping calibration {state.calibration.calibration_id}", total=1)
             self.journal.write("calibrated", calibration_id=state.calibration.calibration_id, reused=True)
             self.view.step_finished(f"calibration {state.calibration.calibration_id} kept: still valid")
             return
@@ -385,6 +388,7 @@ class StepRunner:
             measurement.connect(device, termination)
         acquired = measurement.acquire(device, termination)
         self.view.step_advanced("swept")
+        self.view.step_finished("")
         self.state.measured += 1
         self.state.taken.add(unit.serial.lower())
         position = self.state.measured

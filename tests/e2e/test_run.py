@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import skrf
-from record_checks import check_records_agree, device_rows, run_cli
+from record_checks import check_records_agree, device_rows, run_cli, steps_in_pairs
 
 from lineproof.cli import main
 from lineproof.simulators.bench import SimulatedBench
@@ -172,6 +172,7 @@ def test_checks_fall_due_by_time_and_the_analyzer_is_identified_again(tmp_path: 
     assert checks == sorted(set(checks))  # never two checks without a device between them
     assert any(e["event"] == "step-finished" and e["text"].startswith("identified: Tarnmoor Instruments")
                for e in events)
+    assert ("identifying the analyzer", "step-finished") in {pair[:2] for pair in steps_in_pairs(events)}
 
 
 def test_a_command_line_mistake_exits_3_from_the_installed_command(tmp_path: Path) -> None:
