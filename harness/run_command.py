@@ -32,7 +32,7 @@ def stop_on_ctrl_c(stop: StopSignal, view: RunView) -> Iterator[None]:
         if stop.requested or stop.at_prompt:
             raise KeyboardInterrupt
         stop.requested = True
-        view.note("Ctrl-C: stopping after the current device (press Ctrl-C again to stop at once)")
+        view.note("Ctrl-C: stopping after the current device or step (press Ctrl-C again to stop at once)")
 
     try:
         previous = signal.signal(signal.SIGINT, handler)

@@ -7,9 +7,9 @@ the sequence, the journal, one Touchstone file per committed device) and the jou
 :func:`resume_run` continues a run that stopped -- Ctrl-C, a halt, a crash, a kill -- without
 losing or repeating a device, keeping the calibration only while it is still valid.
 
-Statuses: ``running``, ``complete``, ``interrupted`` (stopped between devices),
-``halted`` (a step found the run must not go on), ``failed`` (an instrument or input error).
-Every status but ``complete`` can be resumed.
+Statuses: ``running``, ``complete``, ``interrupted`` (stopped between devices or steps),
+``halted`` (a step found the run must not go on),
+``failed`` (an instrument or input error).  Every status but ``complete`` can be resumed.
 """
 
 from __future__ import annotations
@@ -171,8 +171,8 @@ def _execute(runner: StepRunner, store: ResultStore, journal: RunJournal, outcom
     status, reason = "failed", "stopped by an unexpected error"
     raised: BaseException | None = None
     try:
-        runner.run()
-        status, reason = ("interrupted", "stopped by Ctrl-C between devices") if runner.stop.requested else ("complete", None)
+        completed = runner.run()
+        status, reason = ("complete", None) if completed else ("interrupted", runner.stopped_because or "stopped by Ctrl-C")
     except StopRequested as exc:
         status, reason = "interrupted", exc.reason
     except KeyboardInterrupt:

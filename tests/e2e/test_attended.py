@@ -55,3 +55,4 @@ def test_input_that_ends_stops_the_run_resumably(tmp_path: Path, sequence_varian
     assert second.returncode == 2 and "(interrupted): stopped at the operator's request" in second.stderr
     assert "TM150-0001 is already measured in this run" in second.stdout
     assert "Connect the open standard" not in second.stdout
+
