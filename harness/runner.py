@@ -8,7 +8,7 @@ the sequence, the journal, one Touchstone file per committed device) and the jou
 losing or repeating a device, keeping the calibration only while it is still valid.
 
 Statuses: ``running``, ``complete``, ``interrupted`` (stopped between devices or steps),
-``halted`` (a step found the run must not go on),
+``halted`` (a step found the run must not go on, or the batch ended with no device recorded),
 ``failed`` (an instrument or input error).  Every status but ``complete`` can be resumed.
 """
 
@@ -166,6 +166,10 @@ def _facts(spec: SequenceSpec, run_id: str, station: OpenStation, operator: str)
     )
 
 
+#: Why a run whose steps all finished is not complete: its batch recorded no device.
+NO_DEVICE_MEASURED = "no device measured: the batch ended before any device was recorded"
+
+
 def _execute(runner: StepRunner, store: ResultStore, journal: RunJournal, outcome: RunOutcome) -> RunOutcome:
     """Carry out the steps; whatever happens, record how the run ended."""
     status, reason = "failed", "stopped by an unexpected error"
@@ -173,6 +177,9 @@ def _execute(runner: StepRunner, store: ResultStore, journal: RunJournal, outcom
     try:
         completed = runner.run()
         status, reason = ("complete", None) if completed else ("interrupted", runner.stopped_because or "stopped by Ctrl-C")
+        if completed and runner.spec.has_step("measure-batch") and _counts(store, outcome.run_id)["total"] == 0:
+            # Nothing was proven: not "every device passed" (exit 0).  Resumable, to measure some.
+            status, reason = "halted", NO_DEVICE_MEASURED
     except StopRequested as exc:
         status, reason = "interrupted", exc.reason
     except KeyboardInterrupt:
