@@ -122,15 +122,31 @@ def _operator_name(given: str) -> str:
         return "not given"
 
 
+LOCK_NAME = "run.lock"
+
+
+@dataclass
+class _HeldLock:
+    """The run's lock while this process holds it; ``finished`` (set when the run completes)
+    removes the lock file as it is released -- a complete run is never carried out again."""
+
+    path: Path
+    finished: bool = False
+
+
 @contextmanager
-def _run_lock(folder: Path) -> Iterator[None]:
-    """One process per run at a time (POSIX advisory lock, released by the OS if killed)."""
+def _run_lock(folder: Path) -> Iterator[_HeldLock]:
+    """One process per run at a time (POSIX advisory lock, released by the OS if killed).  The
+    lock file stays beside a run that can be resumed, and goes when the run completes."""
     folder.mkdir(parents=True, exist_ok=True)
-    with open(folder / "run.lock", "a+") as handle:
+    held = _HeldLock(folder / LOCK_NAME)
+    with open(held.path, "a+") as handle:
         try:
             import fcntl
         except ImportError:  # pragma: no cover - Windows: no advisory lock
-            yield
+            yield held
+            if held.finished:
+                held.path.unlink(missing_ok=True)
             return
         try:
             fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
@@ -138,8 +154,12 @@ def _run_lock(folder: Path) -> Iterator[None]:
             raise InputError("this run is being carried out by another lineproof process", path=str(folder),
                              fix="wait for it to finish, or stop it first") from exc
         try:
-            yield
+            yield held
         finally:
+            if held.finished:
+                # Unlinked while still locked: a process that opened it before waits on a file
+                # no longer there, and finds the run complete (resume_run checks again, locked).
+                held.path.unlink(missing_ok=True)
             fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
 
 
@@ -228,7 +248,7 @@ def start_run(spec: SequenceSpec, options: RunOptions, view: RunView, stop: Stop
     with open_store(database) as store, open_station(spec, _asker(view, stop)) as station:
         run_id = new_run_id()
         folder = RunFolder(records, run_id)
-        with _run_lock(folder.path):
+        with _run_lock(folder.path) as lock:
             write_new_file(folder.path, "sequence", ".toml", spec.text, encoding="utf-8")
             if station.spec.source != spec.source:
                 station_text = Path(station.spec.source).read_text(encoding="utf-8")
@@ -253,7 +273,9 @@ def start_run(spec: SequenceSpec, options: RunOptions, view: RunView, stop: Stop
                 facts = _facts(spec, run_id, station, operator)
                 runner = StepRunner(spec, station, store, journal, folder, facts, view, stop, RunState())
                 outcome = RunOutcome(run_id, "running", None, records, database, folder.path)
-                return _execute(runner, store, journal, outcome)
+                outcome = _execute(runner, store, journal, outcome)
+                lock.finished = outcome.status == "complete"
+                return outcome
             finally:
                 journal.close()
 
@@ -386,7 +408,8 @@ def resume_run(run_id: str, options: RunOptions, view: RunView, stop: StopSignal
                          fix="give the records folder the run wrote to with --records DIR")
     with open_store(database) as store:
         row, folder = _resumable(store, run_id, records)
-        with _run_lock(folder.path):
+        with _run_lock(folder.path) as lock:
+            row, folder = _resumable(store, run_id, records)  # again, held: it may have completed meanwhile
             spec = kept_sequence(folder, row)
             if row.get("remeasure_of"):
                 from lineproof.remeasure import restricted_to, suspect_units
@@ -414,6 +437,8 @@ def resume_run(run_id: str, options: RunOptions, view: RunView, stop: StopSignal
                     runner = StepRunner(spec, station, store, journal, folder, _facts(spec, run_id, station, operator),
                                         view, stop, state)
                     outcome = RunOutcome(run_id, "running", None, records, database, folder.path)
-                    return _execute(runner, store, journal, outcome)
+                    outcome = _execute(runner, store, journal, outcome)
+                    lock.finished = outcome.status == "complete"
+                    return outcome
                 finally:
                     journal.close()

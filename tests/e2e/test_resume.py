@@ -57,6 +57,7 @@ def test_ctrl_c_stops_between_devices_and_the_run_resumes(tmp_path: Path, sequen
     assert 2 <= len(first) < 10
     with sqlite3.connect(records / "results.sqlite") as db:
         assert db.execute("SELECT status FROM runs").fetchone() == ("interrupted",)
+    assert (records / "runs" / run_id / "run.lock").is_file()  # resumable: its lock stays
 
     resumed = run_cli("run", "--resume", run_id, "--records", str(records), cwd=tmp_path)
     assert resumed.returncode == 1, resumed.stderr  # TM150-0004 fails
@@ -67,6 +68,7 @@ def test_ctrl_c_stops_between_devices_and_the_run_resumes(tmp_path: Path, sequen
     with sqlite3.connect(records / "results.sqlite") as db:
         assert db.execute("SELECT COUNT(*) FROM calibrations").fetchone() == (1,)  # still valid: kept
         assert db.execute("SELECT status FROM runs").fetchone() == ("complete",)
+    assert not (records / "runs" / run_id / "run.lock").exists()  # complete: no lock left behind
 
 
 def progressed(records: Path, before: int, devices_wanted: int, process: subprocess.Popen[str]) -> bool:

@@ -50,6 +50,8 @@ def test_a_batch_is_recorded_completely_and_matches_the_truth(tmp_path: Path, se
     # directivity, which is the actual load's reflection: 40-45 dB return loss here, |Γ| <= 0.01.
     assert all(abs(m - 0.2) < 0.012 for (m,) in check_bands)
     assert status == ("complete",)
+    assert sorted(p.name for p in (records / "runs" / run_id).iterdir() if not p.suffix == ".s1p") == [
+        "journal.jsonl", "sequence.toml"]  # no empty run.lock left in a finished run's folder
 
     # Against the hidden truth: a device's recorded reflection is its true as-terminated input
     # reflection within the same residual (plus the scenario's connector repeatability, 0.0005).
