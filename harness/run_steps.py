@@ -80,9 +80,16 @@ class _ProgressOperator:
             self.after_connect()
 
 
-#: Steps that measure, or wait for a person: a stop request ends the run before them.  The
-#: others (identify, route, a message on an unattended station) finish a run in moments.
+#: Steps that measure: a stop request ends the run before them, and before a step that waits
+#: for a person (a message or a route on an attended station).  The others (identify; route and
+#: message on an unattended station) finish a run in moments.
 MEASURING_ACTIONS = frozenset({"calibrate", "qualify-termination", "verify", "measure-batch", "repeatability-study"})
+
+
+def stop_comes_before(action: str, attended: bool) -> bool:
+    """Whether a stop request ends the run before a step doing ``action`` (see
+    :data:`MEASURING_ACTIONS`); ``attended``: a person makes the connections."""
+    return action in MEASURING_ACTIONS or (attended and action in ("message", "route"))
 
 #: How long a recording waits after the next connection before it starts (see ``_after_trigger``).
 _TRIGGER_HEAD_START_S = 0.001
@@ -190,13 +197,10 @@ class StepRunner:
             self.view.note("Ctrl-C came when nothing was left to measure: the run is complete")
         return True
 
-    def _needs_bench(self, step: StepSpec) -> bool:
-        return step.action in MEASURING_ACTIONS or (step.action == "message"
-                                                    and isinstance(self.station.operator, ConsoleOperator))
-
     def _stops_before(self, index: int) -> bool:
         """Whether a stop request ends the run before step ``index`` (setting why)."""
-        left = [step.action for step in self.spec.steps[index:] if self._needs_bench(step)]
+        attended = isinstance(self.station.operator, ConsoleOperator)
+        left = [step.action for step in self.spec.steps[index:] if stop_comes_before(step.action, attended)]
         if not left:
             return False
         step = self.spec.steps[index]
@@ -206,6 +210,7 @@ class StepRunner:
                                 + ("; every device of the batch is recorded" if batch_done else "")
                                 + f"; still to do: {', '.join(left)}")
         return True
+
     # -- simple steps ---------------------------------------------------------------------------
 
     def _identify(self, index: int, step: StepSpec) -> None:
