@@ -83,8 +83,9 @@ def _command(arguments: argparse.Namespace) -> int:
         view.close(f"invalid input: {exc.problem}")
         if not arguments.json:
             raise
-        print(json.dumps({"event": "error", "kind": "invalid-input", "exit_code": 3,
-                          "problems": problems_as_json(exc)}), flush=True)
+        from lineproof.cli import error_object
+
+        print(error_object(problems_as_json(exc)), flush=True)
         return 3
     except (LineproofError, OSError) as exc:
         # An OSError here is the records' disk or folder (full, read-only, gone): the run is

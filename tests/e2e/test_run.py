@@ -156,6 +156,7 @@ def test_a_station_file_replaces_the_sequences_station(tmp_path: Path, sequence_
     assert refused.returncode == 3
     error = json.loads(refused.stdout)
     assert error["event"] == "error" and error["kind"] == "invalid-input"
+    assert error["ok"] is False and error["exit_code"] == 3  # the same object as every command's
     line = station.read_text().splitlines().index('colour = "red"') + 1
     assert error["problems"] == [{"file": str(station), "line": line, "key": "colour", "problem": "unknown key",
                                   "fix": error["problems"][0]["fix"]}]
