@@ -36,7 +36,8 @@ from lineproof.values import CalibrationRecord, DeviceIdentity, VerificationResu
 
 
 class StopSignal:
-    """Set by Ctrl-C (or a stop typed at a prompt); the run stops between devices."""
+    """Set by Ctrl-C (or a stop typed at a prompt); the run stops between devices, or before
+    the next step that measures or needs a person (see :meth:`StepRunner.run`)."""
 
     def __init__(self) -> None:
         self.requested = False
@@ -80,6 +81,17 @@ class _ProgressOperator:
         if self.after_connect is not None:
             self.after_connect()
 
+
+#: Steps that measure: a stop request ends the run before them, and before a step that waits
+#: for a person (a message or a route on an attended station).  The others (identify; route and
+#: message on an unattended station) finish a run in moments.
+MEASURING_ACTIONS = frozenset({"calibrate", "qualify-termination", "verify", "measure-batch", "repeatability-study"})
+
+
+def stop_comes_before(action: str, attended: bool) -> bool:
+    """Whether a stop request ends the run before a step doing ``action`` (see
+    :data:`MEASURING_ACTIONS`); ``attended``: a person makes the connections."""
+    return action in MEASURING_ACTIONS or (attended and action in ("message", "route"))
 
 #: How long a recording waits after the next connection before it starts (see ``_after_trigger``).
 _TRIGGER_HEAD_START_S = 0.001
@@ -149,17 +161,24 @@ class StepRunner:
         self.stop = stop
         self.state = state
         self.recorded: list[RecordedDevice] = []
+        #: Why a stop request ended the run before its last step (None: it did not).
+        self.stopped_because: str | None = None
         self._record_lock = threading.Lock()
         self._pipeline: _RecordingPipeline | None = None
         self._devices: AsTerminatedDevices | TwoPortDevices | None = None  # set by the batch
+        self._batch_ended = False  # the person ended a scanned batch
         self.measuring = steps.Station(station.analyzer, _ProgressOperator(station.operator, view),  # type: ignore[arg-type]
                                        station.identity, spec.plan, station.spec.analyzer.port,
                                        station.spec.uncertainty)
         self.checks = CheckRunner(spec, store, journal, folder, facts, view, self.measuring)
         self.policy = CalibrationPolicy.of(spec)
 
-    def run(self) -> None:
-        """Every step in order; raises RunHalted when a step finds the run must not go on."""
+    def run(self) -> bool:
+        """Every step in order: True when all were carried out, False when a stop request ended
+        the run first (``stopped_because`` says where).  A stop request that comes when nothing
+        is left to measure -- the batch recorded, its final check made -- lets the steps that
+        measure nothing finish and the run complete.  Raises RunHalted when a step finds the
+        run must not go on."""
         self.station.analyzer.configure(self.spec.plan)
         self.view.note(f"analyzer: {self.station.identity.describe()} at {self.station.identity.resource}")
         self.view.note(f"sweep: {self.spec.plan.describe()}")
@@ -169,15 +188,35 @@ class StepRunner:
             "repeatability-study": self._study,
         }
         for index, step in enumerate(self.spec.steps):
-            if self.stop.requested:
-                return
+            if self.stop.requested and self._stops_before(index):
+                return False
             handlers[step.action](index, step)
+            if self.stopped_because is not None:  # the batch, cut short
+                return False
             self.state.steps_done.add(index)
             self.journal.write("step-done", index=index, action=step.action)
+        if self.stop.requested:
+            self.view.note("Ctrl-C came when nothing was left to measure: the run is complete")
+        return True
+
+    def _stops_before(self, index: int) -> bool:
+        """Whether a stop request ends the run before step ``index`` (setting why)."""
+        attended = isinstance(self.station.operator, ConsoleOperator)
+        left = [step.action for step in self.spec.steps[index:] if stop_comes_before(step.action, attended)]
+        if not left:
+            return False
+        step = self.spec.steps[index]
+        batch_done = any(s.action == "measure-batch" and i in self.state.steps_done
+                         for i, s in enumerate(self.spec.steps))
+        self.stopped_because = (f"stopped by Ctrl-C before step {index + 1} ({step.action})"
+                                + ("; every device of the batch is recorded" if batch_done else "")
+                                + f"; still to do: {', '.join(left)}")
+        return True
 
     # -- simple steps ---------------------------------------------------------------------------
 
     def _identify(self, index: int, step: StepSpec) -> None:
+        self.view.step_started("identifying the analyzer", total=1)
         now = self.station.analyzer.identify()
         before = self.station.identity
         if (now.manufacturer, now.model, now.serial) != (before.manufacturer, before.model, before.serial):
@@ -196,6 +235,7 @@ class StepRunner:
 
     def _route(self, index: int, step: StepSpec) -> None:
         assert step.target is not None
+        self.view.step_started(f"routing to {step.target}", total=1)
         self.measuring.operator.connect(self.measuring.port, step.target, None, f"Connect {step.target} to port "
                                       f"{self.measuring.port}")
         self.view.step_finished(f"routed to {step.target}")
@@ -205,6 +245,7 @@ class StepRunner:
     def _calibrate(self, index: int, step: StepSpec) -> None:
         state = self.state
         if state.reuse_calibration and state.calibration is not None:
+            self.view.step_started(f"keeping calibration {state.calibration.calibration_id}", total=1)
             self.journal.write("calibrated", calibration_id=state.calibration.calibration_id, reused=True)
             self.view.step_finished(f"calibration {state.calibration.calibration_id} kept: still valid")
             return
@@ -342,12 +383,26 @@ class StepRunner:
                 self._measure_one(unit, termination.name, pipeline)
                 if self.stop.requested:
                     break
-            if not self.stop.requested and self.spec.reverify.at_end and self.state.measured > self.state.checked_at_devices:
+            final_check = self.spec.reverify.at_end and self.state.measured > self.state.checked_at_devices
+            if self.stop.requested and not self._batch_exhausted():
+                self.stopped_because = "stopped by Ctrl-C between devices"
+            elif self.stop.requested and final_check:
+                self.stopped_because = "stopped by Ctrl-C after the last device, before the batch's final check"
+            elif final_check:
                 self.verify()
         finally:
             self.measuring.operator.after_connect = None  # type: ignore[attr-defined]
             self._pipeline = None
             pipeline.close()
+
+    def _batch_exhausted(self) -> bool:
+        """Whether no device is left: every listed one recorded, or the person ended the batch
+        (or it reached ``max_count``)."""
+        devices = self.spec.devices
+        assert devices is not None
+        if devices.entry == "listed":
+            return all(unit.serial.lower() in self.state.taken for unit in devices.units)
+        return self._batch_ended or (devices.max_count is not None and len(self.state.taken) >= devices.max_count)
 
     def _study(self, index: int, step: StepSpec) -> None:
         from lineproof.study_steps import run_study
@@ -375,6 +430,7 @@ class StepRunner:
             output = self._devices.scan_output or self.spec.termination.name
             serial = operator.scan_device(self.measuring.port, devices.model, output, self.state.taken)
             if serial is None:
+                self._batch_ended = True
                 return
             yield DeviceUnit(serial, devices.model, None, "scanned")
 
@@ -390,6 +446,7 @@ class StepRunner:
             measurement.connect(device, termination)
         acquired = measurement.acquire(device, termination)
         self.view.step_advanced("swept")
+        self.view.step_finished("")
         self.state.measured += 1
         self.state.taken.add(unit.serial.lower())
         position = self.state.measured
