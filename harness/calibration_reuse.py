@@ -6,7 +6,7 @@ calibration instead of measuring the standards -- only when it is fit to serve:
 - made at the same station and on the same analyzer (maker, model and serial);
 - by the method the sequence uses, with the same cal-kit definition (SHA-256 of the kit file);
 - younger than ``valid_for_minutes``, at an analyzer temperature within
-  ``max_temperature_change_k`` of now (when the profile reads it), its last check not failed;
+  ``max_temperature_change_k`` of now (when the profile reads it), its last check neither failed nor warned (out of statistical control);
 - at the same IF bandwidth and source power, over a span that covers the sweep: on another grid
   its terms are interpolated (:func:`lineproof.calstore.fit_to_sweep`) only when the
   interpolation's own error estimate stays within ``max_interpolation_error``, and the record
@@ -145,7 +145,10 @@ def _check_fit(spec: SequenceSpec, record: CalibrationRecord, method: str, tempe
         raise _refuse(spec, f"calibration {name} was made at IF bandwidth {made.if_bandwidth_hz:g} Hz and source power "
                       f"{made.power_dbm if made.power_dbm is not None else 'as the instrument chose'}, and this sweep "
                       "asks for others (the raw terms change with them)")
-    checks = store.rows("SELECT passed, measured_utc FROM verifications WHERE calibration_id = ?"
+    checks = store.rows("SELECT passed, in_control, measured_utc FROM verifications WHERE calibration_id = ?"
                         " ORDER BY verification_id DESC LIMIT 1", (name,))
     if checks and not checks[0]["passed"]:
         raise _refuse(spec, f"the last check of calibration {name} ({checks[0]['measured_utc']}) failed")
+    if checks and checks[0]["in_control"] == 0:  # a warning: the chart says this calibration no longer holds
+        raise _refuse(spec, f"the last check of calibration {name} ({checks[0]['measured_utc']}) found the check "
+                      "standard out of statistical control")

@@ -93,7 +93,7 @@ def _run_section(records: RunRecords) -> str:
     items = [
         ("run", run["run_id"]), ("status", run["status"] + (f" ({run['status_reason']})" if run.get("status_reason") else "")),
         ("sequence", run["sequence_name"]), ("sequence SHA-256", run.get("sequence_sha256")),
-        ("station", run["station"]), ("operator", run["operator"]),
+        ("station", run["station"]), _operator_item(records),
         ("analyzer", f"{run['analyzer']} at {run['resource']} (profile {run.get('analyzer_profile')})"),
         ("sweep", run["sweep_plan"]), ("reference plane", run.get("reference_plane")),
         ("decision rule", run.get("decision_rule")), ("started / finished (UTC)", f"{run['started_utc']} / {run.get('finished_utc') or '-'}"),
@@ -109,6 +109,16 @@ def _run_section(records: RunRecords) -> str:
                                             if "figures.as_terminated" in first else "")
         items.append(("verdicts on", judged))
     return "<dl>" + "".join(f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in items) + "</dl>"
+
+
+def _operator_item(records: RunRecords) -> tuple[str, str]:
+    """Who measured: a repeatability study's operators (its readings name them), else the
+    run's operator."""
+    started_by = str(records.run["operator"])
+    names = list(dict.fromkeys(str(r["operator"]) for r in records.study_readings))
+    if not names:
+        return "operator", started_by
+    return "operators (the study's)", ", ".join(names) + ("" if started_by in names else f"; run started by {started_by}")
 
 
 def _verdict_table(records: RunRecords) -> str:
@@ -154,10 +164,17 @@ def _suspect_section(records: RunRecords) -> str:
         return ""
     rows = [[_e(d.row["position"]), _e(d.serial), _verdict(d.row["verdict"]), _e(d.row.get("suspect_reason")),
              _suspect_note(records, d)] for d in suspect]
+    left = sum(1 for d in suspect if d.serial not in records.remeasured)
+    command = f"<code>lineproof run --remeasure-suspect {_e(records.run['run_id'])}</code>"
+    if left == 0:
+        again = "All of them have been measured again (see \"now\")."
+    elif left < len(suspect):
+        again = f"{len(suspect) - left} of them have been measured again (see \"now\"); measure the rest with {command}."
+    else:
+        again = f"Measure them again with {command}."
     return ("<h2>Suspect results</h2><p class='note'>A check of the calibration failed after these devices were "
             "measured and before any later passing check: their results are in doubt. Their files are unchanged; "
-            "a note beside each (<code>.suspect.json</code>) says so. Measure them again with "
-            f"<code>lineproof run --remeasure-suspect {_e(records.run['run_id'])}</code>.</p>"
+            f"a note beside each (<code>.suspect.json</code>) says so. {again}</p>"
             + _table(["#", "serial", "verdict", "why", "now"], rows, frozenset({0})))
 
 
@@ -269,7 +286,9 @@ def _verification_section(records: RunRecords) -> str:
         per_band = "; ".join(f"{b['band']}: |Γ| {b['measured_reflection']:.4f} vs {b['reference_reflection']:.4f}"
                              + ("" if b.get("en") is None else f" ± {b['tolerance']:.4f}, En {b['en']:.2f}")
                              for b in bands)
-        chart = {None: "not judged (baseline)", 1: "in control", 0: f"OUT: {check.get('control_signals')}"}[check.get("in_control")]
+        out = "OUT, failed" if not check["passed"] else "OUT, warning -- the calibration is made again"
+        chart = {None: "not judged (baseline)", 1: "in control",
+                 0: f"{out}: {check.get('control_signals')}"}[check.get("in_control")]
         rows.append([_e(check["measured_utc"]), _e(check["devices_before"]), _e(check["check_standard"]),
                      _number(check["worst_deviation"], 5), _number(check.get("en"), 2), _e(chart),
                      _verdict("pass" if check["passed"] else "fail"), _e(per_band)])
@@ -284,11 +303,14 @@ def _charts_section(records: RunRecords) -> str:
     if not records.charts:
         return ""
     parts = ["<h2>Control charts</h2><p class='note'>Each check standard's history on this station and analyzer "
-             "(NIST/SEMATECH e-Handbook of Statistical Methods, ch. 2): the first K checks that agreed with their "
-             "reference set the accepted value and the limits ±t(1-α/2; K-1)·s (α = 0.0027); the shaded zones at "
-             "1 s and 2 s serve the run rules that catch slow drift (Western Electric 1956: 2 of 3 beyond 2 s, 4 of "
-             "5 beyond 1 s, 8 on one side; Nelson 1984: 6 rising or falling). Below, the standard deviation of "
-             "each check's repeats against s1·sqrt(F).</p>"]
+             "(NIST/SEMATECH e-Handbook of Statistical Methods, §2.3.5.2 and §2.2.3.1): the first agreeing check of "
+             "each of the first K calibrations sets the accepted value and the limits ±t(1-α/2; K-1)·s "
+             "(α = 0.0027); a check beyond them fails. The shaded zones at 1 s and 2 s serve the run rules that "
+             "catch slow drift (Western Electric 1956: 2 of 3 beyond 2 s, 4 of 5 beyond 1 s, 8 on one side; "
+             "Nelson 1984: 6 rising or falling), judged on one check per calibration -- checks made with one "
+             "calibration share its error. Below, the standard deviation of each check's repeats against "
+             "s1·sqrt(F). A run rule or the precision chart warns: the calibration is made again, no result is "
+             "put in doubt.</p>"]
     for chart in records.charts:
         if chart.baseline is None:
             parts.append(f"<p class='note'>{_e(chart.key.describe())}: {len(chart.rows)} check(s) so far; the "

@@ -24,7 +24,7 @@ from lineproof.interfaces import Operator
 from lineproof.journal import RunJournal
 from lineproof.operators import ConsoleOperator
 from lineproof.recording import MeasurementBasis, RecordedDevice, RunFacts, RunFolder, record_device
-from lineproof.run_checks import CalibrationPolicy, CheckRunner, failure_reason
+from lineproof.run_checks import CalibrationPolicy, CheckRunner, check_problem, halt_reason
 from lineproof.run_devices import Acquired, AsTerminatedDevices, TransmissionDevices, TwoPortDevices
 from lineproof.run_view import RunView
 from lineproof.sequence import DeviceUnit, SequenceSpec, StepSpec, resolve_path
@@ -36,7 +36,8 @@ from lineproof.values import CalibrationRecord, DeviceIdentity, VerificationResu
 
 
 class StopSignal:
-    """Set by Ctrl-C (or a stop typed at a prompt); the run stops between devices."""
+    """Set by Ctrl-C (or a stop typed at a prompt); the run stops between devices, or before
+    the next step that measures or needs a person (see :meth:`StepRunner.run`)."""
 
     def __init__(self) -> None:
         self.requested = False
@@ -60,6 +61,8 @@ class RunState:
     calibration_doubt: str | None = None
     #: Where the calibration in use came from when the sequence reused a stored one.
     reused_from: str | None = None
+    #: Checks in a row that passed out of statistical control (a warning each).
+    warnings_in_a_row: int = 0
 
 
 class _ProgressOperator:
@@ -80,6 +83,17 @@ class _ProgressOperator:
         if self.after_connect is not None:
             self.after_connect()
 
+
+#: Steps that measure: a stop request ends the run before them, and before a step that waits
+#: for a person (a message or a route on an attended station).  The others (identify; route and
+#: message on an unattended station) finish a run in moments.
+MEASURING_ACTIONS = frozenset({"calibrate", "qualify-termination", "verify", "measure-batch", "repeatability-study"})
+
+
+def stop_comes_before(action: str, attended: bool) -> bool:
+    """Whether a stop request ends the run before a step doing ``action`` (see
+    :data:`MEASURING_ACTIONS`); ``attended``: a person makes the connections."""
+    return action in MEASURING_ACTIONS or (attended and action in ("message", "route"))
 
 #: How long a recording waits after the next connection before it starts (see ``_after_trigger``).
 _TRIGGER_HEAD_START_S = 0.001
@@ -149,17 +163,24 @@ class StepRunner:
         self.stop = stop
         self.state = state
         self.recorded: list[RecordedDevice] = []
+        #: Why a stop request ended the run before its last step (None: it did not).
+        self.stopped_because: str | None = None
         self._record_lock = threading.Lock()
         self._pipeline: _RecordingPipeline | None = None
         self._devices: AsTerminatedDevices | TwoPortDevices | TransmissionDevices | None = None  # set by the batch
+        self._batch_ended = False  # the person ended a scanned batch
         self.measuring = steps.Station(station.analyzer, _ProgressOperator(station.operator, view),  # type: ignore[arg-type]
                                        station.identity, spec.plan, station.spec.analyzer.port,
                                        station.spec.uncertainty)
         self.checks = CheckRunner(spec, store, journal, folder, facts, view, self.measuring)
         self.policy = CalibrationPolicy.of(spec)
 
-    def run(self) -> None:
-        """Every step in order; raises RunHalted when a step finds the run must not go on."""
+    def run(self) -> bool:
+        """Every step in order: True when all were carried out, False when a stop request ended
+        the run first (``stopped_because`` says where).  A stop request that comes when nothing
+        is left to measure -- the batch recorded, its final check made -- lets the steps that
+        measure nothing finish and the run complete.  Raises RunHalted when a step finds the
+        run must not go on."""
         self.station.analyzer.configure(self.spec.plan)
         self.view.note(f"analyzer: {self.station.identity.describe()} at {self.station.identity.resource}")
         self.view.note(f"sweep: {self.spec.plan.describe()}")
@@ -169,15 +190,35 @@ class StepRunner:
             "repeatability-study": self._study,
         }
         for index, step in enumerate(self.spec.steps):
-            if self.stop.requested:
-                return
+            if self.stop.requested and self._stops_before(index):
+                return False
             handlers[step.action](index, step)
+            if self.stopped_because is not None:  # the batch, cut short
+                return False
             self.state.steps_done.add(index)
             self.journal.write("step-done", index=index, action=step.action)
+        if self.stop.requested:
+            self.view.note("Ctrl-C came when nothing was left to measure: the run is complete")
+        return True
+
+    def _stops_before(self, index: int) -> bool:
+        """Whether a stop request ends the run before step ``index`` (setting why)."""
+        attended = isinstance(self.station.operator, ConsoleOperator)
+        left = [step.action for step in self.spec.steps[index:] if stop_comes_before(step.action, attended)]
+        if not left:
+            return False
+        step = self.spec.steps[index]
+        batch_done = any(s.action == "measure-batch" and i in self.state.steps_done
+                         for i, s in enumerate(self.spec.steps))
+        self.stopped_because = (f"stopped by Ctrl-C before step {index + 1} ({step.action})"
+                                + ("; every device of the batch is recorded" if batch_done else "")
+                                + f"; still to do: {', '.join(left)}")
+        return True
 
     # -- simple steps ---------------------------------------------------------------------------
 
     def _identify(self, index: int, step: StepSpec) -> None:
+        self.view.step_started("identifying the analyzer", total=1)
         now = self.station.analyzer.identify()
         before = self.station.identity
         if (now.manufacturer, now.model, now.serial) != (before.manufacturer, before.model, before.serial):
@@ -196,6 +237,7 @@ class StepRunner:
 
     def _route(self, index: int, step: StepSpec) -> None:
         assert step.target is not None
+        self.view.step_started(f"routing to {step.target}", total=1)
         self.measuring.operator.connect(self.measuring.port, step.target, None, f"Connect {step.target} to port "
                                       f"{self.measuring.port}")
         self.view.step_finished(f"routed to {step.target}")
@@ -205,6 +247,7 @@ class StepRunner:
     def _calibrate(self, index: int, step: StepSpec) -> None:
         state = self.state
         if state.reuse_calibration and state.calibration is not None:
+            self.view.step_started(f"keeping calibration {state.calibration.calibration_id}", total=1)
             self.journal.write("calibrated", calibration_id=state.calibration.calibration_id, reused=True)
             self.view.step_finished(f"calibration {state.calibration.calibration_id} kept: still valid")
             return
@@ -278,7 +321,10 @@ class StepRunner:
         """Measure the check standard with the calibration in use (:mod:`lineproof.run_checks`).
         A failed first check of a calibration halts the run; a later one leaves the
         calibration in doubt (the results since the last passing check are marked suspect),
-        and it is made again before the next device."""
+        and it is made again before the next device.  A check that passes out of statistical
+        control (a warning) has the calibration made again too; the run halts when the first
+        checks of two new calibrations in a row warn again: then it is not the calibration
+        (:func:`lineproof.run_checks.halt_reason`)."""
         state = self.state
         assert self.spec.check_standard is not None and state.calibration is not None
         last = state.last_check[0] if state.last_check else None
@@ -287,13 +333,13 @@ class StepRunner:
         result = recorded.result
         if result.passed:
             state.last_check = (result, recorded.row)
-            return
-        if last is None:
-            raise RunHalted(
-                f"check standard {result.check_standard} failed verification after {state.measured} device(s): "
-                f"{failure_reason(result)}. The calibration does not hold; results since the last passing check "
-                "are in doubt. Check the connections and the standards and resume the run: it will calibrate again")
-        state.calibration_doubt = f"its last check failed ({failure_reason(result)})"
+            state.warnings_in_a_row = 0 if result.in_control else state.warnings_in_a_row + 1
+        halt = halt_reason(result, last is None, state.warnings_in_a_row)
+        if halt is not None:
+            raise RunHalted(halt)
+        problem = check_problem(result)
+        if problem is not None:
+            state.calibration_doubt = problem
 
     def _drain(self) -> None:
         if self._pipeline is not None:
@@ -371,12 +417,26 @@ class StepRunner:
                 self._measure_one(unit, termination.name if termination is not None else None, pipeline)
                 if self.stop.requested:
                     break
-            if not self.stop.requested and self.spec.reverify.at_end and self.state.measured > self.state.checked_at_devices:
+            final_check = self.spec.reverify.at_end and self.state.measured > self.state.checked_at_devices
+            if self.stop.requested and not self._batch_exhausted():
+                self.stopped_because = "stopped by Ctrl-C between devices"
+            elif self.stop.requested and final_check:
+                self.stopped_because = "stopped by Ctrl-C after the last device, before the batch's final check"
+            elif final_check:
                 self.verify()
         finally:
             self.measuring.operator.after_connect = None  # type: ignore[attr-defined]
             self._pipeline = None
             pipeline.close()
+
+    def _batch_exhausted(self) -> bool:
+        """Whether no device is left: every listed one recorded, or the person ended the batch
+        (or it reached ``max_count``)."""
+        devices = self.spec.devices
+        assert devices is not None
+        if devices.entry == "listed":
+            return all(unit.serial.lower() in self.state.taken for unit in devices.units)
+        return self._batch_ended or (devices.max_count is not None and len(self.state.taken) >= devices.max_count)
 
     def _study(self, index: int, step: StepSpec) -> None:
         from lineproof.study_steps import run_study
@@ -404,6 +464,7 @@ class StepRunner:
             output = self._devices.scan_output or self.spec.termination.name  # type: ignore[union-attr]
             serial = operator.scan_device(self.measuring.port, devices.model, output, self.state.taken)
             if serial is None:
+                self._batch_ended = True
                 return
             yield DeviceUnit(serial, devices.model, None, "scanned")
 
@@ -419,6 +480,7 @@ class StepRunner:
             measurement.connect(device, termination)
         acquired = measurement.acquire(device, termination)
         self.view.step_advanced("swept")
+        self.view.step_finished("")
         self.state.measured += 1
         self.state.taken.add(unit.serial.lower())
         position = self.state.measured

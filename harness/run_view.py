@@ -31,7 +31,7 @@ class RunView(Protocol):
     def suspect_results(self, serials: list[str], reason: str, command: str) -> None: ...
     def ask(self, prompt: str) -> str | None: ...
     def run_finished(self, summary: dict[str, Any]) -> None: ...
-    def close(self) -> None: ...
+    def close(self, reason: str | None = None) -> None: ...
 
 
 def _band_text(band: BandResult) -> str:
@@ -134,7 +134,7 @@ class ConsoleRunView:
     def verification(self, result: VerificationResult, reused: bool) -> None:
         kept = " (kept from before the interruption)" if reused else ""
         self._print(f"check after {result.devices_before} device(s): {result.describe()}{kept}",
-                    None if result.passed else "bold red")
+                    None if result.passed and result.in_control else "yellow" if result.passed else "bold red")
 
     def note(self, text: str) -> None:
         self._print(text)
@@ -173,7 +173,7 @@ class ConsoleRunView:
         if summary.get("report_command"):
             self._print(f"For the report: {summary['report_command']}")
 
-    def close(self) -> None:
+    def close(self, reason: str | None = None) -> None:
         with self._lock:
             if self._started:
                 self._progress.stop()
@@ -181,13 +181,18 @@ class ConsoleRunView:
 
 
 class JsonRunView:
-    """One JSON object per line on standard output, for a line system."""
+    """One JSON object per line on standard output, for a line system.
+
+    Steps come in pairs: every ``step-started`` is followed, before the next one, by a
+    ``step-finished`` (or, when the run ends inside the step, a ``step-failed`` with the
+    reason) naming the same step."""
 
     def __init__(self, out: TextIO | None = None, prompts: TextIO | None = None, stdin: TextIO | None = None) -> None:
         self._out = out or sys.stdout
         self._prompts = prompts or sys.stderr
         self._stdin = stdin or sys.stdin
         self._lock = threading.RLock()
+        self._step: str | None = None  # the step started and not yet finished
 
     def _emit(self, event: str, **fields: Any) -> None:
         with self._lock:
@@ -199,14 +204,23 @@ class JsonRunView:
                    resumed=resumed)
 
     def step_started(self, label: str, total: int | None = None) -> None:
-        self._emit("step-started", step=label)
+        with self._lock:
+            self._step = label
+            self._emit("step-started", step=label)
 
     def step_advanced(self, note: str = "") -> None:
         pass
 
     def step_finished(self, text: str) -> None:
-        if text:
-            self._emit("step-finished", text=text)
+        with self._lock:
+            step, self._step = self._step, None
+            self._emit("step-finished", step=step, text=text)
+
+    def _step_failed(self, reason: str) -> None:
+        with self._lock:
+            step, self._step = self._step, None
+            if step is not None:
+                self._emit("step-failed", step=step, reason=reason)
 
     def device_recorded(self, recorded: RecordedDevice) -> None:
         result = recorded.result
@@ -224,7 +238,7 @@ class JsonRunView:
                    worst_deviation=round(result.sweep_worst_deviation, 6), tolerance=result.tolerance,
                    en=None if result.en is None else round(result.en, 4), agrees=result.agrees,
                    control_signals=None if result.control_signals is None else list(result.control_signals),
-                   passed=result.passed, reused=reused)
+                   in_control=result.in_control, passed=result.passed, reused=reused)
 
     def note(self, text: str) -> None:
         self._emit("note", text=text)
@@ -240,7 +254,8 @@ class JsonRunView:
         return _read_line(self._stdin)
 
     def run_finished(self, summary: dict[str, Any]) -> None:
+        self._step_failed(str(summary.get("reason") or summary.get("status")))
         self._emit("run-finished", **summary)
 
-    def close(self) -> None:
-        pass
+    def close(self, reason: str | None = None) -> None:
+        self._step_failed(reason or "the run stopped")

@@ -252,6 +252,7 @@ def _station_from(root: TableReader, station_text: tuple[str, str] | None, probl
         data = parse_toml(text, source, own)
         spec = None if data is None else parse_station(TableReader(data, "", own), source)
         problems.items.extend(own.items)
+        problems.read_with(source, own.lines)  # the cross-checks' problems in it get lines too
         return spec
     table = root.table("station")
     if table is None:

@@ -40,6 +40,7 @@ def check_references(spec: SequenceSpec, problems: Problems) -> SequenceSpec:
     _check_switch(spec, problems)
     _check_simulated_bench(spec, problems)
     check_two_port(spec, problems, capabilities)
+    _check_records(spec, problems)
     return spec
 
 
@@ -120,7 +121,8 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
             problems.add("calibration.method", f"{exc} ({caps.ports} port(s))",
                          "choose a method the analyzer allows, or an analyzer with the paths this one needs")
         else:
-            if cal.method == "one-port" and f"S{port}{port}" not in caps.parameters:
+            # A port beyond the analyzer's is reported once, at [analyzer.port] (_check_analyzer).
+            if cal.method == "one-port" and port <= caps.ports and f"S{port}{port}" not in caps.parameters:
                 problems.add("calibration.method", f"the analyzer does not measure S{port}{port} for a one-port "
                              "calibration", "use the port its profile measures")
     path = resolve_path(cal.kit, spec)
@@ -140,6 +142,11 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
     if missing:
         problems.add("calibration.kit", f"kit {kit.name} has no {', '.join(missing)} standard for a {cal.method} calibration",
                      f"add the standards to {path} or use another kit")
+        return
+    from lineproof.calibration import check_kit_for_sweep
+
+    for problem in check_kit_for_sweep(kit, spec.plan.frequencies(), METHOD_STANDARDS.get(cal.method, ())):
+        problems.absorb(problem, "calibration.kit")
 
 
 def _check_check_standard(spec: SequenceSpec, problems: Problems) -> None:
@@ -294,6 +301,31 @@ def _check_switch(spec: SequenceSpec, problems: Problems) -> None:
         problems.items.append(exc)
         problems.add(profile_key, "the switch profile named here cannot be used (see above)",
                      "name a shipped switch profile or a valid profile file", source=source)
+
+
+def _check_records(spec: SequenceSpec, problems: Problems) -> None:
+    """The results database the sequence names: a URL this version can use, and -- read only --
+    an existing file that a run would accept (SQLite, lineproof's schema marker).  A location
+    the sequence leaves to --records or the default folder is checked by the run itself."""
+    from lineproof.store import DATABASE_NAME, DEFAULT_RECORDS, database_file_problem, url_problem
+
+    if spec.database is None and spec.records_folder is None:
+        return
+    key = "records.database" if spec.database is not None else "records.folder"
+    if spec.database is not None:
+        refused = url_problem(spec.database)
+        if refused is not None:
+            problems.add(key, *refused)
+            return
+    folder = spec.folder / spec.records_folder if spec.records_folder else DEFAULT_RECORDS
+    if folder.exists() and not folder.is_dir():
+        problems.add("records.folder" if spec.records_folder else key, f"the records folder {str(folder)!r} is a file",
+                     "name a folder (new, or one lineproof wrote to)")
+        return
+    path = folder / (spec.database or DATABASE_NAME)
+    found = database_file_problem(path)
+    if found is not None:
+        problems.add(key, f"{path}: {found[0]}", found[1])
 
 
 def _check_simulated_bench(spec: SequenceSpec, problems: Problems) -> None:

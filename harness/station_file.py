@@ -88,7 +88,7 @@ def parse_station(table: TableReader, source: str) -> StationSpec | None:
     reference_plane = table.get("reference_plane", str, "analyzer test-port connector")
     if connected_by == "switch" and not table.has("switch"):
         table.problems.add(table.key("connected_by"), "connected_by = \"switch\" but the station has no switch",
-                           "add a [station.switch] table or choose operator")
+                           f"add a [{table.key('switch')}] table (profile, resource, wiring) or choose operator")
     if connected_by == "simulated-operator" and simulated is None and control is None:
         table.problems.add(table.key("connected_by"), "a simulated operator exists only on a simulated bench",
                            "set simulated_bench = \"<scenario>\" (or bench_control) or choose operator")

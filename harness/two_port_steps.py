@@ -39,7 +39,7 @@ def _reflects(station: Station, kit: CalKit, ports: tuple[int, ...],
     """Raw reflection of each reflect standard on each port; with ``isolation`` (and loads
     on both ports) also the leakage S21, S12 of the load step."""
     measured: dict[int, dict[str, np.ndarray]] = {port: {} for port in ports}
-    frequencies = station.plan.frequencies()
+    grid = frequencies = station.plan.frequencies()
     leakage = None
     for kind in REFLECTS:
         standard = kit.standard(kind)
@@ -48,6 +48,7 @@ def _reflects(station: Station, kit: CalKit, ports: tuple[int, ...],
                                      f"Connect the {kind} standard ({standard.name}, kit {kit.name}) to port {port}")
         leak = isolation and kind == "load" and len(ports) == 2
         frequencies, traces = _sweep(station, [f"S{p}{p}" for p in ports] + (["S21", "S12"] if leak else []))
+        calibration.check_grid(standard.name, frequencies, grid)
         for port in ports:
             measured[port][kind] = traces[f"S{port}{port}"]
         if leak:
@@ -84,11 +85,11 @@ def calibrate_two_port(station: Station, kit: CalKit, method: str, isolation: bo
         if full:
             raw = two_port.s_matrix(thru["S11"], thru["S21"], thru["S12"], thru["S22"])
             terms = two_port.solve_solt(frequencies, reflects[1], reflects[2], ideals, raw, kit.thru(frequencies),
-                                        leakage)
+                                        leakage, kit_source=kit.source)
             residuals.update(residual_model(kit, REFLECTS, frequencies, station.uncertainty, "port2"))
         else:
             terms = two_port.solve_one_path(frequencies, reflects[1], ideals, thru["S11"], thru["S21"],
-                                            kit.thru(frequencies))
+                                            kit.thru(frequencies), kit_source=kit.source)
         residuals.update(residual_model(kit, REFLECTS, frequencies, station.uncertainty, "port1"))
     else:
         raise CalibrationError(f"{method} is not a two-port method")

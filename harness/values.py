@@ -398,6 +398,10 @@ class VerificationResult:
     control_signals: tuple[str, ...] | None = None
     repeats: int = 1
     temperature_c: float | None = None
+    #: Among the signals, a point beyond the control limits: the check fails.  Every other
+    #: signal (a run rule, the precision chart) is a warning: the check passes, but the
+    #: calibration no longer holds.
+    beyond_limits: bool = False
 
     @property
     def agrees(self) -> bool:
@@ -408,10 +412,19 @@ class VerificationResult:
 
     @property
     def passed(self) -> bool:
-        return self.agrees and not self.control_signals
+        """The check passed: it agrees with its reference and lies within its control limits
+        (the results it covers stand)."""
+        return self.agrees and not self.beyond_limits
+
+    @property
+    def in_control(self) -> bool:
+        """No chart signal at all (or no chart yet): with :attr:`passed`, the calibration holds."""
+        return not self.control_signals
 
     def describe(self) -> str:
         outcome = "passed" if self.passed else "FAILED"
+        if self.passed and not self.in_control:
+            outcome = "passed, but out of statistical control: the calibration is to be made again"
         figure = (f"En {self.en:.2f}" if self.en is not None else
                   f"largest deviation of |Γ| {self.sweep_worst_deviation:.4f} at "
                   f"{self.sweep_worst_frequency_hz / 1e6:.3f} MHz, tolerance {self.tolerance:.4f}")

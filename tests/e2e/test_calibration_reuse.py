@@ -167,6 +167,23 @@ def test_reuse_refuses_another_analyzer_an_old_calibration_and_a_sweep_beyond_it
         assert run["status"] == "halted" and devices == (0,)
 
 
+def test_reuse_refuses_a_calibration_whose_last_check_failed_or_warned(
+        first_run: tuple[Path, str], tmp_path: Path, sequence_variant: Callable[..., Path]) -> None:
+    # A check that failed, or that found the check standard out of statistical control (a
+    # warning), ends the calibration's validity (harness/run_checks.py): no later run takes it.
+    records, cal_id = records_of(first_run, tmp_path), first_run[1]
+    for column, value, why in (("passed", 0, "failed"), ("in_control", 0, "out of statistical control")):
+        with sqlite3.connect(records / "results.sqlite") as db:
+            db.execute("UPDATE verifications SET passed = 1, in_control = 1")
+            db.execute(f"UPDATE verifications SET {column} = ? WHERE verification_id ="
+                       " (SELECT MAX(verification_id) FROM verifications WHERE calibration_id = ?)", (value, cal_id))
+        sequence = sequence_variant("batch.toml", {**FOUR, **DENSE, **REUSE})
+        completed = run_cli("run", str(sequence), "--records", "rec", cwd=tmp_path)
+        assert completed.returncode == 2, completed.stdout + completed.stderr
+        message = completed.stderr.split("run did not complete (halted): ", 1)[1]
+        assert f"the last check of calibration {cal_id}" in message and why in message, message
+
+
 def test_a_run_that_reused_an_interpolated_calibration_resumes_with_it(
         first_run: tuple[Path, str], tmp_path: Path, sequence_variant: Callable[..., Path]) -> None:
     import signal
