@@ -19,6 +19,7 @@ from lineproof.drivers.ieee488 import CodecError, parse_identity
 from lineproof.drivers.profile_files import shipped_profile_names
 from lineproof.drivers.profiles import AnalyzerProfile, Profile, load_analyzer_profile, profile_kind
 from lineproof.drivers.transports import VisaOptions
+from lineproof.drivers.visa_backend import install_advice
 from lineproof.errors import InstrumentError, LineproofError
 from lineproof.values import InstrumentIdentity
 
@@ -77,7 +78,7 @@ def _pyvisa_py_gaps() -> list[str]:
     gaps = []
     for interface, state in PyVisaLibrary.get_debug_info().items():
         if isinstance(state, list) and state:
-            gaps.append(f"{interface}: {state[0]}")
+            gaps.append(f"{interface}: {install_advice(state[0])}")
     return gaps
 
 
@@ -90,11 +91,16 @@ def list_serial_ports() -> list[tuple[str, str]]:
 
 def _identify(resource: str, profile: Profile, transport: str, timeout_s: float,
               library: str = "@py") -> InstrumentIdentity:
-    """Ask once (no retries) with the profile's identify operation."""
+    """Ask once (no retries) with the profile's identify operation, every exchange within
+    ``timeout_s``: an unanswered query is not followed by a question to the error queue
+    (which would take the profile's command timeout, and whatever is there may not speak
+    SCPI at all)."""
     session = open_session(resource, profile, transport,  # type: ignore[arg-type]
                            visa=VisaOptions(library, open_timeout_s=timeout_s))
     try:
         session.retries = 0
+        session.error_query = None
+        session.default_timeout_s = timeout_s
         return parse_identity(session.query(profile.operations["identify"].send, timeout_s), resource)
     finally:
         session.close()

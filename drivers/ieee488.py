@@ -187,6 +187,18 @@ def parse_opc_reply(reply: str) -> None:
         raise CodecError(f"*OPC? must answer 1, got {reply!r}")
 
 
+_NR1 = re.compile(r"^\s*\+?(\d{1,5})\s*$")
+
+
+def parse_status_register(reply: str) -> int:
+    """The value of a status register (``*ESR?``, ``*STB?``, SCPI ``STATus:...?``): one
+    IEEE 488.2 §8.7.2 NR1 number, 0..65535 (the 488.2 registers have 8 bits, SCPI's 16)."""
+    match = _NR1.match(reply)
+    if not match or int(match.group(1)) > 0xFFFF:
+        raise CodecError(f"a status register must read as a whole number 0..65535, got {reply!r}")
+    return int(match.group(1))
+
+
 _CHANNEL = re.compile(r"^(\d+)!(\d+)$")
 
 

@@ -19,6 +19,9 @@ class ProfiledInstrument:
     def __init__(self, session: MessageSession, profile: Profile) -> None:
         self.session = session
         self.profile = profile
+        #: A polled wait read the event status register and found the Power On bit, which
+        #: that read cleared: kept here for the next :meth:`_powered_on`.
+        self._power_on_seen = False
 
     @property
     def resource(self) -> str:
@@ -39,11 +42,18 @@ class ProfiledInstrument:
                              expected="maker, model, serial, firmware") from exc
 
     def reset(self) -> None:
-        """Back to the instrument's power-on settings, with its status cleared."""
+        """Back to the instrument's power-on settings, with its status cleared.
+
+        The wait that follows is allowed the longest ``timeout_s`` that the reset, clear and
+        wait operations state (else the command timeout): ``*RST`` has no reply, so the time
+        it takes shows only in the ``*OPC?`` after it (IEEE 488.2 §10.32, §12.5.3).
+        """
         for name in ("reset", "clear"):
             if self.profile.operation(name):
                 self._call(name)
-        self._sync(self.profile.timing.command_timeout_s)
+        stated = [op.timeout_s for name in ("reset", "clear", "wait")
+                  if (op := self.profile.operation(name)) is not None and op.timeout_s is not None]
+        self._sync(max(stated, default=self.profile.timing.command_timeout_s))
 
     def close(self) -> None:
         self.session.close()
@@ -63,7 +73,13 @@ class ProfiledInstrument:
         if operation.reply == "none":
             self.session.send(command, timeout, operation.idempotent)
             return None
-        return self.session.query(command, timeout, operation.idempotent)
+        reply = self.session.query(command, timeout, operation.idempotent)
+        if operation.reply == "complete":
+            try:
+                ieee488.parse_opc_reply(reply)
+            except ieee488.CodecError as exc:
+                raise ReplyError(str(exc), resource=self.resource, command=command, expected="1") from exc
+        return reply
 
     def _setting(self, name: str, **values: object) -> None:
         """Apply one setting, if the profile has it, and check the instrument accepted it:
@@ -74,9 +90,19 @@ class ProfiledInstrument:
         self._check_errors(self._op(name).render(**values))
 
     def _sync(self, timeout_s: float | None = None) -> None:
+        """Wait for pending operations to end: one ``*OPC?`` held open, or a status register
+        polled (see :meth:`MessageSession.poll_status`)."""
         wait = self.profile.operation("wait")
-        if wait is not None:
-            self.session.wait_complete(wait.send, timeout_s or wait.timeout_s or self.profile.timing.command_timeout_s)
+        if wait is None:
+            return
+        timeout = timeout_s or wait.timeout_s or self.profile.timing.command_timeout_s
+        if wait.reply != "status":
+            self.session.wait_complete(wait.send, timeout)
+            return
+        seen = self.session.poll_status(wait.send, wait.done_bits, timeout, arm=wait.arm)
+        event_status = self.profile.operation("event_status")
+        if seen & POWER_ON_BIT and event_status is not None and _same_command(event_status.send, wait.send):
+            self._power_on_seen = True
 
     def _powered_on(self) -> bool:
         """Whether the instrument has been powered on (or reset by a power glitch) since the
@@ -84,9 +110,10 @@ class ProfiledInstrument:
         if self.profile.operation("event_status") is None:
             return False
         reply = self._call("event_status")
+        seen, self._power_on_seen = self._power_on_seen, False
         try:
-            return bool(int(reply.strip()) & POWER_ON_BIT)
-        except ValueError as exc:
+            return seen or bool(ieee488.parse_status_register(reply) & POWER_ON_BIT)
+        except ieee488.CodecError as exc:
             raise ReplyError(f"event status {reply!r} is not an integer", resource=self.resource,
                              command=self._op("event_status").send, expected="0..255") from exc
 
@@ -94,3 +121,8 @@ class ProfiledInstrument:
         next_error = self.profile.operation("next_error")
         if next_error is not None:
             self.session.drain_errors(next_error.send, caused_by=caused_by)
+
+
+def _same_command(first: str, second: str) -> bool:
+    """The same SCPI query, ignoring case and surrounding space (headers are case-blind)."""
+    return first.strip().upper() == second.strip().upper()

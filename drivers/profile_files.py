@@ -6,6 +6,7 @@ The schema itself (which keys mean what) lives in :mod:`.profiles`.
 
 from __future__ import annotations
 
+import math
 import re
 import tomllib
 from collections.abc import Mapping
@@ -60,10 +61,28 @@ class TableReader:
             raise self.error(name, f"unknown value {value!r}", fix=fix or f"use one of: {', '.join(allowed)}")
         return value
 
-    def positive(self, name: str, default: Any = ...) -> float:
+    def positive(self, name: str, default: Any = ..., fix: str = "") -> float:
+        """A finite number greater than 0 (a time, a rate, a margin)."""
         value = self.get(name, float, default)
-        if not value > 0:
-            raise self.error(name, f"must be greater than 0, got {value!r}")
+        if value is not None and not 0 < value < math.inf:
+            raise self.error(name, f"must be a finite number greater than 0, got {value!r}",
+                             fix=fix or f"give {name} as a positive number, e.g. {name} = 1.5")
+        return value
+
+    def non_negative(self, name: str, default: Any = ..., fix: str = "") -> float:
+        """A finite number of at least 0 (an allowance that may be nothing)."""
+        value = self.get(name, float, default)
+        if not 0 <= value < math.inf:
+            raise self.error(name, f"must be a finite number of at least 0, got {value!r}",
+                             fix=fix or f"give {name} as 0 or a positive number")
+        return value
+
+    def whole(self, name: str, low: int, high: int | None, default: Any = ..., fix: str = "") -> int:
+        """A whole number from ``low`` to ``high`` (None: no upper limit)."""
+        value = self.get(name, int, default, fix=fix)
+        if value < low or (high is not None and value > high):
+            limits = f"{low}..{high}" if high is not None else f"at least {low}"
+            raise self.error(name, f"must be {limits}, got {value}", fix=fix or f"give {name} as a whole number {limits}")
         return value
 
     def reject_unknown(self, allowed: set[str] | frozenset[str]) -> None:
@@ -88,8 +107,12 @@ def with_base(data: dict[str, Any], source: str, depth: int = 0) -> dict[str, An
         return data
     if not isinstance(base_name, str) or depth > 4:
         raise InputError("based_on must name one shipped profile (and not form a loop)",
-                         path=source, key="profile.based_on")
-    base_text, base_source = shipped_text(base_name)
+                         path=source, key="profile.based_on",
+                         fix=f"use one of {', '.join(shipped_profile_names())}, or remove based_on")
+    try:
+        base_text, base_source = shipped_text(base_name)
+    except InputError as exc:
+        raise InputError(exc.problem, path=source, key="profile.based_on", fix=exc.fix) from exc
     merged = with_base(load_toml(base_text, base_source), base_source, depth + 1)
     for table, values in data.items():
         if isinstance(values, dict) and isinstance(merged.get(table), dict):
@@ -110,7 +133,7 @@ def shipped_text(name: str) -> tuple[str, str]:
     shipped = resources.files("lineproof.drivers") / "profiles" / f"{name}.toml"
     if not re.fullmatch(r"[a-z0-9][a-z0-9-]*", name) or not shipped.is_file():
         raise InputError(f"no shipped profile named {name!r}", key="profile",
-                         fix=f"use one of {', '.join(shipped_profile_names())} or a path to a .toml file")
+                         fix=f"use one of {', '.join(shipped_profile_names())}, or a path to a .toml file")
     return shipped.read_text(encoding="utf-8"), f"profiles/{name}.toml"
 
 
@@ -121,5 +144,7 @@ def profile_text(name_or_path: str | Path) -> tuple[str, str]:
         try:
             return path.read_text(encoding="utf-8"), str(path)
         except OSError as exc:
-            raise InputError(f"cannot read profile ({exc.strerror})", path=str(path)) from exc
+            raise InputError(f"cannot read profile ({exc.strerror})", path=str(path),
+                             fix="check the path, or give a shipped profile's name: "
+                                 + ", ".join(shipped_profile_names())) from exc
     return shipped_text(str(name_or_path))

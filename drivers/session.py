@@ -38,6 +38,10 @@ _LINE_LIMIT = 1 << 22
 TRACE_LIMIT = 200
 #: Bytes of a binary payload shown (as hex) in a trace line.
 _TRACE_BYTES = 16
+#: Pauses between the reads of a polled status register: short at first (a sweep may be
+#: over at once), growing so that a long sweep costs few reads.
+_POLL_FIRST_PAUSE_S = 0.001
+_POLL_LONGEST_PAUSE_S = 0.05
 
 Result = TypeVar("Result")
 
@@ -364,7 +368,8 @@ class MessageSession:
 
         The header is read in two short reads, then the payload and its terminator in one
         exact-length read with the termination character off.  A declared length above the
-        cap, a short payload or a missing line end after it is an error, never data.
+        cap, a short payload or a missing line end after it is an error, never data; so is
+        an indefinite-length block (``#0``), whose end a byte stream cannot show.
         """
         if self.framing.prompted:
             raise ReplyError("binary blocks are not read on a prompted line", resource=self.resource,
@@ -391,11 +396,15 @@ class MessageSession:
             wanted = int(header_bytes[-1:]) if header_bytes[-2:-1] == b"#" else 1
             header_bytes += read(wanted, deadline)
         if header.payload_length is None:
-            # IEEE 488.2 §8.7.10: the payload runs to NL^END.  Without END on a byte stream
-            # the first NL ends it, so this form is only safe for text payloads.
-            line = self.transport.read_line_raw((self.framing.read_termination,), deadline, self.block_cap)
-            self._in_response = False
-            return line[: -len(self.framing.read_termination)]
+            # IEEE 488.2 §8.7.10: the payload runs to NL^END.  A byte stream carries no END,
+            # so only the first NL could end it -- and binary data holds that byte anywhere:
+            # the payload would be cut and its rest read as the next reply.  Refused; the
+            # rest of it stays unread and the link is renewed before the next command.
+            raise ieee488.CodecError(
+                "the instrument sent an indefinite-length block (#0, IEEE 488.2 §8.7.10), whose end cannot be "
+                "told from a line feed inside binary data; refused -- fix: set the instrument to definite-length "
+                'blocks, or read ASCII data (data_format = "ASCII" and reply = "numbers" in the profile)'
+            )
         payload = read(header.payload_length, deadline)
         # A definite block is followed by the response message terminator (§8.5); anything
         # else means the payload length and the data disagree.
@@ -444,6 +453,42 @@ class MessageSession:
             ieee488.parse_opc_reply(reply)
         except ieee488.CodecError as exc:
             raise ReplyError(str(exc), resource=self.resource, command=command, expected="1") from exc
+
+    def poll_status(self, command: str, done_bits: int, timeout_s: float, arm: str | None = None) -> int:
+        """Block until the status register ``command`` reads with any of ``done_bits`` set.
+
+        For instruments that cannot hold a query open until a sweep ends: ``arm`` (``*OPC``)
+        asks for the Operation Complete bit, bit 0 of ``*ESR?``, to be set when pending
+        operations end (IEEE 488.2 §12.5.2), and the register is read until it is.  Between
+        reads the pause grows from 1 ms to 50 ms; there is no fixed sleep, and the whole wait
+        ends at ``timeout_s``.  Each read may clear the register (``*ESR?`` does), so none is
+        ever repeated after a lost link.  Returns every bit seen set, for the caller to keep
+        what the reads cleared (the Power On bit).
+        """
+        deadline = self._deadline(timeout_s)
+        if arm:
+            self.send(arm, timeout_s)
+        seen = value = 0
+        pause = _POLL_FIRST_PAUSE_S
+        while True:
+            left = deadline - time.monotonic()
+            if left <= 0:
+                raise LinkError(
+                    f"timed out after {timeout_s:.3g} s: {command!r} read {value} (bits {value:#x}) and never "
+                    f"any of bits {done_bits:#x}", resource=self.resource, command=command,
+                    expected=f"a value with any of bits {done_bits:#x} set within {timeout_s:.3g} s",
+                )
+            reply = self.query(command, min(self.default_timeout_s, left), idempotent=False)
+            try:
+                value = ieee488.parse_status_register(reply)
+            except ieee488.CodecError as exc:
+                raise ReplyError(str(exc), resource=self.resource, command=command,
+                                 expected="a status register value 0..65535") from exc
+            seen |= value
+            if value & done_bits:
+                return seen
+            time.sleep(max(0.0, min(pause, deadline - time.monotonic())))
+            pause = min(2 * pause, _POLL_LONGEST_PAUSE_S)
 
     def _next_error_entry(self, command: str | None = None) -> tuple[int, str]:
         command = command or self.error_query or "SYSTem:ERRor?"

@@ -111,8 +111,10 @@ class DirectSocketIO:
     def _wait(self, readable: bool, deadline: float, what: str) -> None:
         sock = self._backend.interface
         left = deadline - time.monotonic()
+        if left <= 0:  # select() refuses a negative timeout with a ValueError
+            raise TimeoutError(what)
         ready = select.select([sock], [], [], left) if readable else select.select([], [sock], [], left)
-        if left <= 0 or not (ready[0] or ready[1]):
+        if not (ready[0] or ready[1]):
             raise TimeoutError(what)
 
     def write(self, data: bytes, deadline: float) -> None:
@@ -222,13 +224,35 @@ def peer_closed(handle: Any) -> bool:
         return True
 
 
+#: pyvisa-py's sentences on a missing optional package (pyvisa-py 0.8.1), and the command
+#: that installs what it asks for.
+_INSTALL_COMMANDS = (
+    ("PyUSB does not seem to be properly installed", "pip install libusb-package (a libusb backend for PyUSB)"),
+    ("Please install PyUSB", "pip install pyusb"),
+    ("Please install PySerial", "pip install pyserial"),
+    ("gpib-ctypes", "pip install gpib-ctypes (over the linux-gpib or NI-488.2 driver)"),
+    ("Please install PyVICP", "pip install pyvicp"),
+)
+
+
+def install_advice(sentence: str) -> str:
+    """pyvisa-py's sentence on a missing package, with the command that installs it added
+    when we know it."""
+    for marker, command in _INSTALL_COMMANDS:
+        if marker in sentence:
+            return f"{sentence} Install it with: {command}"
+    return sentence
+
+
 def install_hint(exc: BaseException) -> str | None:
-    """pyvisa-py's own sentence saying which package a resource type needs, if it gave one.
+    """pyvisa-py's own sentence saying which package a resource type needs, if it gave one,
+    with the command that installs it.
 
     pyvisa-py raises ValueError("Please install PyUSB to use this resource type.") when a
-    resource's interface needs an optional package; we pass that sentence on verbatim.
+    resource's interface needs an optional package; we pass that sentence on and add the
+    ``pip install`` command.
     """
     text = str(exc)
-    if "Please install" in text:
-        return text.splitlines()[0].strip()
+    if "Please install" in text or any(marker in text for marker, _ in _INSTALL_COMMANDS):
+        return install_advice(text.splitlines()[0].strip())
     return None

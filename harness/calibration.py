@@ -19,15 +19,21 @@ grid that differs from the calibration's instead of silently dropping frequencie
 
 from __future__ import annotations
 
+import itertools
 import uuid
 import warnings
-from collections.abc import Mapping
+from collections.abc import Collection, Mapping
+from dataclasses import dataclass
 from datetime import UTC, datetime
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from lineproof.errors import CalibrationError
+from lineproof.errors import CalibrationError, InputError
 from lineproof.values import CalibrationRecord, InstrumentIdentity, SweepPlan
+
+if TYPE_CHECKING:
+    from lineproof.calkit import CalKit
 
 ONE_PORT_METHOD = "one-port (open, short, load)"
 ONE_PATH_METHOD = "two-port one-path (forward only, reverse by reversing the device)"
@@ -101,24 +107,128 @@ def _standards_matrix(ideals: Mapping[str, np.ndarray], measured: Mapping[str, n
     )
 
 
-def check_condition(ideals: Mapping[str, np.ndarray], measured: Mapping[str, np.ndarray]) -> None:
-    """Refuse a solve whose standards do not separate the three unknowns.
+def _mhz(frequency_hz: float) -> str:
+    return f"{frequency_hz / 1e6:.6g} MHz"
 
-    The per-frequency system is Γm_i = e00 + Γ_i Γm_i e11 - Γ_i Δe (one row per standard);
-    its matrix must be well conditioned at every frequency.
-    """
+
+@dataclass(frozen=True)
+class Inseparable:
+    """Where a calibration's standards do not separate the three error terms: the worst
+    frequency, its condition number, how many points are past the limit and over what span,
+    and the two standards that are alike there -- by their models (a kit or sweep problem) or
+    only by their raw readings (a connection problem)."""
+
+    frequency_hz: float
+    condition: float
+    points: int
+    span_hz: tuple[float, float]
+    alike: tuple[str, str]
+    by_model: bool
+    distance: float
+
+    def problem(self) -> str:
+        first, last = self.span_hz
+        span = "" if self.points == 1 else f"; {self.points} points from {_mhz(first)} to {_mhz(last)} are past {_MAX_CONDITION:.0e}"
+        a, b = self.alike
+        alike = (f"the models of the {a} and the {b} are alike there ({self.distance:.2g} apart)" if self.by_model
+                 else f"the {a} and the {b} read alike there ({self.distance:.2g} apart) though their models differ")
+        return (f"the standards do not separate the error terms at {_mhz(self.frequency_hz)} (condition number "
+                f"{self.condition:.3g}{span}): {alike}")
+
+    def fix(self, kit_source: str = "") -> str:
+        kit = f"the kit file {kit_source}" if kit_source else "the kit definition"
+        first, last = self.span_hz
+        if self.by_model:
+            where = _mhz(first) if self.points == 1 else f"{_mhz(first)} to {_mhz(last)}"
+            return (f"sweep clear of {where}, or give the {self.alike[0]} or the {self.alike[1]} another offset delay "
+                    f"so that their reflections differ over the whole sweep, and define it so in {kit}")
+        return (f"connect the {self.alike[0]} and the {self.alike[1]} again, each when asked, and check that {kit} "
+                "describes the standards in use")
+
+
+def inseparable(frequencies_hz: np.ndarray, ideals: Mapping[str, np.ndarray],
+                measured: Mapping[str, np.ndarray]) -> Inseparable | None:
+    """None when the standards separate the three unknowns at every frequency, else where
+    and why not.  The per-frequency system is Γm_i = e00 + Γ_i Γm_i e11 - Γ_i Δe (one row per
+    standard); its matrix must be well conditioned at every frequency."""
     condition = np.linalg.cond(_standards_matrix(ideals, measured))
+    bad = ~np.isfinite(condition) | (condition > _MAX_CONDITION)
+    if not np.any(bad):
+        return None
     worst = int(np.argmax(np.where(np.isfinite(condition), condition, np.inf)))
-    if not np.isfinite(condition[worst]) or condition[worst] > _MAX_CONDITION:
-        raise CalibrationError(
-            f"the standards ({', '.join(ideals)}) do not separate the error terms at point {worst} "
-            f"(condition number {condition[worst]:.3g}); check that each standard was connected "
-            "when asked and that the kit definition matches the standards"
-        )
+    f = np.asarray(frequencies_hz, dtype=float)
+    names = list(ideals)
+    spread_model = max(abs(ideals[a][worst] - ideals[b][worst]) for a, b in itertools.combinations(names, 2)) or 1.0
+    spread_raw = max(abs(measured[a][worst] - measured[b][worst]) for a, b in itertools.combinations(names, 2)) or 1.0
+
+    def nearness(pair: tuple[str, str]) -> tuple[float, bool, float]:
+        model = abs(ideals[pair[0]][worst] - ideals[pair[1]][worst])
+        raw = abs(measured[pair[0]][worst] - measured[pair[1]][worst])
+        by_model = model / spread_model <= raw / spread_raw
+        return min(model / spread_model, raw / spread_raw), by_model, float(model if by_model else raw)
+
+    pair = min(itertools.combinations(names, 2), key=lambda p: nearness(p)[0])
+    _, by_model, distance = nearness(pair)
+    return Inseparable(float(f[worst]), float(condition[worst]), int(np.count_nonzero(bad)),
+                       (float(f[bad][0]), float(f[bad][-1])), pair, by_model, distance)
+
+
+def check_condition(frequencies_hz: np.ndarray, ideals: Mapping[str, np.ndarray],
+                    measured: Mapping[str, np.ndarray], kit_source: str = "") -> None:
+    """Refuse a solve whose standards do not separate the three unknowns (see
+    :func:`inseparable`), naming the frequency, the standards that are alike, the kit file
+    (``kit_source``, where known) and the fix."""
+    trouble = inseparable(frequencies_hz, ideals, measured)
+    if trouble is not None:
+        kit = f" (kit file {kit_source})" if kit_source else ""
+        raise CalibrationError(f"{trouble.problem()}{kit} -- fix: {trouble.fix(kit_source)}")
+
+
+def check_kit_for_sweep(kit: CalKit, frequencies_hz: np.ndarray, kinds: Collection[str]) -> list[InputError]:
+    """What stops ``kit``'s standards of ``kinds`` from calibrating over ``frequencies_hz``,
+    found before anything is measured: data standards that cannot serve the sweep, and reflect
+    standards whose models are alike somewhere in it (an ideal analyzer could not separate the
+    terms there: the raw readings would be the models).  Each is an :class:`InputError` on the
+    kit file, with the key and line of the standard concerned."""
+    from lineproof.calkit import REFLECT_KINDS
+
+    f = np.asarray(frequencies_hz, dtype=float)
+    found: list[InputError] = []
+    ideals: dict[str, np.ndarray] = {}
+    for kind in kinds:
+        try:
+            if kind in REFLECT_KINDS:
+                ideals[kit.standard(kind).name] = kit.ideal(kind, f)
+            elif kind == "thru":
+                kit.thru(f)
+        except InputError as exc:
+            found.append(exc)
+    if len(ideals) == len(REFLECT_KINDS) and (trouble := inseparable(f, ideals, ideals)) is not None:
+        key = f"standards.{trouble.alike[1]}"
+        found.append(InputError(f"over this sweep {trouble.problem()}", path=kit.source, key=key,
+                                line=kit.line_of(key), fix=trouble.fix(kit.source)))
+    return found
+
+
+def check_grid(name: str, grid_hz: np.ndarray, calibration_grid_hz: np.ndarray) -> None:
+    """Refuse a standard measured on other frequencies than the calibration's grid (equal
+    to a relative 1e-9, :func:`same_grid`), naming the first frequency that differs."""
+    grid = np.asarray(grid_hz, dtype=float)
+    if same_grid(grid, calibration_grid_hz):
+        return
+    if grid.shape != calibration_grid_hz.shape:
+        found = f"{grid.size} points, the calibration grid has {calibration_grid_hz.size}"
+    else:
+        differs = ~np.isclose(grid, calibration_grid_hz, rtol=_GRID_RTOL, atol=0.0)
+        first = int(np.argmax(differs))
+        found = (f"{np.count_nonzero(differs)} of {grid.size} frequencies differ, the first at point {first + 1}: "
+                 f"{grid[first]:.10g} Hz against the calibration grid's {calibration_grid_hz[first]:.10g} Hz")
+    raise CalibrationError(f"standard {name} was measured on a different grid from the calibration's ({found}); "
+                           "measure every standard with the same sweep plan")
 
 
 def _check_standards(frequencies_hz: np.ndarray, measured: Mapping[str, np.ndarray],
-                     ideals: Mapping[str, np.ndarray]) -> None:
+                     ideals: Mapping[str, np.ndarray], grids: Mapping[str, np.ndarray] | None) -> None:
     missing = [name for name in ideals if name not in measured]
     if missing or len(ideals) < 3:
         raise CalibrationError(
@@ -130,17 +240,24 @@ def _check_standards(frequencies_hz: np.ndarray, measured: Mapping[str, np.ndarr
                 f"standard {name} was measured on a different grid from the others "
                 f"({measured[name].size} points, the calibration grid has {frequencies_hz.size}); "
                 "measure every standard with the same sweep plan")
+        if grids is not None and name in grids:
+            check_grid(name, grids[name], frequencies_hz)
 
 
 def solve_one_port(
     frequencies_hz: np.ndarray,
     measured: Mapping[str, np.ndarray],
     ideals: Mapping[str, np.ndarray],
+    *,
+    grids: Mapping[str, np.ndarray] | None = None,
+    kit_source: str = "",
 ) -> dict[str, np.ndarray]:
-    """Error terms from three or more one-port standards (measured raw and model ideal)."""
+    """Error terms from three or more one-port standards (measured raw and model ideal).
+    ``grids``: the frequencies each standard was swept at, each refused unless it is
+    ``frequencies_hz``; ``kit_source``: the kit file, named when the standards are refused."""
     f = np.asarray(frequencies_hz, dtype=float)
-    _check_standards(f, measured, ideals)
-    check_condition(ideals, {name: measured[name] for name in ideals})
+    _check_standards(f, measured, ideals, grids)
+    check_condition(f, ideals, {name: measured[name] for name in ideals}, kit_source)
     if len(ideals) > 3:
         return _solve_least_squares(f, measured, ideals)
     matrix = _standards_matrix(ideals, measured)

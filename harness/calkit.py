@@ -29,6 +29,7 @@ import numpy as np
 
 from lineproof.errors import InputError
 from lineproof.resample import resample
+from lineproof.toml_problems import KeyLines
 
 STANDARD_KINDS = ("open", "short", "load", "thru")
 REFLECT_KINDS = ("open", "short", "load")
@@ -99,12 +100,21 @@ class CalKit:
     sha256: str
     note: str = ""
     extra: dict[str, Any] = field(default_factory=dict)
+    #: Where each key of the kit file is set (for messages); None for a kit made in code.
+    key_lines: KeyLines | None = field(default=None, compare=False, repr=False)
+
+    def line_of(self, key: str) -> int | None:
+        """The line of the kit file that sets ``key`` (or its nearest parent), if known."""
+        return self.key_lines.line_of(key) if self.key_lines is not None else None
 
     def standard(self, kind: str) -> StandardDefinition:
+        """The kit's one standard of ``kind`` (a kit file holds at most one of each kind)."""
         for definition in self.standards.values():
             if definition.kind == kind:
                 return definition
+        first = next(iter(self.standards), None)  # [standards.x] headers set no line for "standards" itself
         raise InputError(f"the kit has no {kind} standard", path=self.source, key="standards",
+                         line=self.line_of(f"standards.{first}") if first else None,
                          fix=f"add a [standards.{kind}] table with kind = \"{kind}\"")
 
     def has(self, kind: str) -> bool:
@@ -114,14 +124,14 @@ class CalKit:
         """Model reflection of the kit's ``kind`` standard, relative to the kit's Z0."""
         definition = self.standard(kind)
         if definition.data is not None:
-            return _data_on_grid(definition, frequencies_hz, self.source)
+            return _data_on_grid(definition, frequencies_hz, self)
         return ideal_reflection(definition, frequencies_hz, self.reference_impedance_ohm)
 
     def thru(self, frequencies_hz: np.ndarray) -> np.ndarray:
         """S-parameters (N, 2, 2) of the kit's thru, relative to the kit's Z0."""
         definition = self.standard("thru")
         if definition.data is not None:
-            return _data_on_grid(definition, frequencies_hz, self.source)
+            return _data_on_grid(definition, frequencies_hz, self)
         return thru_s(definition, frequencies_hz, self.reference_impedance_ohm)
 
 
@@ -198,7 +208,7 @@ def _to_gamma(z: np.ndarray, z_reference: float) -> np.ndarray:
     return (z - z_reference) / (z + z_reference)
 
 
-def _data_on_grid(standard: StandardDefinition, frequencies_hz: np.ndarray, source: str) -> np.ndarray:
+def _data_on_grid(standard: StandardDefinition, frequencies_hz: np.ndarray, kit: CalKit) -> np.ndarray:
     data = standard.data
     assert data is not None
     f = np.asarray(frequencies_hz, dtype=float)
@@ -206,16 +216,17 @@ def _data_on_grid(standard: StandardDefinition, frequencies_hz: np.ndarray, sour
         return data.s.copy()
     values = np.moveaxis(data.s, 0, -1)
     key = f"standards.{standard.name}.touchstone"
+    source, line = kit.source, kit.line_of(key)
     try:
         moved = resample(data.frequencies_hz, values, f)
     except ValueError as exc:
-        raise InputError(f"the data in {data.path} cannot serve this sweep ({exc})", path=source, key=key,
+        raise InputError(f"the data in {data.path} cannot serve this sweep ({exc})", path=source, key=key, line=line,
                          fix="give data that cover the sweep on at least 13 points") from exc
     worst = float(np.max(moved.estimated_error))
     if worst > DATA_INTERPOLATION_TOLERANCE:
         raise InputError(
             f"interpolating {data.path} onto the sweep would add an error of about {worst:.2g} "
-            f"(tolerance {DATA_INTERPOLATION_TOLERANCE:g})", path=source, key=key,
+            f"(tolerance {DATA_INTERPOLATION_TOLERANCE:g})", path=source, key=key, line=line,
             fix="give the standard's data on a finer frequency grid")
     return np.moveaxis(moved.values, -1, 0)
 
@@ -332,7 +343,35 @@ def _uncertainty(table: Any, source: str) -> KitUncertainty:
 
 
 def parse_kit(text: str, source: str, folder: Path | None = None) -> CalKit:
-    """A kit from TOML text; ``folder`` is where Touchstone data files are looked up."""
+    """A kit from TOML text; ``folder`` is where Touchstone data files are looked up.  Every
+    problem is an :class:`InputError` naming the file, the key and its line, and the fix."""
+    lines = KeyLines(text)
+    try:
+        return _parse_kit(text, source, folder, lines)
+    except InputError as exc:
+        if exc.line is not None or exc.path != source or not exc.key:
+            raise
+        raise InputError(exc.problem, path=exc.path, key=exc.key, line=lines.line_of(exc.key),
+                         fix=exc.fix) from exc.__cause__
+
+
+def _one_of_each_kind(standards: dict[str, StandardDefinition], source: str) -> None:
+    """Refuse two standards of one kind: a calibration asks for "the open", and taking the
+    first of two silently would calibrate with whichever the file happens to list first."""
+    first: dict[str, str] = {}
+    for name, definition in standards.items():
+        earlier = first.setdefault(definition.kind, name)
+        if earlier != name:
+            kind = definition.kind
+            raise InputError(
+                f"a second {kind} standard: [standards.{earlier}] and [standards.{name}] are both kind = "
+                f"\"{kind}\", and a calibration uses one standard of each kind", path=source,
+                key=f"standards.{name}.kind",
+                fix=f"keep one {kind} in this kit (remove [standards.{name}] or [standards.{earlier}]) and give the "
+                    "other a kit file of its own")
+
+
+def _parse_kit(text: str, source: str, folder: Path | None, lines: KeyLines) -> CalKit:
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -348,6 +387,7 @@ def parse_kit(text: str, source: str, folder: Path | None = None) -> CalKit:
         raise InputError("missing [standards.*] tables", path=source, key="standards",
                          fix="define at least an open, a short and a load")
     standards = {name: _standard(name, table, source, z0, folder) for name, table in standards_table.items()}
+    _one_of_each_kind(standards, source)
     return CalKit(
         name=head["name"].strip(),
         connector=str(head.get("connector", "")),
@@ -357,6 +397,7 @@ def parse_kit(text: str, source: str, folder: Path | None = None) -> CalKit:
         source=source,
         sha256=hashlib.sha256(text.encode("utf-8")).hexdigest(),
         note=str(head.get("note", "")),
+        key_lines=lines,
     )
 
 

@@ -4,18 +4,27 @@ its control chart (:mod:`lineproof.control_chart`).
 A figure is one band's mean |Γ| of the check standard (``"70cm mean |Γ|"``): each
 verification adds one point per band -- the mean of its repeats, their standard deviation,
 the reference, En, the temperature, and what the chart said of it (``signals``: NULL while
-the point belongs to the baseline, ``""`` in control, else the rules it broke).  The chart of
-a history is recomputed from its rows (the first K set the limits), so it never disagrees
-with the records.
+the point belongs to the baseline, ``""`` in control, else the rules it broke) and the
+calibration it was made with.  The chart of a history is recomputed from its rows (the first
+check of each of the first K calibrations sets the limits), so it never disagrees with the
+records.
 """
 
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
-from lineproof.control_chart import Baseline, ChartPoint, PointJudgement, judge_series
+from lineproof.control_chart import (
+    FAILING_SIGNALS,
+    Baseline,
+    ChartPoint,
+    PointJudgement,
+    baseline_indices,
+    judge_series,
+    occasions,
+)
 from lineproof.store import ResultStore
 from lineproof.values import VerificationResult
 
@@ -37,7 +46,8 @@ class HistoryKey:
 
 
 def _points(rows: list[dict[str, Any]]) -> list[ChartPoint]:
-    return [ChartPoint(float(r["value"]), None if r["std_dev"] is None else float(r["std_dev"]), int(r["repeats"]))
+    return [ChartPoint(float(r["value"]), None if r["std_dev"] is None else float(r["std_dev"]), int(r["repeats"]),
+                       None if r["calibration_id"] is None else str(r["calibration_id"]))
             for r in rows]
 
 
@@ -61,6 +71,12 @@ def combined_signals(by_band: Mapping[str, tuple[str, ...] | None]) -> tuple[str
     if all(signals is None for signals in by_band.values()):
         return None
     return tuple(f"{band}: {signal}" for band, signals in by_band.items() for signal in (signals or ()))
+
+
+def beyond_limits(by_band: Mapping[str, tuple[str, ...] | None]) -> bool:
+    """A band's point lies beyond its control limits: the check fails (every other signal
+    is a warning, see :mod:`lineproof.control_chart`)."""
+    return any(signal in FAILING_SIGNALS for signals in by_band.values() for signal in (signals or ()))
 
 
 def history_rows(result: VerificationResult, points: Mapping[str, ChartPoint],
@@ -89,10 +105,34 @@ class ChartData:
     rows: list[dict[str, Any]]
     baseline: Baseline | None
     judged: list[PointJudgement]
+    #: Per row: it is (or, while the baseline is being built, will be) a baseline point -- the
+    #: first check that agreed of its calibration.
+    in_baseline: list[bool] = field(default_factory=list)
 
     @property
     def baseline_count(self) -> int:
         return self.baseline.count if self.baseline is not None else len(self.rows)
+
+    def category(self, index: int) -> str:
+        """What the chart makes of row ``index``: ``baseline``, ``not judged`` (a later check of
+        a calibration in the baseline, before the baseline was complete), ``left out`` (it
+        disagreed with its reference), ``in control``, ``warning`` or ``failed``."""
+        judged = self.judged[index]
+        if judged.signals is None:
+            if self.in_baseline[index]:
+                return "baseline"
+            return "not judged" if self.rows[index]["check_passed"] else "left out"
+        if not judged.signals:
+            return "in control"
+        return "failed" if judged.fails else "warning"
+
+    def status(self, index: int) -> str:
+        """What the chart says of row ``index``, in a few words."""
+        category = self.category(index)
+        signals = "; ".join(self.judged[index].signals or ())
+        return {"not judged": "not judged (its calibration's first check is in the baseline)",
+                "left out": "left out (disagreed with its reference)",
+                "warning": f"OUT, warning: {signals}", "failed": f"OUT, failed: {signals}"}.get(category, category)
 
 
 def history_keys(store: ResultStore, station: str | None = None, check_standard: str | None = None,
@@ -114,14 +154,16 @@ def history_keys(store: ResultStore, station: str | None = None, check_standard:
 
 def load_chart(store: ResultStore, key: HistoryKey) -> ChartData:
     """A history and its chart.  The baseline is as long as it was when the points were
-    judged (the rows before the first judged one); a history still building its baseline has
-    no limits yet."""
+    judged (the calibrations of the usable rows before the first judged one); a history still
+    building its baseline has no limits yet."""
     rows = store.check_history(key.station, key.analyzer, key.check_standard, key.figure)
     points = _points(rows)
     usable = [bool(r["check_passed"]) for r in rows]
     first_judged = next((i for i, r in enumerate(rows) if r["signals"] is not None), None)
-    count = sum(usable[:first_judged]) if first_judged is not None else 0
+    count = occasions(points[:first_judged], usable[:first_judged]) if first_judged is not None else 0
+    chosen = set(baseline_indices(points, count if count >= 2 else len(points), usable))
+    in_baseline = [i in chosen for i in range(len(rows))]
     if count < 2:
-        return ChartData(key, rows, None, [PointJudgement(p, None) for p in points])
+        return ChartData(key, rows, None, [PointJudgement(p, None) for p in points], in_baseline)
     baseline, judged = judge_series(points, count, usable=usable)
-    return ChartData(key, rows, baseline, judged)
+    return ChartData(key, rows, baseline, judged, in_baseline)

@@ -7,7 +7,7 @@ name = "mismatch-2to1"              # the bench object / switch wiring name
 reference_vswr = 2.0                # or reference_file = "cert.s1p", or [check_standard.model]
 reference_uncertainty = 0.004       # expanded (k = 2) U of the reference |Γ|; or [[f_hz, U], ...]
 repeats = 3                         # reconnections per check (spread for the precision chart)
-baseline_checks = 10                # the first K checks set the control chart's limits
+baseline_checks = 10                # the first check of each of the first K calibrations sets the limits
 
 [check_standard.model]              # a resistance, a series inductance, a shunt capacitance
 resistance_ohm = 100.0

@@ -1,31 +1,45 @@
 """Control charts of a check standard's history, and the run rules that catch slow drift.
 
 Method: NIST/SEMATECH e-Handbook of Statistical Methods, chapter 2 ("Measurement Process
-Characterization"), §2.2.2 (bias and long-term variability: a Shewhart chart of the check
-standard's values) and §2.2.3 (short-term variability: a chart of the standard deviations of
-repeated measurements).  Each verification of a check standard gives, per figure (here a
-band's mean |Γ| of the check standard), a value -- the mean of its J repeated measurements --
-and, when J >= 2, their standard deviation.
+Characterization"): §2.3.5.2 (control of bias and long-term variability: a Shewhart chart of
+the check standard's values with t-based limits) and §2.2.3.1 (control chart for standard
+deviations: the F-based precision limit).  Each verification of a check standard gives, per
+figure (here a band's mean |Γ| of the check standard), a value -- the mean of its J repeated
+measurements -- and, when J >= 2, their standard deviation.
 
-- **Baseline** (§2.1.2.3, §2.2.2.2): the first K values give the accepted value
-  Ȳ = mean and the process (level-2) standard deviation s2 with K - 1 degrees of freedom;
+**One point per calibration.**  Checks made with the same calibration share its error: they
+are not independent draws of the process the chart watches, whose "occasions" (the
+handbook's days) are calibrations here.  So the chart takes one check per calibration wherever
+it needs independent points -- the baseline and the run rules -- and every check only where a
+single check is judged on its own (the limits and the precision chart).
+
+- **Baseline** (§2.2.2.2 for the notation, §2.3.5.2 for the limits): the first check that
+  agreed with its reference of each of the first K calibrations gives the accepted value
+  C̄ = mean and the process (level-2) standard deviation s2 with K - 1 degrees of freedom;
   their standard deviations, pooled, give the repeatability (level-1) standard deviation s1
   with K(J - 1) degrees of freedom (§2.2.3.2; the pooling is checked against the handbook's
   own example in §2.4.4.4).
-- **Mean chart**: limits Ȳ ± k·s2 with k = t(1 - α/2; K - 1), the Student t quantile, so that a
-  short baseline widens the limits as it should.  α = 0.0027 by default: the false-alarm rate
-  of the classical 3-sigma limits under normality, reached by k as K grows.
+- **Mean chart** (§2.3.5.2): limits C̄ ± t(1 - α/2; K - 1)·s2, the Student t quantile, so that
+  a short baseline widens the limits as it should.  α = 0.0027 by default: the false-alarm
+  rate of the classical 3-sigma limits under normality, reached by the factor as K grows.
+  Every check is judged against them; a point beyond them **fails** the check.
 - **Precision chart** (§2.2.3.1): UCL = s1·sqrt(F(α; J - 1, K(J - 1))), the upper α point of
-  the F distribution (the handbook suggests a small α, "say 0.05"; 0.01 here, since a signal
-  on a line means a new calibration).
+  the F distribution (the handbook suggests a small α, "say 0.05"; 0.01 here).  Every check is
+  judged against it: the repeats of one check share their calibration's error, which cancels
+  out of their standard deviation, so s1 and each check's s measure reconnection and noise
+  only and need no per-calibration thinning.  A signal is a **warning** (see below).
 - **Run rules** for what a single point does not show -- slow drift: the Western Electric
   rules (Western Electric Co., *Statistical Quality Control Handbook*, 1956; also listed in the
   e-Handbook §6.3.2, from memory) -- 2 of 3 successive points beyond 2 s2 on one side, 4 of 5
   beyond 1 s2 on one side, 8 successive points on one side of the centre line -- and Nelson's
   trend test, 6 points in a row steadily rising or falling (L. S. Nelson, "The Shewhart
   Control Chart -- Tests for Special Causes", J. Quality Technology 16(4), 1984, test 3).
-  The rules look at the points after the baseline, and start counting afresh after a signal
-  (the corrective action -- a new calibration -- ends the run of points that led to it).
+  They are judged on the series of the calibrations after the baseline's, each represented by
+  its latest check and the check being judged last, so that they see the drift from one
+  calibration to the next that the limits do not yet show.  A signal is a **warning**: the
+  calibration no longer holds and is made again, but the results measured with it are not put
+  in doubt -- no point has left the limits.  The series starts afresh after a signal of the
+  mean chart (the corrective action -- a new calibration -- ends the run that led to it).
 
 Pure functions on numbers; scipy gives the t and F quantiles.
 """
@@ -33,7 +47,7 @@ Pure functions on numbers; scipy gives the t and F quantiles.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Hashable, Sequence
 from dataclasses import dataclass
 
 #: Two-sided false-alarm probability of the mean chart's limits (that of ±3 sigma, normal).
@@ -50,15 +64,44 @@ FOUR_OF_FIVE = "4 of 5 successive points beyond 1 s on one side (Western Electri
 EIGHT_ON_ONE_SIDE = "8 successive points on one side of the centre line (Western Electric)"
 SIX_TRENDING = "6 points in a row steadily rising or falling (Nelson test 3)"
 SPREAD_TOO_WIDE = "short-term standard deviation above its limit (precision chart)"
+#: The one signal that fails a check (and puts the results since the last passing check in
+#: doubt); every other signal is a warning that ends the calibration.
+FAILING_SIGNALS = (BEYOND_LIMITS,)
 
 
 @dataclass(frozen=True)
 class ChartPoint:
-    """One verification's figure: the mean of its repeats and their standard deviation."""
+    """One verification's figure: the mean of its repeats and their standard deviation, and
+    the calibration it was made with (None: a point independent of every other)."""
 
     value: float
     std_dev: float | None = None
     repeats: int = 1
+    calibration: str | None = None
+
+
+def _occasion(index: int, point: ChartPoint) -> Hashable:
+    """What a point shares its error with: its calibration, or nothing but itself."""
+    return ("calibration", point.calibration) if point.calibration is not None else ("point", index)
+
+
+def baseline_indices(points: Sequence[ChartPoint], count: int, usable: Sequence[bool] | None = None) -> list[int]:
+    """The points that make the baseline: the first usable point of each of the first
+    ``count`` calibrations (fewer while the history is shorter)."""
+    flags = list(usable) if usable is not None else [True] * len(points)
+    chosen: list[int] = []
+    seen: set[Hashable] = set()
+    for index, (point, ok) in enumerate(zip(points, flags, strict=True)):
+        occasion = _occasion(index, point)
+        if ok and occasion not in seen and len(chosen) < count:
+            seen.add(occasion)
+            chosen.append(index)
+    return chosen
+
+
+def occasions(points: Sequence[ChartPoint], usable: Sequence[bool] | None = None) -> int:
+    """How many calibrations (independent occasions) the usable ``points`` come from."""
+    return len(baseline_indices(points, len(points), usable))
 
 
 @dataclass(frozen=True)
@@ -89,8 +132,8 @@ class Baseline:
 
 
 def limit_factor(count: int, alpha: float = DEFAULT_ALPHA) -> float:
-    """k = t(1 - α/2; count - 1): the e-Handbook's t-based factor for limits from a baseline
-    of ``count`` values."""
+    """k = t(1 - α/2; count - 1): the e-Handbook's t-based factor (§2.3.5.2) for limits from a
+    baseline of ``count`` values."""
     from scipy import stats
 
     if count < 2:
@@ -147,8 +190,8 @@ def _trending(values: Sequence[float], length: int = 6) -> bool:
 
 
 def run_rule_signals(values: Sequence[float], baseline: Baseline) -> tuple[str, ...]:
-    """The rules the last of ``values`` (the points since the baseline, or since the last
-    signal) breaks."""
+    """The rules the last of ``values`` breaks: the limits, then the run rules on the series as
+    given (one value per calibration, the one judged last)."""
     if not values:
         return ()
     last = values[-1]
@@ -183,32 +226,46 @@ class PointJudgement:
     def in_control(self) -> bool | None:
         return None if self.signals is None else not self.signals
 
+    @property
+    def fails(self) -> bool:
+        """The point fails its check: it lies beyond the control limits."""
+        return any(s in FAILING_SIGNALS for s in self.signals or ())
+
 
 def judge_series(points: Sequence[ChartPoint], baseline_count: int, alpha: float = DEFAULT_ALPHA,
                  precision_alpha: float = DEFAULT_PRECISION_ALPHA,
                  usable: Sequence[bool] | None = None) -> tuple[Baseline | None, list[PointJudgement]]:
-    """Judge every point of a history in order: the first ``baseline_count`` usable points
-    (``usable``: the check agreed with its reference; default all) form the baseline, and no
-    point up to the last of them is judged -- a check that disagreed with its reference never
-    sets the limits; each later point is judged against the limits, the run rules (counted
-    from the last signal) and, with repeats, the precision chart."""
+    """Judge every point of a history in order (see the module docstring).  The baseline is
+    the first usable point (``usable``: the check agreed with its reference; default all) of
+    each of the first ``baseline_count`` calibrations, and no point up to the last of them is
+    judged -- a check that disagreed with its reference never sets the limits.  Each later point
+    is judged against the limits and, with repeats, the precision chart on its own, and by the
+    run rules on the series of later calibrations (each by its latest point, this one last)
+    since the last signal of the mean chart."""
     if baseline_count < 2:
         raise ValueError("a baseline needs at least two verifications")
-    flags = list(usable) if usable is not None else [True] * len(points)
-    chosen = [i for i, ok in enumerate(flags) if ok][:baseline_count]
+    chosen = baseline_indices(points, baseline_count, usable)
     if len(chosen) < baseline_count:
         return None, [PointJudgement(p, None) for p in points]
     base = make_baseline([points[i] for i in chosen], alpha)
+    in_baseline = {_occasion(i, points[i]) for i in chosen}
     end = chosen[-1] + 1
     judged = [PointJudgement(p, None) for p in points[:end]]
-    run: list[float] = []
-    for point in points[end:]:
-        run.append(point.value)
-        signals = list(run_rule_signals(run, base))
+    latest: dict[Hashable, float] = {}  # a calibration's latest value, in the order last seen
+    for index in range(end, len(points)):
+        point = points[index]
+        occasion = _occasion(index, point)
+        if occasion in in_baseline:
+            series = [point.value]  # a baseline calibration's later check: its limits only
+        else:
+            latest.pop(occasion, None)
+            latest[occasion] = point.value
+            series = list(latest.values())
+        signals = list(run_rule_signals(series, base))
+        if signals:
+            latest = {}
         limit = base.precision_limit(point.repeats, precision_alpha)
         if limit is not None and point.std_dev is not None and point.std_dev > limit:
             signals.append(SPREAD_TOO_WIDE)
         judged.append(PointJudgement(point, tuple(signals)))
-        if signals:
-            run = []
     return base, judged

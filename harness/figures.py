@@ -22,15 +22,21 @@ from __future__ import annotations
 
 import math
 from collections.abc import Collection, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from datetime import UTC, datetime
 
 import numpy as np
 
 from lineproof import metrics, two_port
 from lineproof.decision import RULE_TEXT, DecisionRule, judge_extremes
+from lineproof.markers import MatchTrace, TransmissionTrace, band_group_delay, group_delay, read_markers
 from lineproof.two_port_residuals import ThruView, through_path, thru_view
-from lineproof.uncertainty import UncertaintySettings, reflection_uncertainty, transmission_relative_uncertainty
+from lineproof.uncertainty import (
+    UncertaintySettings,
+    reflection_uncertainty,
+    transmission_phase_uncertainty,
+    transmission_relative_uncertainty,
+)
 from lineproof.values import (
     BandLimit,
     BandResult,
@@ -98,53 +104,60 @@ def _band_figure(trace: FigureTrace, frequencies: np.ndarray, band_points: slice
                         float(values.mean()), limit, u, upper, verdict)
 
 
-def _markers(frequencies: np.ndarray, band: BandLimit, markers: Mapping[str, float], headline: FigureTrace,
-             loss: FigureTrace | None) -> tuple[MarkerReading, ...]:
-    readings = []
-    for name, hz in markers.items():
-        if band.start_hz <= hz <= band.stop_hz:
-            i = metrics.marker_index(frequencies, hz)
-            readings.append(MarkerReading(
-                name, float(frequencies[i]), float(headline.values[i]),
-                None if headline.expanded is None else float(headline.expanded[i]),
-                None if loss is None else float(loss.values[i])))
-    return tuple(readings)
-
-
 def _band_result(band: BandLimit, frequencies: np.ndarray, traces: Sequence[FigureTrace], rule: DecisionRule,
-                 judged: Collection[str], markers: Mapping[str, float]) -> BandResult:
+                 judged: Collection[str], markers: Sequence[MarkerReading],
+                 delays: np.ndarray | None) -> BandResult:
     indices = metrics.band_indices(frequencies, band)
     if indices.size == 0:
         raise ValueError(f"band {band.name} ({band.start_hz / 1e6:g}-{band.stop_hz / 1e6:g} MHz) holds no sweep point")
     points = slice(int(indices[0]), int(indices[-1]) + 1)  # a band is a run of sweep points
     figures = tuple(_band_figure(trace, frequencies, points, band, rule, trace.name in judged) for trace in traces)
     head = figures[0]
-    loss_trace = next((t for t in traces if t.name == INSERTION_LOSS), None)
     loss = next((f for f in figures if f.figure == INSERTION_LOSS), None)
     verdict = Verdict.combine(tuple(f.verdict for f in figures if f.verdict is not None))
+    match = head.figure in MATCH_FIGURES  # else transmission-only data: no reflection headline
+    inside = tuple(m for m in markers if band.start_hz <= m.frequency_hz <= band.stop_hz)
     return BandResult(
-        band, head.worst, head.worst_frequency_hz, head.mean, head.expanded_uncertainty, verdict, RULE_TEXT[rule],
-        head.worst_upper, None if loss is None else loss.worst, None if loss is None else loss.worst_frequency_hz,
-        None if loss is None else loss.expanded_uncertainty,
-        _markers(frequencies, band, markers, traces[0], loss_trace), figures)
+        band, head.worst if match else None, head.worst_frequency_hz, head.mean if match else None,
+        head.expanded_uncertainty if match else None, verdict, RULE_TEXT[rule], head.worst_upper if match else None,
+        None if loss is None else loss.worst, None if loss is None else loss.worst_frequency_hz,
+        None if loss is None else loss.expanded_uncertainty, inside, figures,
+        None if delays is None else band_group_delay(frequencies, delays, band))
 
 
 def judge_figures(device: DeviceIdentity, frequencies: np.ndarray, traces: Sequence[FigureTrace],
                   bands: Sequence[BandLimit], rule: DecisionRule, judged: Collection[str], *,
                   markers: Mapping[str, float] | None = None, termination: TerminationQualification | None = None,
-                  extra: Mapping[str, str] | None = None, description: str | None = None) -> DeviceResult:
+                  extra: Mapping[str, str] | None = None, description: str | None = None,
+                  transmission: TransmissionTrace | None = None) -> DeviceResult:
     """Each band's figures (``traces``, the headline match figure first) with the verdicts of
     those ``judged`` under ``rule``; the band's verdict combines them (the rule's text goes
-    into every band result)."""
-    results = tuple(_band_result(band, frequencies, traces, rule, judged, markers or {}) for band in bands)
+    into every band result).  The named ``markers`` are read (:mod:`lineproof.markers`), and
+    with ``transmission`` (S21 and its uncertainties) each band's group delay is recorded."""
+    head = traces[0]
+    match = MatchTrace(head.name, head.values, head.expanded) if head.name in MATCH_FIGURES else None
+    if transmission is None:
+        loss = next((t for t in traces if t.name == INSERTION_LOSS), None)
+        readings = read_markers(frequencies, markers or {}, match, None)
+        if loss is not None:  # insertion loss without S21 itself (a library call): as it is
+            readings = tuple(replace(m, insertion_loss_db=float(loss.values[metrics.marker_index(frequencies,
+                                     m.frequency_hz)])) for m in readings)
+        delays = None
+    else:
+        readings = read_markers(frequencies, markers or {}, match, transmission)
+        delays = group_delay(frequencies, transmission)[0] if frequencies.size > 1 else None
+    results = tuple(_band_result(band, frequencies, traces, rule, judged, readings, delays) for band in bands)
     return DeviceResult(device, results, datetime.now(UTC).isoformat(timespec="seconds"), dict(extra or {}),
-                        termination, description or DESCRIPTIONS[traces[0].name])
+                        termination, description or DESCRIPTIONS[traces[0].name], readings)
 
 
 def headline_first(traces: Sequence[FigureTrace], judged: Collection[str]) -> list[FigureTrace]:
     """The traces with the headline first: the first judged match figure (as-terminated,
-    input match, output match), else the first match figure there is."""
+    input match, output match), else the first match figure there is (transmission-only
+    data have none: their order stands)."""
     matches = [t for t in traces if t.name in MATCH_FIGURES]
+    if not matches:
+        return list(traces)
     head = next((t for t in matches if t.name in judged), matches[0])
     return [head] + [t for t in traces if t is not head]
 
@@ -178,6 +191,8 @@ def two_port_figures(cal: CalibrationRecord, frequencies: np.ndarray, s: two_por
     product = s21 * s12
     through = np.abs(s21)
     relative = transmission_relative_uncertainty(cal.residuals, s11, s21, s22, settings, s21_magnitude=through)
+    if cal.interpolation_error:  # a reused calibration moved onto this sweep: its estimate, of unknown phase
+        relative = np.hypot(relative, cal.interpolation_error / math.sqrt(2))
     found = [_match(cal, frequencies, s11, s22, product, settings, INPUT_MATCH, views[INPUT_MATCH]),
              _match(cal, frequencies, s22, s11, product, settings, OUTPUT_MATCH, views[OUTPUT_MATCH]),
              FigureTrace(INSERTION_LOSS, metrics.insertion_loss_db(through),
@@ -186,6 +201,16 @@ def two_port_figures(cal: CalibrationRecord, frequencies: np.ndarray, s: two_por
         found.insert(0, computed_as_terminated(cal, frequencies, s, settings, termination, relative,
                                                views[INPUT_MATCH]))
     return found
+
+
+def transmission_trace(cal: CalibrationRecord, s: two_port.Traces, settings: UncertaintySettings,
+                       found: Sequence[FigureTrace]) -> TransmissionTrace:
+    """S21 of corrected traces ``s`` with the uncertainty of its insertion loss (that of the
+    ``insertion-loss`` figure among ``found``) and of its phase (k = 2, as for insertion loss)."""
+    s11, s21, _, s22 = s
+    loss = next((t.expanded for t in found if t.name == INSERTION_LOSS), None)
+    phase = transmission_phase_uncertainty(cal.residuals, s11, s21, s22, settings, cal.interpolation_error)
+    return TransmissionTrace(s21, loss, (settings.coverage_factor or 2.0) * phase)
 
 
 def _match(cal: CalibrationRecord, frequencies: np.ndarray, gamma: np.ndarray, far: np.ndarray, product: np.ndarray,

@@ -1,7 +1,9 @@
 """The repeatability study: how much of a tolerance the measurement itself takes.
 
 n devices are each measured r times with a fresh connection every time, by k operators (or
-once, by the run's operator).  Per band, the figure judged (the worst VSWR) of every reading
+once, by the run's operator).  The k dimension is operators only: a study runs on one station,
+so reproducibility here is between people, not between stations or analyzers (run a study on
+each station to compare them).  Per band, the figure judged (the worst VSWR) of every reading
 goes into an analysis of variance of the balanced crossed design devices x operators with r
 replicates -- the ANOVA method of a gauge repeatability and reproducibility study: the
 two-factor random-effects model y = μ + P_i + O_j + (PO)_ij + ε_ijm, whose mean squares have

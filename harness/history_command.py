@@ -20,19 +20,13 @@ from lineproof.runner import DEFAULT_RECORDS
 from lineproof.store import open_store
 
 
-def _status(row: dict[str, Any], signals: tuple[str, ...] | None) -> str:
-    if signals is None:
-        return "baseline" if row["check_passed"] else "left out (disagreed with its reference)"
-    return "OUT: " + "; ".join(signals) if signals else "in control"
-
-
 def _rows(chart: ChartData) -> list[dict[str, Any]]:
     return [{
         "number": number, "measured_utc": row["measured_utc"], "run_id": row["run_id"],
         "calibration_id": row["calibration_id"], "value": row["value"], "std_dev": row["std_dev"],
         "repeats": row["repeats"], "reference": row["reference"], "en": row["en"],
-        "temperature_c": row["temperature_c"], "status": _status(row, judged.signals),
-    } for number, (row, judged) in enumerate(zip(chart.rows, chart.judged, strict=True), 1)]
+        "temperature_c": row["temperature_c"], "status": chart.status(number - 1),
+    } for number, row in enumerate(chart.rows, 1)]
 
 
 def _number(value: object, digits: int) -> str:

@@ -25,10 +25,15 @@ STOP_WORDS = frozenset({"stop", "quit", "q"})
 
 
 class StopRequested(Exception):
-    """The person at the bench asked to stop (typed a stop word, or the input ended).
+    """The person at the bench asked to stop (typed a stop word), the input ended, or Ctrl-C
+    came between a study's readings; ``reason`` says which.
 
     Not an error: the run stops between devices and can be resumed.
     """
+
+    def __init__(self, reason: str = "stopped at the operator's request") -> None:
+        super().__init__(reason)
+        self.reason = reason
 
 
 class SimulatedOperator:
@@ -70,7 +75,11 @@ class ConsoleOperator:
 
     def _answer(self, prompt: str) -> str:
         answer = self._ask(prompt)
-        if answer is None or answer.strip().lower() in STOP_WORDS:
+        if answer is None:
+            # Nobody can answer any more (stdin closed, or a file of answers ran out): a clean
+            # stop, not the person's choice, and the run can be resumed.
+            raise StopRequested("input ended (stdin closed)")
+        if answer.strip().lower() in STOP_WORDS:
             raise StopRequested()
         return answer.strip()
 

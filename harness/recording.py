@@ -9,6 +9,7 @@ The header carries everything DESIGN.md's "Records" asks for, each line behind t
 from __future__ import annotations
 
 import hashlib
+import math
 import os
 import shutil
 from collections.abc import Mapping
@@ -25,6 +26,7 @@ from lineproof.journal import RunJournal
 from lineproof.store import ResultStore
 from lineproof.touchstone import format_one_port, format_two_port, write_new_file
 from lineproof.values import (
+    BandResult,
     CalibrationRecord,
     DeviceResult,
     FigureResult,
@@ -65,17 +67,20 @@ class RunFacts:
 
 @dataclass(frozen=True)
 class MeasurementBasis:
-    """What a device's measurement rests on: the calibration, the qualified termination and the
-    last passing check of that calibration."""
+    """What a device's measurement rests on: the calibration, the qualified termination (None
+    in a transmission-only run: the device's output is on analyzer port 2) and the last
+    passing check of that calibration."""
 
     calibration: CalibrationRecord
-    qualification: TerminationQualification
-    qualification_id: int
-    qualification_utc: str
+    qualification: TerminationQualification | None
+    qualification_id: int | None
+    qualification_utc: str | None
     verification: VerificationResult | None = None
     verification_id: int | None = None
     #: The termination's measured trace and uncertainty (a ``steps.QualifiedTermination``).
     termination_data: Any = None
+    #: Where the calibration came from when the sequence reused a stored one (None: made in this run).
+    reused_from: str | None = None
 
 
 @dataclass(frozen=True)
@@ -107,7 +112,7 @@ def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResu
         ("device.model", result.device.model),
         ("device.position", position),
         ("measured_utc", result.measured_utc),
-        ("data", data or f"as-terminated input reflection, device output on {q.name}"),
+        ("data", data or f"as-terminated input reflection, device output on {q.name if q else 'port 2'}"),
         ("reference_plane", facts.reference_plane),
         ("analyzer.identity", facts.analyzer.describe()),
         ("analyzer.resource", facts.analyzer.resource),
@@ -124,20 +129,20 @@ def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResu
         ("calibration.kit_sha256", cal.kit_hash),
         ("calibration.created_utc", cal.created_utc),
         ("calibration.age_s", f"{_age_seconds(cal.created_utc, result.measured_utc):.0f}"),
-        ("termination.name", q.name),
-        ("termination.worst_vswr", f"{q.worst_vswr:.4f}"),
-        ("termination.worst_frequency_hz", f"{q.worst_frequency_hz:.10g}"),
-        ("termination.limit_vswr", f"{q.limit_vswr:.3f}"),
-        ("termination.expanded_uncertainty",
-         "not evaluated" if q.expanded_uncertainty is None else f"{q.expanded_uncertainty:.5f}"),
-        ("termination.result", "qualified" if q.passed else "rejected"),
-        ("termination.qualified_utc", basis.qualification_utc),
+        ("calibration.reused", "no: made in this run" if basis.reused_from is None
+         else f"yes: {basis.reused_from}"),
+        ("calibration.interpolation_error", "none: on the sweep's own grid" if cal.interpolation_error is None
+         else f"{cal.interpolation_error:.3g} (estimated; in the uncertainty)"),
     ]
+    items += _termination_items(q, basis.qualification_utc)
     items += _verification_items(basis.verification, position)
     for band in result.bands:
         prefix = f"band.{band.limit.name}"
+        items.append((f"{prefix}.range_hz", f"{band.limit.start_hz:.10g}..{band.limit.stop_hz:.10g}"))
+        if band.worst_reflection is None:  # transmission only: its figures follow (_figure_items)
+            items.append((f"{prefix}.verdict", band.verdict.value))
+            continue
         items += [
-            (f"{prefix}.range_hz", f"{band.limit.start_hz:.10g}..{band.limit.stop_hz:.10g}"),
             (f"{prefix}.limit_vswr", f"{band.limit.max_vswr:.3f}"),
             (f"{prefix}.worst_vswr", f"{band.worst_vswr:.4f}"),
             (f"{prefix}.worst_frequency_hz", f"{band.worst_frequency_hz:.10g}"),
@@ -150,11 +155,29 @@ def device_metadata(facts: RunFacts, basis: MeasurementBasis, result: DeviceResu
             (f"{prefix}.verdict", band.verdict.value),
         ]
     items += _figure_items(facts, result)
-    items += _uncertainty_items(uncertainty)
+    items += _group_delay_items(result) + marker_items(result)
+    transmission_only = bool(result.bands) and all(band.worst_reflection is None for band in result.bands)
+    items += _transmission_uncertainty_items(uncertainty) if transmission_only else _uncertainty_items(uncertainty)
     items += sorted(result.extra.items())
     items += [("decision_rule", result.bands[0].decision_rule if result.bands else facts.decision_rule),
               ("verdict", result.verdict.value)]
     return items
+
+
+def _termination_items(q: TerminationQualification | None, qualified_utc: str | None) -> list[tuple[str, object]]:
+    if q is None:
+        return [("termination.name", "none"), ("termination.worst_vswr", "not measured"),
+                ("termination.result", "not used: transmission only, the device's output on analyzer port 2")]
+    return [
+        ("termination.name", q.name),
+        ("termination.worst_vswr", f"{q.worst_vswr:.4f}"),
+        ("termination.worst_frequency_hz", f"{q.worst_frequency_hz:.10g}"),
+        ("termination.limit_vswr", f"{q.limit_vswr:.3f}"),
+        ("termination.expanded_uncertainty",
+         "not evaluated" if q.expanded_uncertainty is None else f"{q.expanded_uncertainty:.5f}"),
+        ("termination.result", "qualified" if q.passed else "rejected"),
+        ("termination.qualified_utc", qualified_utc),
+    ]
 
 
 def _verification_items(verification: VerificationResult | None, position: int) -> list[tuple[str, object]]:
@@ -189,16 +212,83 @@ def _uncertainty_items(uncertainty: np.ndarray | None) -> list[tuple[str, object
     ]
 
 
+#: How the uncertainty of insertion loss corrected by a thru response is found.
+NORMALIZATION_METHOD = ("thru response (normalization): the mismatch it leaves bounded from the analyzer's stated raw "
+                        "source and load match and the device's match (passive bound, or as stated), U-shaped "
+                        "(Harris and Warner 1981); the thru statement, its connection and trace noise; GUM (JCGM 100:2008)")
+
+
+def _transmission_uncertainty_items(uncertainty: np.ndarray | None) -> list[tuple[str, object]]:
+    if uncertainty is None:
+        return [("uncertainty", "not evaluated"), ("uncertainty.method", "none")]
+    return [
+        ("uncertainty", "expanded uncertainty of insertion loss (dB) at every point"),
+        ("uncertainty.method", NORMALIZATION_METHOD),
+        ("uncertainty.coverage", "expanded, k = 2 (95.45 %), k from the distribution where a bounded term dominates"),
+        ("uncertainty.max_db", f"{float(np.max(uncertainty)):.4f}"),
+        ("uncertainty.mean_db", f"{float(np.mean(uncertainty)):.4f}"),
+    ]
+
+
 def _figure_items(facts: RunFacts, result: DeviceResult) -> list[tuple[str, object]]:
     """What the verdicts are on and, per band, every figure of a two-port measurement."""
     items: list[tuple[str, object]] = [("figure", result.figure), ("figures.judged", ", ".join(facts.figures_judged))]
     if facts.as_terminated:
         items.append(("figures.as_terminated", AS_TERMINATED_WAYS[facts.as_terminated]))
     for band in result.bands:
-        for figure in band.figures if len(band.figures) > 1 else ():  # one figure: the band's own keys
+        for figure in band.figures if _own_keys(band) else ():  # one match figure: the band's own keys
             prefix = f"band.{band.limit.name}.{figure.figure}"
             items += [(f"{prefix}.{name}", value) for name, value in figure_texts(figure)]
     return items
+
+
+_UNRESOLVED = "not resolved: the phase turns more than 90 degrees between sweep points (sweep more points)"
+
+
+def _group_delay_items(result: DeviceResult) -> list[tuple[str, object]]:
+    items: list[tuple[str, object]] = []
+    for band in result.bands:
+        if band.group_delay_s is not None:
+            low, high = band.group_delay_s
+            prefix = f"band.{band.limit.name}.group_delay"
+            items += [(f"{prefix}.min_s", _UNRESOLVED if math.isnan(low) else f"{low:.6g}"),
+                      (f"{prefix}.max_s", _UNRESOLVED if math.isnan(high) else f"{high:.6g}")]
+    return items
+
+
+def marker_items(result: DeviceResult) -> list[tuple[str, object]]:
+    """Each marker's reading as metadata: where it was read, then what the data hold there."""
+    items: list[tuple[str, object]] = []
+    for marker in result.markers:
+        prefix = f"marker.{marker.name}"
+        items.append((f"{prefix}.frequency_hz", f"{marker.frequency_hz:.10g}"))
+        if marker.reflection is not None:
+            items += [(f"{prefix}.figure", marker.figure), (f"{prefix}.vswr", f"{marker.vswr:.4f}"),
+                      (f"{prefix}.return_loss_db", f"{marker.return_loss_db:.2f}"),
+                      (f"{prefix}.expanded_uncertainty", _or_none(marker.expanded_uncertainty, ".5f"))]
+        if marker.insertion_loss_db is not None:
+            items += [(f"{prefix}.insertion_loss_db", f"{marker.insertion_loss_db:.4f}"),
+                      (f"{prefix}.insertion_loss_expanded_uncertainty_db",
+                       _or_none(marker.insertion_loss_uncertainty_db, ".4f"))]
+        if marker.phase_deg is not None:
+            items += [(f"{prefix}.phase_deg", f"{marker.phase_deg:.3f}"),
+                      (f"{prefix}.phase_expanded_uncertainty_deg", _or_none(marker.phase_uncertainty_deg, ".3f"))]
+        if marker.group_delay_s is not None:
+            resolved = not math.isnan(marker.group_delay_s)
+            items += [(f"{prefix}.group_delay_s", f"{marker.group_delay_s:.6g}" if resolved else _UNRESOLVED),
+                      (f"{prefix}.group_delay_expanded_uncertainty_s",
+                       _or_none(marker.group_delay_uncertainty_s if resolved else None, ".3g"))]
+    return items
+
+
+def _or_none(value: float | None, spec: str) -> str:
+    return "not evaluated" if value is None else format(value, spec)
+
+
+def _own_keys(band: BandResult) -> bool:
+    """Whether a band's figures are recorded each under its own keys: with more than one, or
+    when the one there is is not a match figure (transmission only)."""
+    return len(band.figures) > 1 or (band.worst_reflection is None and bool(band.figures))
 
 
 #: How a two-port run found the as-terminated figure, as the records say it.
@@ -234,10 +324,12 @@ def band_metrics(result: DeviceResult) -> dict[tuple[str, str], tuple[float, str
     each figure's worst, mean, where, uncertainty, limit and verdict (named ``<figure>.<what>``)."""
     found: dict[tuple[str, str], tuple[float, str]] = {}
     for band in result.bands:
-        found[(band.limit.name, "worst_mismatch_loss")] = (float(metrics.mismatch_loss_db(band.worst_reflection)), "dB")
-        found[(band.limit.name, "mean_return_loss")] = (float(metrics.return_loss_db(band.mean_reflection)), "dB")
-        found[(band.limit.name, "worst_reflection")] = (band.worst_reflection, "1")
-        for figure in band.figures if len(band.figures) > 1 else ():
+        if band.worst_reflection is not None and band.mean_reflection is not None:
+            found[(band.limit.name, "worst_mismatch_loss")] = (float(metrics.mismatch_loss_db(band.worst_reflection)),
+                                                               "dB")
+            found[(band.limit.name, "mean_return_loss")] = (float(metrics.return_loss_db(band.mean_reflection)), "dB")
+            found[(band.limit.name, "worst_reflection")] = (band.worst_reflection, "1")
+        for figure in band.figures if _own_keys(band) else ():
             unit = "dB" if figure.figure == INSERTION_LOSS else "1"
             values = {"worst": (figure.worst, unit), "mean": (figure.mean, unit),
                       "worst_frequency": (figure.worst_frequency_hz, "Hz"),
@@ -249,6 +341,9 @@ def band_metrics(result: DeviceResult) -> dict[tuple[str, str], tuple[float, str
                 values["worst_vswr"] = (float(metrics.vswr_from_reflection(figure.worst)), "ratio")
             found.update({(band.limit.name, f"{figure.figure}.{name}"): value for name, value in values.items()
                           if value[0] is not None})
+        if band.group_delay_s is not None and not any(math.isnan(x) for x in band.group_delay_s):
+            found[(band.limit.name, "group_delay.min")] = (band.group_delay_s[0], "s")
+            found[(band.limit.name, "group_delay.max")] = (band.group_delay_s[1], "s")
     return found
 
 

@@ -93,7 +93,7 @@ def _run_section(records: RunRecords) -> str:
     items = [
         ("run", run["run_id"]), ("status", run["status"] + (f" ({run['status_reason']})" if run.get("status_reason") else "")),
         ("sequence", run["sequence_name"]), ("sequence SHA-256", run.get("sequence_sha256")),
-        ("station", run["station"]), ("operator", run["operator"]),
+        ("station", run["station"]), _operator_item(records),
         ("analyzer", f"{run['analyzer']} at {run['resource']} (profile {run.get('analyzer_profile')})"),
         ("sweep", run["sweep_plan"]), ("reference plane", run.get("reference_plane")),
         ("decision rule", run.get("decision_rule")), ("started / finished (UTC)", f"{run['started_utc']} / {run.get('finished_utc') or '-'}"),
@@ -111,6 +111,16 @@ def _run_section(records: RunRecords) -> str:
     return "<dl>" + "".join(f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in items) + "</dl>"
 
 
+def _operator_item(records: RunRecords) -> tuple[str, str]:
+    """Who measured: a repeatability study's operators (its readings name them), else the
+    run's operator."""
+    started_by = str(records.run["operator"])
+    names = list(dict.fromkeys(str(r["operator"]) for r in records.study_readings))
+    if not names:
+        return "operator", started_by
+    return "operators (the study's)", ", ".join(names) + ("" if started_by in names else f"; run started by {started_by}")
+
+
 def _verdict_table(records: RunRecords) -> str:
     rows = []
     for device in records.devices:
@@ -118,15 +128,26 @@ def _verdict_table(records: RunRecords) -> str:
             first = index == 0
             rows.append([
                 _e(device.row["position"]) if first else "", _e(device.serial) if first else "",
-                _e(device.row["model"]) if first else "", _e(band["band"]), _number(band["worst_vswr"]),
-                _number(band["worst_frequency_hz"] / 1e6, 3), _number(band["limit_vswr"], 3),
-                _number(band["expanded_uncertainty"], 5), _verdict(band["verdict"]),
+                _e(device.row["model"]) if first else "", _e(band["band"]), *_headline_cells(device, band),
+                _verdict(band["verdict"]),
                 _verdict(device.row["verdict"]) if first else "",
                 _suspect_note(records, device) if first else "",
             ])
     headers = ["#", "serial", "model", "band", "worst VSWR", "at MHz", "limit", "U(|Γ|), k=2", "band", "device",
                "note"]
     return _table(headers, rows, frozenset({0, 4, 5, 6, 7}))
+
+
+def _headline_cells(device: DeviceRecord, band: dict[str, Any]) -> list[str]:
+    """Worst, where, limit and U of the band's headline: VSWR, or -- transmission-only data --
+    insertion loss in dB."""
+    if band.get("worst_vswr") is not None:
+        return [_number(band["worst_vswr"]), _number(band["worst_frequency_hz"] / 1e6, 3),
+                _number(band["limit_vswr"], 3), _number(band["expanded_uncertainty"], 5)]
+    loss = device.figure(str(band["band"]), INSERTION_LOSS)
+    at = loss.get("worst_frequency")
+    return [f"IL {_number(loss.get('worst'), 3)} dB", "" if at is None else _number(at / 1e6, 3),
+            f"{_number(loss.get('limit'), 3)} dB", f"{_number(loss.get('expanded_uncertainty'), 3)} dB"]
 
 
 def _suspect_note(records: RunRecords, device: DeviceRecord) -> str:
@@ -143,10 +164,17 @@ def _suspect_section(records: RunRecords) -> str:
         return ""
     rows = [[_e(d.row["position"]), _e(d.serial), _verdict(d.row["verdict"]), _e(d.row.get("suspect_reason")),
              _suspect_note(records, d)] for d in suspect]
+    left = sum(1 for d in suspect if d.serial not in records.remeasured)
+    command = f"<code>lineproof run --remeasure-suspect {_e(records.run['run_id'])}</code>"
+    if left == 0:
+        again = "All of them have been measured again (see \"now\")."
+    elif left < len(suspect):
+        again = f"{len(suspect) - left} of them have been measured again (see \"now\"); measure the rest with {command}."
+    else:
+        again = f"Measure them again with {command}."
     return ("<h2>Suspect results</h2><p class='note'>A check of the calibration failed after these devices were "
             "measured and before any later passing check: their results are in doubt. Their files are unchanged; "
-            "a note beside each (<code>.suspect.json</code>) says so. Measure them again with "
-            f"<code>lineproof run --remeasure-suspect {_e(records.run['run_id'])}</code>.</p>"
+            f"a note beside each (<code>.suspect.json</code>) says so. {again}</p>"
             + _table(["#", "serial", "verdict", "why", "now"], rows, frozenset({0})))
 
 
@@ -202,6 +230,38 @@ def _figures_table(records: RunRecords) -> str:
     return "<h2>Figures</h2>" + note + _table(headers, rows, frozenset({3, 4, 5, 6}))
 
 
+def _plus_minus(value: object, u: object, digits: int, scale: float = 1.0) -> str:
+    if value is None:
+        return ""
+    text = _number(float(value) * scale, digits)  # type: ignore[arg-type]
+    return text if u is None else f"{text} ± {_number(float(u) * scale, digits)}"  # type: ignore[arg-type]
+
+
+def _markers_section(records: RunRecords) -> str:
+    """Each device's readings at the sequence's markers, and its group delay per band."""
+    rows = [[_e(d.serial), _e(m["marker"]), _number(m["frequency_hz"] / 1e6, 3), _e(m.get("figure") or ""),
+             _number(m.get("vswr")), _plus_minus(m.get("expanded_uncertainty"), None, 5),
+             _plus_minus(m.get("insertion_loss_db"), m.get("insertion_loss_expanded_uncertainty_db"), 3),
+             _plus_minus(m.get("phase_deg"), m.get("phase_expanded_uncertainty_deg"), 2),
+             _plus_minus(m.get("group_delay_s"), m.get("group_delay_expanded_uncertainty_s"), 3, 1e9)]
+            for d in records.devices for m in d.markers]
+    delays = [[_e(d.serial), _e(band["band"]), _number(values["group_delay.min"][0] * 1e9, 3),
+               _number(values["group_delay.max"][0] * 1e9, 3)]
+              for d in records.devices for band in d.bands
+              if "group_delay.min" in (values := d.metrics.get(str(band["band"]), {}))]
+    parts = []
+    if rows:
+        parts.append("<h2>Markers</h2><p class='note'>Read at the sweep point nearest each marker: the headline match "
+                     "figure, insertion loss, the phase of S21 and its group delay, each ± its expanded uncertainty "
+                     "(k = 2; the group delay's from the phase's at the neighbouring points, a bound).</p>"
+                     + _table(["serial", "marker", "MHz", "figure", "VSWR", "U(|Γ|)", "IL (dB)", "phase (°)",
+                               "group delay (ns)"], rows, frozenset({2, 4, 5, 6, 7, 8})))
+    if delays:
+        parts.append("<h2>Group delay</h2>" + _table(["serial", "band", "smallest (ns)", "largest (ns)"], delays,
+                                                     frozenset({2, 3})))
+    return "".join(parts)
+
+
 def _calibration_section(records: RunRecords) -> str:
     calibrations = _table(
         ["calibration", "made (UTC)", "method", "kit", "analyzer", "sweep"],
@@ -226,7 +286,9 @@ def _verification_section(records: RunRecords) -> str:
         per_band = "; ".join(f"{b['band']}: |Γ| {b['measured_reflection']:.4f} vs {b['reference_reflection']:.4f}"
                              + ("" if b.get("en") is None else f" ± {b['tolerance']:.4f}, En {b['en']:.2f}")
                              for b in bands)
-        chart = {None: "not judged (baseline)", 1: "in control", 0: f"OUT: {check.get('control_signals')}"}[check.get("in_control")]
+        out = "OUT, failed" if not check["passed"] else "OUT, warning -- the calibration is made again"
+        chart = {None: "not judged (baseline)", 1: "in control",
+                 0: f"{out}: {check.get('control_signals')}"}[check.get("in_control")]
         rows.append([_e(check["measured_utc"]), _e(check["devices_before"]), _e(check["check_standard"]),
                      _number(check["worst_deviation"], 5), _number(check.get("en"), 2), _e(chart),
                      _verdict("pass" if check["passed"] else "fail"), _e(per_band)])
@@ -241,11 +303,14 @@ def _charts_section(records: RunRecords) -> str:
     if not records.charts:
         return ""
     parts = ["<h2>Control charts</h2><p class='note'>Each check standard's history on this station and analyzer "
-             "(NIST/SEMATECH e-Handbook of Statistical Methods, ch. 2): the first K checks that agreed with their "
-             "reference set the accepted value and the limits ±t(1-α/2; K-1)·s (α = 0.0027); the shaded zones at "
-             "1 s and 2 s serve the run rules that catch slow drift (Western Electric 1956: 2 of 3 beyond 2 s, 4 of "
-             "5 beyond 1 s, 8 on one side; Nelson 1984: 6 rising or falling). Below, the standard deviation of "
-             "each check's repeats against s1·sqrt(F).</p>"]
+             "(NIST/SEMATECH e-Handbook of Statistical Methods, §2.3.5.2 and §2.2.3.1): the first agreeing check of "
+             "each of the first K calibrations sets the accepted value and the limits ±t(1-α/2; K-1)·s "
+             "(α = 0.0027); a check beyond them fails. The shaded zones at 1 s and 2 s serve the run rules that "
+             "catch slow drift (Western Electric 1956: 2 of 3 beyond 2 s, 4 of 5 beyond 1 s, 8 on one side; "
+             "Nelson 1984: 6 rising or falling), judged on one check per calibration -- checks made with one "
+             "calibration share its error. Below, the standard deviation of each check's repeats against "
+             "s1·sqrt(F). A run rule or the precision chart warns: the calibration is made again, no result is "
+             "put in doubt.</p>"]
     for chart in records.charts:
         if chart.baseline is None:
             parts.append(f"<p class='note'>{_e(chart.key.describe())}: {len(chart.rows)} check(s) so far; the "
@@ -261,10 +326,11 @@ def _plots_section(records: RunRecords) -> str:
         parts.append(_image(overlay_plot(readable, records.band_limits), "VSWR of every device"))
     parts.append("<h2>Devices</h2>")
     for device in records.devices:
-        if device.reflection is None:
+        if device.problem is not None or device.frequencies_hz is None:
             parts.append(f"<p class='note'>{_e(device.serial)}: {_e(device.problem)}</p>")
             continue
-        parts.append(_image(device_plot(device, records.band_limits), f"VSWR of {device.serial}"))
+        if device.reflection is not None:  # none in a transmission-only record
+            parts.append(_image(device_plot(device, records.band_limits), f"VSWR of {device.serial}"))
         if device.s_parameters is not None:
             parts.append(_image(insertion_loss_plot(device, records.band_limits), f"insertion loss of {device.serial}"))
         if device.uncertainty is None:
@@ -278,7 +344,7 @@ def render_html(records: RunRecords) -> str:
         f"<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'><title>lineproof report {_e(run_id)}</title>"
         f"<style>{_STYLE}</style></head><body><h1>Run report: {_e(records.run['sequence_name'])}</h1>"
         f"{_run_section(records)}{_study_section(records)}<h2>Verdicts</h2>{_verdict_table(records)}"
-        f"{_figures_table(records)}{_suspect_section(records)}"
+        f"{_figures_table(records)}{_markers_section(records)}{_suspect_section(records)}"
         f"{_calibration_section(records)}"
         f"{_verification_section(records)}{_plots_section(records)}"
         f"<p class='note'>Written by lineproof {_e(__version__)} from the run's records.</p></body></html>"

@@ -31,10 +31,17 @@ class DeviceRecord:
     arrays: dict[str, np.ndarray] = field(default_factory=dict)
     #: band -> metric -> (value, unit), from ``band_metrics``
     metrics: dict[str, dict[str, tuple[float | None, str]]] = field(default_factory=dict)
+    #: the readings at the sequence's named markers (rows of ``markers``)
+    markers: list[dict[str, Any]] = field(default_factory=list)
 
     @property
     def serial(self) -> str:
         return str(self.row["serial"])
+
+    @property
+    def transmission_only(self) -> bool:
+        """A thru-response record: S21 alone (the other parameters NaN, not measured)."""
+        return self.s_parameters is not None and bool(np.isnan(self.s_parameters[:, 0, 0]).all())
 
     def figure(self, band: str, name: str) -> dict[str, float | None]:
         """One figure of a band as recorded (empty for a one-port record): worst, mean, limit,
@@ -84,6 +91,9 @@ def _read_trace(record: DeviceRecord) -> None:
     record.metadata = read_metadata(network.comments)
     if network.nports == 2:
         record.s_parameters = np.asarray(network.s)
+        if record.transmission_only:
+            record.reflection = None  # nothing to plot as VSWR; the insertion-loss plot shows it
+            return
         # the headline figure is the as-terminated reflection when the record has it
         kept = record.arrays.get("as-terminated.reflection")
         if kept is not None and kept.shape == record.reflection.shape and record.metadata.get(
@@ -108,6 +118,8 @@ def load_run_records(store: ResultStore, run_id: str, read_traces: bool = True) 
         for metric in store.rows("SELECT band, metric, value, unit FROM band_metrics WHERE device_row = ?",
                                  (row["device_row"],)):
             record.metrics.setdefault(metric["band"], {})[metric["metric"]] = (metric["value"], metric["unit"])
+        record.markers = store.rows("SELECT * FROM markers WHERE device_row = ? ORDER BY frequency_hz, marker",
+                                    (row["device_row"],))
         if read_traces:
             _read_trace(record)
         devices.append(record)

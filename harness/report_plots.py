@@ -143,23 +143,16 @@ def overlay_plot(devices: Sequence[DeviceRecord], limits: Sequence[dict[str, Any
 
 _STATUS_STYLE = {  # marker, colour, label
     "baseline": ("o", "#7f8c8d", "baseline"),
+    "not judged": ("o", "#bdc3c7", "not judged (its calibration is in the baseline)"),
     "in control": ("o", "#1f77b4", "in control"),
-    "signal": ("D", "#c0392b", "out of control"),
-    "left out": ("x", "#d68910", "disagreed with its reference (not in the baseline)"),
+    "warning": ("^", "#d68910", "out of control: warning (calibration made again)"),
+    "failed": ("D", "#c0392b", "beyond the limits: check failed"),
+    "left out": ("x", "#7b241c", "disagreed with its reference (not in the baseline)"),
 }
 
 
 def _statuses(chart: ChartData) -> list[str]:
-    statuses = []
-    in_baseline = 0
-    for row, judged in zip(chart.rows, chart.judged, strict=True):
-        if judged.signals is None:
-            usable = bool(row["check_passed"]) and (chart.baseline is None or in_baseline < chart.baseline.count)
-            in_baseline += usable
-            statuses.append("baseline" if usable else "left out")
-        else:
-            statuses.append("signal" if judged.signals else "in control")
-    return statuses
+    return [chart.category(i) for i in range(len(chart.rows))]
 
 
 def _mean_chart(axes: Any, chart: ChartData, statuses: list[str]) -> None:
@@ -211,10 +204,14 @@ def _spread_chart(axes: Any, chart: ChartData) -> None:
     axes.grid(True, linewidth=0.4, alpha=0.6)
 
 
-def control_chart_plot(chart: ChartData) -> bytes:
-    """A check standard's control chart: its figure per check with the accepted value, the
-    t-based limits and the 1 s and 2 s zones of the run rules, each point marked by what the
-    chart said of it; below it, when checks are repeated, the chart of their standard deviations."""
+def control_chart_figure(chart: ChartData) -> Any:
+    """A check standard's control chart as a matplotlib Figure: its figure per check with the
+    accepted value, the t-based limits and the 1 s and 2 s zones of the run rules, each point
+    marked by what the chart said of it; below it, when checks are repeated, the chart of their
+    standard deviations.  The title names the check standard, the station and the analyzer, each
+    wrapped to the figure's width."""
+    import textwrap
+
     from matplotlib.figure import Figure
 
     repeated = any(r["std_dev"] is not None for r in chart.rows)
@@ -225,9 +222,15 @@ def control_chart_plot(chart: ChartData) -> bytes:
         top, bottom = figure.add_subplot(), None
     _mean_chart(top, chart, _statuses(chart))
     key = chart.key
-    top.set_title(f"check standard {key.check_standard}, {key.figure}\n{key.station}; {key.analyzer}", fontsize=8)
+    lines = [f"check standard {key.check_standard}, {key.figure}", f"station: {key.station}", f"analyzer: {key.analyzer}"]
+    top.set_title("\n".join(textwrap.fill(line, 110) for line in lines), fontsize=8)
     if bottom is not None:
         _spread_chart(bottom, chart)
     else:
         top.set_xlabel("check (oldest first)")
-    return _png(figure)
+    return figure
+
+
+def control_chart_plot(chart: ChartData) -> bytes:
+    """:func:`control_chart_figure` as PNG bytes."""
+    return _png(control_chart_figure(chart))

@@ -16,7 +16,8 @@ from lineproof.runner import DEFAULT_RECORDS, check_run_id
 from lineproof.store import open_store
 
 _DEVICE_COLUMNS = ("run_id", "position", "serial", "model", "measured_utc", "verdict", "touchstone")
-_RUN_COLUMNS = ("run_id", "started_utc", "status", "sequence_name", "station", "operator", "devices", "failed")
+_RUN_COLUMNS = ("run_id", "started_utc", "status", "sequence_name", "station", "operator", "devices", "failed",
+                "indeterminate")
 
 
 def _date(text: str | None, option: str, end: bool = False) -> str | None:
@@ -68,7 +69,8 @@ def query_runs(database: Path) -> list[dict[str, Any]]:
     with open_store(database) as store:
         return store.rows(
             "SELECT r.run_id, r.started_utc, r.status, r.sequence_name, r.station, r.operator,"
-            " COUNT(d.device_row) AS devices, SUM(CASE WHEN d.verdict != 'pass' THEN 1 ELSE 0 END) AS failed"
+            " COUNT(d.device_row) AS devices, SUM(CASE WHEN d.verdict = 'fail' THEN 1 ELSE 0 END) AS failed,"
+            " SUM(CASE WHEN d.verdict = 'indeterminate' THEN 1 ELSE 0 END) AS indeterminate"
             " FROM runs r LEFT JOIN devices d ON d.run_id = r.run_id GROUP BY r.run_id ORDER BY r.started_utc")
 
 

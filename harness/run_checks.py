@@ -6,15 +6,18 @@ holds.
 The policy: a calibration holds while (1) it is younger than the sequence's
 ``valid_for_minutes``, (2) the analyzer's temperature (when its profile can read it) has
 moved less than ``max_temperature_change_k`` since it was made, and (3) its last check
-passed -- the check standard agreed with its reference and its control chart showed no
-signal.  When it no longer holds, an unattended run calibrates again (and qualifies the
-termination and verifies again) before the next device; an attended one stops at a prompt
-until the person has the standards ready (:mod:`lineproof.run_steps`).
+passed and was in statistical control.  When it no longer holds, an unattended run calibrates
+again (and qualifies the termination and verifies again) before the next device; an attended
+one stops at a prompt until the person has the standards ready (:mod:`lineproof.run_steps`).
 
-A failed check marks every device of the run measured with that calibration since the last
-passing check as suspect -- in the database (with the reason and the failed check), in a
-sidecar file beside each result file (``<file>.suspect.json``; the Touchstone file itself is
-never rewritten), in the report and in the JSON summary.
+A check **fails** when the check standard disagrees with its reference (En > 1, or the fixed
+tolerance) or a band's point lies beyond its control limits.  A failed check marks every
+device of the run measured with that calibration since the last passing check as suspect --
+in the database (with the reason and the failed check), in a sidecar file beside each result
+file (``<file>.suspect.json``; the Touchstone file itself is never rewritten), in the report
+and in the JSON summary.  A run rule or the precision chart only **warns**
+(:mod:`lineproof.control_chart`): the check passes and its results stand, but the calibration
+no longer holds.
 """
 
 from __future__ import annotations
@@ -27,7 +30,7 @@ from pathlib import Path
 from typing import Any
 
 from lineproof import steps
-from lineproof.check_history import combined_signals, history_rows, judge_new_points
+from lineproof.check_history import beyond_limits, combined_signals, history_rows, judge_new_points
 from lineproof.errors import InputError
 from lineproof.journal import RunJournal
 from lineproof.recording import RunFacts, RunFolder
@@ -75,9 +78,41 @@ class CalibrationPolicy:
                 and abs(temperature_c - cal.temperature_c) > self.max_temperature_change_k):
             return (f"the analyzer's temperature moved from {cal.temperature_c:.2f} to {temperature_c:.2f} °C, "
                     f"more than the {self.max_temperature_change_k:g} K it holds for")
-        if last_check is not None and not last_check.passed:
-            return f"its last check failed ({failure_reason(last_check)})"
-        return None
+        return None if last_check is None else check_problem(last_check)
+
+
+#: Checks in a row out of statistical control -- each followed by a new calibration -- that halt
+#: a run (our choice, no published source).  A warning now and then is the charts' false-alarm
+#: rate (the precision chart alone: 1 % per band and check); three in a row, each with a fresh
+#: calibration, is the process itself (a worn connector, a damaged standard).
+WARNINGS_BEFORE_HALT = 3
+
+
+def halt_reason(result: VerificationResult, first_of_calibration: bool, warnings_in_a_row: int) -> str | None:
+    """Why the run must stop after ``result`` (None: it goes on).  ``warnings_in_a_row``: the
+    checks in a row, this one included, that passed out of statistical control."""
+    if first_of_calibration and not result.passed:
+        return (f"check standard {result.check_standard} failed verification after {result.devices_before} "
+                f"device(s): {failure_reason(result)}. The calibration does not hold; results since the last "
+                "passing check are in doubt. Check the connections and the standards and resume the run: it will "
+                "calibrate again")
+    if result.passed and not result.in_control and warnings_in_a_row >= WARNINGS_BEFORE_HALT:
+        return (f"check standard {result.check_standard} is out of statistical control again, {warnings_in_a_row} "
+                f"checks in a row with a new calibration before each ({failure_reason(result)}): the measurement "
+                "process, not one calibration, has changed. Look at the check standard, the calibration standards "
+                "and the connectors, then resume the run: it will calibrate again")
+    return None
+
+
+def check_problem(result: VerificationResult) -> str | None:
+    """Why the calibration a check was made with no longer holds after it, or None: the check
+    failed (En > 1, or a point beyond the control limits), or the chart warned (a run rule, the
+    precision chart) -- the calibration is made again, but no result is put in doubt."""
+    if not result.passed:
+        return f"its last check failed ({failure_reason(result)})"
+    if not result.in_control:
+        return f"its last check was out of statistical control ({'; '.join(result.control_signals or ())})"
+    return None
 
 
 def failure_reason(result: VerificationResult) -> str:
@@ -146,18 +181,22 @@ class CheckRunner:
               drain: Callable[[], None]) -> RecordedCheck:
         """Measure the check standard with ``cal`` (after ``devices_before`` devices of the run)
         and record it; a failed check marks the devices since ``last_pass`` suspect.  ``drain``
-        finishes the recordings still running before anything is marked."""
+        finishes the recordings still running before anything is marked.  The check is recorded
+        at the analyzer's temperature before its sweeps (the conditions it set out to prove); the
+        journal has the temperature after them too."""
         check = self.spec.check_standard
         assert check is not None
         self.view.step_started(f"verifying with check standard {check.name}", total=check.repeats)
-        reading = measure_check_standard(self.measuring, cal, check.name, check.repeats)
         temperature = self.read_temperature()
+        reading = measure_check_standard(self.measuring, cal, check.name, check.repeats)
+        temperature_after = self.read_temperature() if temperature is not None else None
         result, points = judge_check(check.name, cal.calibration_id, reading, self.reference(), check.tolerance,
                                      self.spec.bands, devices_before)
         station, analyzer = self.facts.station, self.analyzer_name
         said = judge_new_points(self.store, station, analyzer, check.name, points, check.baseline_checks,
                                 result.agrees)
-        result = replace(result, control_signals=combined_signals(said), temperature_c=temperature)
+        result = replace(result, control_signals=combined_signals(said), beyond_limits=beyond_limits(said),
+                         temperature_c=temperature)
         drain()  # recorded during the check's sweeps: the lines stay in order, the marks see every device
         window = None
         after = last_pass.devices_before if last_pass is not None and last_pass.calibration_id == cal.calibration_id else 0
@@ -173,8 +212,9 @@ class CheckRunner:
             suspects = tuple(str(r[0]) for r in self.store.query(
                 "SELECT serial FROM devices WHERE suspect_verification_id = ? ORDER BY position", (row,)))
             write_suspect_notes(self.store, self.folder, self.facts.run_id)
-        self.journal.write("verified", verification_id=row, passed=result.passed, devices_before=devices_before,
-                           suspect=list(suspects))
+        self.journal.write("verified", verification_id=row, passed=result.passed, in_control=result.in_control,
+                           devices_before=devices_before, suspect=list(suspects), temperature_before_c=temperature,
+                           temperature_after_c=temperature_after)
         self.view.step_finished("")
         self.view.verification(result, reused=False)
         if suspects and window is not None:

@@ -32,7 +32,7 @@ def stop_on_ctrl_c(stop: StopSignal, view: RunView) -> Iterator[None]:
         if stop.requested or stop.at_prompt:
             raise KeyboardInterrupt
         stop.requested = True
-        view.note("Ctrl-C: stopping after the current device (press Ctrl-C again to stop at once)")
+        view.note("Ctrl-C: stopping after the current device or step (press Ctrl-C again to stop at once)")
 
     try:
         previous = signal.signal(signal.SIGINT, handler)
@@ -80,17 +80,18 @@ def _command(arguments: argparse.Namespace) -> int:
                 spec = load_sequence(arguments.sequence, options.station_file)
                 outcome = start_run(spec, options, view, stop)
     except InputError as exc:
-        view.close()
+        view.close(f"invalid input: {exc.problem}")
         if not arguments.json:
             raise
-        print(json.dumps({"event": "error", "kind": "invalid-input", "exit_code": 3,
-                          "problems": problems_as_json(exc)}), flush=True)
+        from lineproof.cli import error_object
+
+        print(error_object(problems_as_json(exc)), flush=True)
         return 3
     except (LineproofError, OSError) as exc:
         # An OSError here is the records' disk or folder (full, read-only, gone): the run is
         # marked failed where it could still be written, and it can be resumed.
-        view.close()
         reason = str(exc) if isinstance(exc, LineproofError) else f"cannot write the records ({exc})"
+        view.close(reason)
         if not arguments.json:
             print(f"lineproof: run could not complete: {reason}", file=sys.stderr)
             return 2

@@ -10,6 +10,8 @@ device's sweep).
 - :class:`TwoPortDevices` (one-path or SOLT): full S-parameters -- on a forward-only analyzer
   the device is turned round for its reverse direction -- and the figures of
   :mod:`lineproof.figures`, the sequence's choice judged.
+- :class:`TransmissionDevices` (thru response): S21 between the ports, normalized, its
+  insertion loss judged with the mismatch the normalization leaves in its uncertainty.
 """
 
 from __future__ import annotations
@@ -53,10 +55,12 @@ class AsTerminatedDevices:
 
     two_port = False
 
-    def __init__(self, station: steps.Station, bands: Sequence[BandLimit], rule: DecisionRule) -> None:
+    def __init__(self, station: steps.Station, bands: Sequence[BandLimit], rule: DecisionRule,
+                 markers: Mapping[str, float] | None = None) -> None:
         self.station = station
         self.bands = bands
         self.rule = rule
+        self.markers = dict(markers or {})
 
     def connect(self, device: DeviceIdentity, termination: str) -> None:
         port = self.station.port
@@ -79,7 +83,7 @@ class AsTerminatedDevices:
         corrected = calibration.correct_one_port(basis.calibration, f, acquired.raw["S11"])
         spread = steps.device_uncertainty(self.station, basis.calibration, f, corrected, basis.termination_data)
         result = steps.judge(device, f, corrected, self.bands, self.rule, spread.expanded,
-                             termination=basis.qualification)
+                             termination=basis.qualification, markers=self.markers)
         return Evaluated(result, f, corrected, spread.expanded)
 
 
@@ -89,10 +93,11 @@ class TwoPortDevices:
     two_port = True
 
     def __init__(self, station: steps.Station, bands: Sequence[BandLimit], rule: DecisionRule, method: str,
-                 judged: Sequence[str], as_terminated: str) -> None:
+                 judged: Sequence[str], as_terminated: str, markers: Mapping[str, float] | None = None) -> None:
         self.station = station
         self.bands = bands
         self.rule = rule
+        self.markers = dict(markers or {})
         self.method = method  # the calibration's (a long name of lineproof.calibration)
         self.judged = tuple(judged)
         self.as_terminated = as_terminated
@@ -128,13 +133,56 @@ class TwoPortDevices:
         found = two_port_steps.device_figures(self.station, basis.calibration, f, s, basis.termination_data,
                                               raw.get(two_port_steps.TERMINATED), views)
         ordered = figures.headline_first(found, self.judged)
+        transmission = figures.transmission_trace(basis.calibration, s, self.station.uncertainty, found)
         result = figures.judge_figures(device, f, ordered, self.bands, self.rule, self.judged,
-                                       termination=basis.qualification)
+                                       termination=basis.qualification, markers=self.markers,
+                                       transmission=transmission)
         arrays = {f"{trace.name}.expanded_uncertainty": trace.expanded for trace in found if trace.expanded is not None}
+        if transmission.phase_expanded_rad is not None:
+            arrays["phase.expanded_uncertainty"] = transmission.phase_expanded_rad
         as_terminated = next((t for t in found if t.name == figures.AS_TERMINATED), None)
         if as_terminated is not None and as_terminated.reflection is not None:
             arrays["as-terminated.reflection"] = as_terminated.reflection
         way = "computed with" if self.as_terminated == "computed" else "measured on"
         description = (f"S-parameters of the device, port 1 its input and port 2 its output ({basis.calibration.method}"
-                       f"); as-terminated figure {way} {basis.qualification.name}")
+                       f"); as-terminated figure {way} {basis.qualification.name}" if basis.qualification else
+                       f"S-parameters of the device, port 1 its input and port 2 its output ({basis.calibration.method}"
+                       "); no termination qualified, no as-terminated figure")
         return Evaluated(result, f, two_port.s_matrix(*s), ordered[0].expanded, arrays, description)
+
+
+class TransmissionDevices:
+    """Thru-response runs: S21 alone, corrected for tracking, judged on insertion loss."""
+
+    two_port = True
+
+    def __init__(self, station: steps.Station, bands: Sequence[BandLimit], rule: DecisionRule,
+                 device_max_vswr: float | None, markers: Mapping[str, float] | None = None) -> None:
+        self.station = station
+        self.bands = bands
+        self.rule = rule
+        self.device_max_vswr = device_max_vswr
+        self.markers = dict(markers or {})
+
+    def connect(self, device: DeviceIdentity, termination: str | None) -> None:
+        two_port_steps.connect_between_ports(self.station, device)
+
+    @property
+    def scan_output(self) -> str | None:
+        return "port:2"
+
+    def acquire(self, device: DeviceIdentity, termination: str | None) -> Acquired:
+        frequencies, raw = two_port_steps.sweep_device(self.station, calibration.THRU_RESPONSE_METHOD, device,
+                                                       connected=True)
+        return Acquired(frequencies, raw)
+
+    def evaluate(self, device: DeviceIdentity, acquired: Acquired, basis: MeasurementBasis) -> Evaluated:
+        f = acquired.frequencies_hz
+        result, found = two_port_steps.transmission_result(self.station, basis.calibration, device, f,
+                                                           acquired.raw["S21"], self.bands, self.rule,
+                                                           self.device_max_vswr, self.markers)
+        arrays = {"insertion-loss.expanded_uncertainty": found.loss_expanded_db,
+                  "insertion-loss.mismatch_bound": found.bounds.loss_db,
+                  "phase.expanded_uncertainty": found.phase_expanded_rad}
+        return Evaluated(result, f, two_port_steps.transmission_data(found.s21), found.loss_expanded_db, arrays,
+                         two_port_steps.NORMALIZED)

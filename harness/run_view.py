@@ -15,7 +15,7 @@ import sys
 import threading
 from typing import Any, Protocol, TextIO
 
-from lineproof.recording import RecordedDevice
+from lineproof.recording import RecordedDevice, marker_items
 from lineproof.values import BandResult, TerminationQualification, VerificationResult
 
 
@@ -31,13 +31,15 @@ class RunView(Protocol):
     def suspect_results(self, serials: list[str], reason: str, command: str) -> None: ...
     def ask(self, prompt: str) -> str | None: ...
     def run_finished(self, summary: dict[str, Any]) -> None: ...
-    def close(self) -> None: ...
+    def close(self, reason: str | None = None) -> None: ...
 
 
 def _band_text(band: BandResult) -> str:
-    text = f"{band.limit.name} {band.worst_vswr:.3f}"
-    if not math.isinf(band.limit.max_vswr):
-        text += f" (limit {band.limit.max_vswr:.2f})"
+    text = band.limit.name
+    if band.worst_vswr is not None:  # none in transmission-only data
+        text += f" {band.worst_vswr:.3f}"
+        if not math.isinf(band.limit.max_vswr):
+            text += f" (limit {band.limit.max_vswr:.2f})"
     if band.worst_insertion_loss_db is not None:
         text += f" IL {band.worst_insertion_loss_db:.3f} dB"
         if band.limit.max_insertion_loss_db is not None:
@@ -54,11 +56,12 @@ def device_line(recorded: RecordedDevice) -> str:
 
 
 def _band_json(band: BandResult) -> dict[str, Any]:
-    found: dict[str, Any] = {"band": band.limit.name, "worst_vswr": round(band.worst_vswr, 5),
+    worst = band.worst_vswr
+    found: dict[str, Any] = {"band": band.limit.name, "worst_vswr": None if worst is None else round(worst, 5),
                              "limit_vswr": None if math.isinf(band.limit.max_vswr) else band.limit.max_vswr,
                              "worst_frequency_hz": band.worst_frequency_hz,
                              "verdict": band.verdict.value}
-    if band.figures and len(band.figures) > 1:
+    if band.figures and (len(band.figures) > 1 or worst is None):
         found["figures"] = [{"figure": f.figure, "worst": round(f.worst, 6), "worst_frequency_hz": f.worst_frequency_hz,
                              "limit": f.limit, "expanded_uncertainty": f.expanded_uncertainty,
                              "verdict": None if f.verdict is None else f.verdict.value} for f in band.figures]
@@ -131,7 +134,7 @@ class ConsoleRunView:
     def verification(self, result: VerificationResult, reused: bool) -> None:
         kept = " (kept from before the interruption)" if reused else ""
         self._print(f"check after {result.devices_before} device(s): {result.describe()}{kept}",
-                    None if result.passed else "bold red")
+                    None if result.passed and result.in_control else "yellow" if result.passed else "bold red")
 
     def note(self, text: str) -> None:
         self._print(text)
@@ -170,7 +173,7 @@ class ConsoleRunView:
         if summary.get("report_command"):
             self._print(f"For the report: {summary['report_command']}")
 
-    def close(self) -> None:
+    def close(self, reason: str | None = None) -> None:
         with self._lock:
             if self._started:
                 self._progress.stop()
@@ -178,13 +181,18 @@ class ConsoleRunView:
 
 
 class JsonRunView:
-    """One JSON object per line on standard output, for a line system."""
+    """One JSON object per line on standard output, for a line system.
+
+    Steps come in pairs: every ``step-started`` is followed, before the next one, by a
+    ``step-finished`` (or, when the run ends inside the step, a ``step-failed`` with the
+    reason) naming the same step."""
 
     def __init__(self, out: TextIO | None = None, prompts: TextIO | None = None, stdin: TextIO | None = None) -> None:
         self._out = out or sys.stdout
         self._prompts = prompts or sys.stderr
         self._stdin = stdin or sys.stdin
         self._lock = threading.RLock()
+        self._step: str | None = None  # the step started and not yet finished
 
     def _emit(self, event: str, **fields: Any) -> None:
         with self._lock:
@@ -196,20 +204,30 @@ class JsonRunView:
                    resumed=resumed)
 
     def step_started(self, label: str, total: int | None = None) -> None:
-        self._emit("step-started", step=label)
+        with self._lock:
+            self._step = label
+            self._emit("step-started", step=label)
 
     def step_advanced(self, note: str = "") -> None:
         pass
 
     def step_finished(self, text: str) -> None:
-        if text:
-            self._emit("step-finished", text=text)
+        with self._lock:
+            step, self._step = self._step, None
+            self._emit("step-finished", step=step, text=text)
+
+    def _step_failed(self, reason: str) -> None:
+        with self._lock:
+            step, self._step = self._step, None
+            if step is not None:
+                self._emit("step-failed", step=step, reason=reason)
 
     def device_recorded(self, recorded: RecordedDevice) -> None:
         result = recorded.result
         self._emit("device", position=recorded.position, serial=result.device.serial, model=result.device.model,
                    verdict=result.verdict.value, measured_utc=result.measured_utc, file=str(recorded.file),
-                   figure=result.figure, bands=[_band_json(b) for b in result.bands])
+                   figure=result.figure, bands=[_band_json(b) for b in result.bands],
+                   markers=dict(marker_items(result)))
 
     def qualification(self, result: TerminationQualification, reused: bool) -> None:
         self._emit("termination", name=result.name, worst_vswr=round(result.worst_vswr, 5),
@@ -220,7 +238,7 @@ class JsonRunView:
                    worst_deviation=round(result.sweep_worst_deviation, 6), tolerance=result.tolerance,
                    en=None if result.en is None else round(result.en, 4), agrees=result.agrees,
                    control_signals=None if result.control_signals is None else list(result.control_signals),
-                   passed=result.passed, reused=reused)
+                   in_control=result.in_control, passed=result.passed, reused=reused)
 
     def note(self, text: str) -> None:
         self._emit("note", text=text)
@@ -236,7 +254,8 @@ class JsonRunView:
         return _read_line(self._stdin)
 
     def run_finished(self, summary: dict[str, Any]) -> None:
+        self._step_failed(str(summary.get("reason") or summary.get("status")))
         self._emit("run-finished", **summary)
 
-    def close(self) -> None:
-        pass
+    def close(self, reason: str | None = None) -> None:
+        self._step_failed(reason or "the run stopped")

@@ -7,9 +7,9 @@ the sequence, the journal, one Touchstone file per committed device) and the jou
 :func:`resume_run` continues a run that stopped -- Ctrl-C, a halt, a crash, a kill -- without
 losing or repeating a device, keeping the calibration only while it is still valid.
 
-Statuses: ``running``, ``complete``, ``interrupted`` (stopped between devices),
-``halted`` (a step found the run must not go on), ``failed`` (an instrument or input error).
-Every status but ``complete`` can be resumed.
+Statuses: ``running``, ``complete``, ``interrupted`` (stopped between devices or steps),
+``halted`` (a step found the run must not go on, or the batch ended with no device recorded),
+``failed`` (an instrument or input error).  Every status but ``complete`` can be resumed.
 """
 
 from __future__ import annotations
@@ -25,6 +25,7 @@ from pathlib import Path
 from typing import Any
 
 from lineproof import __version__, calstore
+from lineproof.calibration import same_grid
 from lineproof.calkit import load_kit
 from lineproof.errors import CalibrationError, InputError, LineproofError, RunHalted
 from lineproof.journal import JOURNAL_NAME, RunJournal, read_journal
@@ -37,12 +38,10 @@ from lineproof.sequence import SequenceSpec, check_sequence_text, resolve_path
 from lineproof.sequence_methods import TWO_PORT_METHODS, judged_figures
 from lineproof.stations import OpenStation, open_station
 from lineproof.steps import QualifiedTermination
-from lineproof.store import ResultStore, open_store, unpack_arrays
+from lineproof.store import DATABASE_NAME, DEFAULT_RECORDS, ResultStore, open_store, unpack_arrays
 from lineproof.touchstone import write_new_file
 from lineproof.values import CalibrationRecord, InstrumentIdentity, TerminationQualification, VerificationResult
 
-DEFAULT_RECORDS = Path("lineproof-records")
-DATABASE_NAME = "results.sqlite"
 SEQUENCE_COPY = "sequence.toml"
 STATION_COPY = "station.toml"
 RUN_ID_PATTERN = re.compile(r"^run-[0-9]{8}T[0-9]{6}Z-[0-9a-f]{6}$")
@@ -124,15 +123,31 @@ def _operator_name(given: str) -> str:
         return "not given"
 
 
+LOCK_NAME = "run.lock"
+
+
+@dataclass
+class _HeldLock:
+    """The run's lock while this process holds it; ``finished`` (set when the run completes)
+    removes the lock file as it is released -- a complete run is never carried out again."""
+
+    path: Path
+    finished: bool = False
+
+
 @contextmanager
-def _run_lock(folder: Path) -> Iterator[None]:
-    """One process per run at a time (POSIX advisory lock, released by the OS if killed)."""
+def _run_lock(folder: Path) -> Iterator[_HeldLock]:
+    """One process per run at a time (POSIX advisory lock, released by the OS if killed).  The
+    lock file stays beside a run that can be resumed, and goes when the run completes."""
     folder.mkdir(parents=True, exist_ok=True)
-    with open(folder / "run.lock", "a+") as handle:
+    held = _HeldLock(folder / LOCK_NAME)
+    with open(held.path, "a+") as handle:
         try:
             import fcntl
         except ImportError:  # pragma: no cover - Windows: no advisory lock
-            yield
+            yield held
+            if held.finished:
+                held.path.unlink(missing_ok=True)
             return
         try:
             fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
@@ -140,8 +155,12 @@ def _run_lock(folder: Path) -> Iterator[None]:
             raise InputError("this run is being carried out by another lineproof process", path=str(folder),
                              fix="wait for it to finish, or stop it first") from exc
         try:
-            yield
+            yield held
         finally:
+            if held.finished:
+                # Unlinked while still locked: a process that opened it before waits on a file
+                # no longer there, and finds the run complete (resume_run checks again, locked).
+                held.path.unlink(missing_ok=True)
             fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
 
 
@@ -164,8 +183,12 @@ def _facts(spec: SequenceSpec, run_id: str, station: OpenStation, operator: str)
         reference_plane=station.spec.reference_plane, decision_rule=spec.decision_rule,
         figures_judged=judged_figures(spec), method_chosen=spec.calibration.chosen if spec.calibration else "",
         as_terminated=spec.measurement.as_terminated if spec.calibration and spec.calibration.method in TWO_PORT_METHODS
-        else "",
+        and spec.termination is not None else "",
     )
+
+
+#: Why a run whose steps all finished is not complete: its batch recorded no device.
+NO_DEVICE_MEASURED = "no device measured: the batch ended before any device was recorded"
 
 
 def _execute(runner: StepRunner, store: ResultStore, journal: RunJournal, outcome: RunOutcome) -> RunOutcome:
@@ -173,10 +196,13 @@ def _execute(runner: StepRunner, store: ResultStore, journal: RunJournal, outcom
     status, reason = "failed", "stopped by an unexpected error"
     raised: BaseException | None = None
     try:
-        runner.run()
-        status, reason = ("interrupted", "stopped by Ctrl-C between devices") if runner.stop.requested else ("complete", None)
-    except StopRequested:
-        status, reason = "interrupted", "stopped at the operator's request"
+        completed = runner.run()
+        status, reason = ("complete", None) if completed else ("interrupted", runner.stopped_because or "stopped by Ctrl-C")
+        if completed and runner.spec.has_step("measure-batch") and _counts(store, outcome.run_id)["total"] == 0:
+            # Nothing was proven: not "every device passed" (exit 0).  Resumable, to measure some.
+            status, reason = "halted", NO_DEVICE_MEASURED
+    except StopRequested as exc:
+        status, reason = "interrupted", exc.reason
     except KeyboardInterrupt:
         status, reason = "interrupted", "stopped by Ctrl-C"
     except RunHalted as exc:
@@ -223,7 +249,7 @@ def start_run(spec: SequenceSpec, options: RunOptions, view: RunView, stop: Stop
     with open_store(database) as store, open_station(spec, _asker(view, stop)) as station:
         run_id = new_run_id()
         folder = RunFolder(records, run_id)
-        with _run_lock(folder.path):
+        with _run_lock(folder.path) as lock:
             write_new_file(folder.path, "sequence", ".toml", spec.text, encoding="utf-8")
             if station.spec.source != spec.source:
                 station_text = Path(station.spec.source).read_text(encoding="utf-8")
@@ -248,7 +274,9 @@ def start_run(spec: SequenceSpec, options: RunOptions, view: RunView, stop: Stop
                 facts = _facts(spec, run_id, station, operator)
                 runner = StepRunner(spec, station, store, journal, folder, facts, view, stop, RunState())
                 outcome = RunOutcome(run_id, "running", None, records, database, folder.path)
-                return _execute(runner, store, journal, outcome)
+                outcome = _execute(runner, store, journal, outcome)
+                lock.finished = outcome.status == "complete"
+                return outcome
             finally:
                 journal.close()
 
@@ -291,14 +319,30 @@ def calibration_problem(cal: CalibrationRecord | None, spec: SequenceSpec, ident
     moved = CalibrationPolicy(None, spec.calibration.max_temperature_change_k).problem(cal, temperature_c)
     if moved is not None:
         return moved
-    if cal.plan != spec.plan:
+    plan = spec.plan
+    if not same_grid(cal.frequencies_hz, plan.frequencies()) or \
+            (cal.plan.if_bandwidth_hz, cal.plan.power_dbm) != (plan.if_bandwidth_hz, plan.power_dbm):
         return "it was made for another sweep"
     path = resolve_path(spec.calibration.kit, spec)
     if path is None or load_kit(path).sha256 != cal.kit_hash:
         return "the cal kit definition has changed since"
     if last_check_passed is False:
-        return "its last check-standard verification failed"
+        return "its last check-standard verification failed or was out of statistical control"
     return None
+
+
+def _reused(store: ResultStore, cal: CalibrationRecord, spec: SequenceSpec,
+            run_id: str) -> tuple[CalibrationRecord, str | None]:
+    """A calibration a resumed run had reused from another run, fitted to its sweep again, and
+    where it came from (None: this run made it)."""
+    from lineproof.calibration_reuse import ReusedCalibration
+
+    made_in = store.rows("SELECT run_id FROM calibrations WHERE calibration_id = ?", (cal.calibration_id,))
+    if not made_in or made_in[0]["run_id"] == run_id:
+        return cal, None
+    assert spec.calibration is not None
+    fitted = calstore.fit_to_sweep(cal, spec.plan.frequencies(), spec.calibration.max_interpolation_error)
+    return fitted, ReusedCalibration(fitted, made_in[0]["run_id"], cal.created_utc).describe()
 
 
 def _kept_qualification(row: dict[str, Any]) -> tuple[QualifiedTermination, int, str]:
@@ -323,9 +367,15 @@ def _restore_state(store: ResultStore, spec: SequenceSpec, run_id: str, row: dic
         cal = store.load_calibration(str(cal_id)) if cal_id else None
     except InputError as exc:
         return state, f"its saved terms cannot be read ({exc.problem})"
+    if cal is not None and spec.calibration is not None and spec.calibration.reuse is not None:
+        try:  # a calibration of another run, reused: fitted to this sweep again, as the run first did
+            cal, state.reused_from = _reused(store, cal, spec, run_id)
+        except CalibrationError as exc:
+            return state, str(exc)
     checks = store.rows("SELECT * FROM verifications WHERE run_id = ? AND calibration_id = ? ORDER BY verification_id",
                         (run_id, cal_id))
-    problem = calibration_problem(cal, spec, identity, bool(checks[-1]["passed"]) if checks else None, temperature_c)
+    held = bool(checks[-1]["passed"]) and checks[-1].get("in_control") != 0 if checks else None
+    problem = calibration_problem(cal, spec, identity, held, temperature_c)
     if problem is not None:
         return state, problem
     state.calibration, state.reuse_calibration = cal, True
@@ -381,7 +431,8 @@ def resume_run(run_id: str, options: RunOptions, view: RunView, stop: StopSignal
                          fix="give the records folder the run wrote to with --records DIR")
     with open_store(database) as store:
         row, folder = _resumable(store, run_id, records)
-        with _run_lock(folder.path):
+        with _run_lock(folder.path) as lock:
+            row, folder = _resumable(store, run_id, records)  # again, held: it may have completed meanwhile
             spec = kept_sequence(folder, row)
             if row.get("remeasure_of"):
                 from lineproof.remeasure import restricted_to, suspect_units
@@ -409,6 +460,8 @@ def resume_run(run_id: str, options: RunOptions, view: RunView, stop: StopSignal
                     runner = StepRunner(spec, station, store, journal, folder, _facts(spec, run_id, station, operator),
                                         view, stop, state)
                     outcome = RunOutcome(run_id, "running", None, records, database, folder.path)
-                    return _execute(runner, store, journal, outcome)
+                    outcome = _execute(runner, store, journal, outcome)
+                    lock.finished = outcome.status == "complete"
+                    return outcome
                 finally:
                     journal.close()

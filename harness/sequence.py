@@ -50,6 +50,10 @@ class SequenceProblems(InputError):
         return self.message
 
 
+#: ``[calibration] reuse``: the newest stored calibration that fits, or one by its id.
+REUSE = re.compile(r"^(latest|cal-[0-9]{8}T[0-9]{6}Z-[0-9a-f]{6})$")
+REUSE_FIX = 'write reuse = "latest" or a calibration id as lineproof printed it (cal-20260101T120000Z-1a2b3c)'
+
 #: ``[calibration] method`` when the sequence leaves the choice to the harness: the best
 #: method the analyzer allows and the station can carry out (:mod:`lineproof.sequence_methods`).
 AUTOMATIC_METHOD = "best"
@@ -65,15 +69,35 @@ class CalibrationSpec:
     #: The calibration holds while the analyzer's temperature stays within this of the
     #: temperature it was made at (None: not checked).
     max_temperature_change_k: float | None = 1.0
+    #: A stored calibration the calibrate step loads instead of measuring the standards:
+    #: "latest" (the newest of this station, analyzer and method) or a calibration id; None:
+    #: measure them (see :mod:`lineproof.calibration_reuse`).
+    reuse: str | None = None
+    #: The largest error interpolating a reused calibration onto this sweep may add to a
+    #: corrected result (|Γ|, or relative |S21|).
+    max_interpolation_error: float = 1e-3
 
 
 @dataclass(frozen=True)
 class MeasurementSpec:
     """``[measurement]``: the figures the verdicts are on (None: the default for the method,
-    see :mod:`lineproof.figures`) and how a two-port run finds the as-terminated figure."""
+    see :mod:`lineproof.figures`), how a two-port run finds the as-terminated figure, and --
+    for a thru-response run, which measures no reflection -- the devices' specified match
+    within the bands (VSWR at either port; None: bounded by their own transmission, see
+    :mod:`lineproof.normalization`)."""
 
     judge: tuple[str, ...] | None = None
     as_terminated: str = "computed"
+    device_max_vswr: float | None = None
+
+
+@dataclass(frozen=True)
+class MarkerSpec:
+    """``[[marker]]``: a named frequency each device is read at (the nearest sweep point)."""
+
+    name: str
+    frequency_hz: float
+    key: str = ""  # where it is written, for messages
 
 
 @dataclass(frozen=True)
@@ -141,10 +165,16 @@ class SequenceSpec:
     notes: str = ""
     study: StudySpec | None = None
     measurement: MeasurementSpec = MeasurementSpec()
+    markers: tuple[MarkerSpec, ...] = ()
 
     @property
     def folder(self) -> Path:
         return Path(self.source).parent
+
+    @property
+    def marker_frequencies(self) -> dict[str, float]:
+        """The markers by name, as the steps read them."""
+        return {marker.name: marker.frequency_hz for marker in self.markers}
 
     def has_step(self, action: str) -> bool:
         return any(step.action == action for step in self.steps)
@@ -175,7 +205,7 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
     root = TableReader(data, "", problems)
     root.reject_unknown({"sequence", "station", "sweep", "band", "calibration", "termination",
                          "check_standard", "devices", "decision", "reverify", "step", "records", "study",
-                         "measurement"})
+                         "measurement", "marker"})
     head = root.table("sequence", required=True)
     name, notes = None, ""
     if head is not None:
@@ -207,6 +237,7 @@ def parse_sequence(text: str, source: str, station_text: tuple[str, str] | None 
         notes=notes,
         study=parse_study(root.table("study")),
         measurement=_measurement(root.table("measurement")),
+        markers=_markers(root, plan, problems),
     )
     if problems or station is None or plan is None:
         return None, problems
@@ -221,6 +252,7 @@ def _station_from(root: TableReader, station_text: tuple[str, str] | None, probl
         data = parse_toml(text, source, own)
         spec = None if data is None else parse_station(TableReader(data, "", own), source)
         problems.items.extend(own.items)
+        problems.read_with(source, own.lines)  # the cross-checks' problems in it get lines too
         return spec
     table = root.table("station")
     if table is None:
@@ -295,12 +327,36 @@ def _band_limits(table: TableReader) -> tuple[float, float | None, float | None]
     return (math.inf if vswr is None else vswr), return_loss, loss
 
 
+def _markers(root: TableReader, plan: SweepPlan | None, problems: Problems) -> tuple[MarkerSpec, ...]:
+    """``[[marker]]`` tables: a name (it becomes a metadata key) and a frequency in the sweep."""
+    markers: list[MarkerSpec] = []
+    for table in root.tables("marker"):
+        table.reject_unknown({"name", "frequency_hz"})
+        name = table.get("name", str, fix='add name = "f0" (lower case, as band names)')
+        hz = table.number("frequency_hz", above=0.0, fix="give the marker's frequency in Hz, e.g. 146e6")
+        if name is not None and not BAND_NAME.match(name):
+            problems.add(table.key("name"), f"marker name {name!r} is not allowed",
+                         'use 1-32 lower-case letters, digits, \'_\' or \'-\', e.g. "f0"')
+            name = None
+        elif name is not None and any(m.name == name for m in markers):
+            problems.add(table.key("name"), f"marker {name!r} is defined twice", "give each marker its own name")
+            name = None
+        if hz is not None and plan is not None and not plan.start_hz <= hz <= plan.stop_hz:
+            problems.add(table.key("frequency_hz"), f"marker at {hz / 1e6:g} MHz lies outside the sweep "
+                         f"({plan.describe()})", "move it into the sweep, or widen [sweep]")
+            hz = None
+        if name is not None and hz is not None:
+            markers.append(MarkerSpec(name, hz, table.key("name")))
+    return tuple(markers)
+
+
 def _calibration(table: TableReader | None) -> CalibrationSpec | None:
     if table is None:
         return None
     from lineproof.calibration import METHOD_NAMES
 
-    table.reject_unknown({"method", "kit", "valid_for_minutes", "max_temperature_change_k"})
+    table.reject_unknown({"method", "kit", "valid_for_minutes", "max_temperature_change_k", "reuse",
+                          "max_interpolation_error"})
     method = table.choice("method", [*METHOD_NAMES, AUTOMATIC_METHOD], AUTOMATIC_METHOD)
     kit = table.get("kit", str, fix='add kit = "kits/n50-illustrative.toml" (or your kit file)')
     minutes = table.number("valid_for_minutes", 480.0, above=0.0)
@@ -308,9 +364,16 @@ def _calibration(table: TableReader | None) -> CalibrationSpec | None:
     # +-1 K of the temperature the calibration was made at.
     kelvin = table.number("max_temperature_change_k", 1.0, above=0.0,
                           fix="give the largest temperature change a calibration survives, e.g. 1.0")
-    if None in (method, kit, minutes, kelvin):
+    reuse = table.get("reuse", str, None, fix=REUSE_FIX)
+    if reuse is not None and not REUSE.match(reuse):
+        table.problems.add(table.key("reuse"), f"{reuse[:60]!r} names no stored calibration", REUSE_FIX)
+        reuse = None
+    tolerance = table.number("max_interpolation_error", 1e-3, above=0.0,
+                             fix="give the largest error interpolation may add, e.g. 1e-3 (|reflection|)")
+    if None in (method, kit, minutes, kelvin, tolerance):
         return None
-    return CalibrationSpec(method, kit, minutes * 60.0, max_temperature_change_k=kelvin)
+    return CalibrationSpec(method, kit, minutes * 60.0, max_temperature_change_k=kelvin, reuse=reuse,
+                           max_interpolation_error=tolerance)
 
 
 def _termination(table: TableReader | None) -> TerminationSpec | None:
@@ -421,7 +484,7 @@ def _measurement(table: TableReader | None) -> MeasurementSpec:
         return MeasurementSpec()
     from lineproof.figures import AS_TERMINATED_WAYS, FIGURES
 
-    table.reject_unknown({"judge", "as_terminated"})
+    table.reject_unknown({"judge", "as_terminated", "device_max_vswr"})
     names = table.get("judge", list, None)
     judged = None
     if names is not None:
@@ -432,7 +495,9 @@ def _measurement(table: TableReader | None) -> MeasurementSpec:
         else:
             judged = tuple(names)
     way = table.choice("as_terminated", AS_TERMINATED_WAYS, "computed") or "computed"
-    return MeasurementSpec(judged, way)
+    device_vswr = table.number("device_max_vswr", None, above=1.0,
+                               fix="give the devices' specified VSWR at either port, e.g. 1.25, or remove it")
+    return MeasurementSpec(judged, way, device_vswr)
 
 
 def _records(table: TableReader | None) -> tuple[str | None, str | None]:

@@ -40,6 +40,7 @@ def check_references(spec: SequenceSpec, problems: Problems) -> SequenceSpec:
     _check_switch(spec, problems)
     _check_simulated_bench(spec, problems)
     check_two_port(spec, problems, capabilities)
+    _check_records(spec, problems)
     return spec
 
 
@@ -106,6 +107,9 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
     cal = spec.calibration
     if cal is None:
         return
+    if cal.reuse is not None and not spec.has_step("calibrate"):
+        problems.add("calibration.reuse", "a stored calibration is loaded by the calibrate step, and this sequence "
+                     "has none", 'add a do = "calibrate" step before the steps that need it, or remove reuse')
     if caps is not None:
         from lineproof.calibration import choose_method
         from lineproof.errors import CalibrationError
@@ -117,7 +121,8 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
             problems.add("calibration.method", f"{exc} ({caps.ports} port(s))",
                          "choose a method the analyzer allows, or an analyzer with the paths this one needs")
         else:
-            if cal.method == "one-port" and f"S{port}{port}" not in caps.parameters:
+            # A port beyond the analyzer's is reported once, at [analyzer.port] (_check_analyzer).
+            if cal.method == "one-port" and port <= caps.ports and f"S{port}{port}" not in caps.parameters:
                 problems.add("calibration.method", f"the analyzer does not measure S{port}{port} for a one-port "
                              "calibration", "use the port its profile measures")
     path = resolve_path(cal.kit, spec)
@@ -137,6 +142,11 @@ def _check_calibration(spec: SequenceSpec, problems: Problems, caps) -> None:
     if missing:
         problems.add("calibration.kit", f"kit {kit.name} has no {', '.join(missing)} standard for a {cal.method} calibration",
                      f"add the standards to {path} or use another kit")
+        return
+    from lineproof.calibration import check_kit_for_sweep
+
+    for problem in check_kit_for_sweep(kit, spec.plan.frequencies(), METHOD_STANDARDS.get(cal.method, ())):
+        problems.absorb(problem, "calibration.kit")
 
 
 def _check_check_standard(spec: SequenceSpec, problems: Problems) -> None:
@@ -162,6 +172,8 @@ def _check_check_standard(spec: SequenceSpec, problems: Problems) -> None:
 
 
 def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
+    from lineproof.sequence_methods import needs_termination
+
     needs: dict[str, tuple[str | None, str]] = {
         "calibrate": ("calibration", "add a [calibration] table with method and kit"),
         "qualify-termination": ("termination", "add a [termination] table with the termination's name"),
@@ -170,6 +182,7 @@ def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
         "repeatability-study": ("study", 'add a [study] table with kind = "repeatability" and reconnections'),
     }
     seen: set[str] = set()
+    transmission_only = spec.calibration is not None and spec.calibration.method == "thru-response"
     for step in spec.steps:
         table, fix = needs.get(step.action, (None, ""))
         if table is not None and getattr(spec, table) is None:
@@ -177,24 +190,41 @@ def _check_steps(spec: SequenceSpec, problems: Problems) -> None:
         if step.action in ("qualify-termination", "verify", "measure-batch", "repeatability-study") and "calibrate" not in seen:
             problems.add(step.key, f"step {step.action!r} comes before any calibrate step",
                          "put a do = \"calibrate\" step before it")
+        if transmission_only:
+            _check_transmission_step(step, problems)
         if step.action == "measure-batch":
-            if "qualify-termination" not in seen:
-                problems.add(step.key, "the batch would be measured on a termination nobody qualified",
-                             "put a do = \"qualify-termination\" step before it")
             if "measure-batch" in seen:
                 problems.add(step.key, "a sequence measures one batch", "keep one measure-batch step")
-            if spec.termination is None:
+            if needs_termination(spec) and "qualify-termination" not in seen:
+                problems.add(step.key, "the batch would be measured on a termination nobody qualified",
+                             "put a do = \"qualify-termination\" step before it")
+            if needs_termination(spec) and spec.termination is None:
                 problems.add(step.key, "the batch needs a [termination] for the devices' outputs",
                              "add a [termination] table")
         if step.action == "repeatability-study":
             _check_study_step(spec, step, seen, problems)
         seen.add(step.action)
-    if spec.reverify.any:
+    if spec.reverify.any and transmission_only:
+        problems.add("reverify", "a thru-response calibration cannot read the check standard's reflection",
+                     'remove [reverify], or calibrate with method = "solt" or "one-path"')
+    elif spec.reverify.any:
         if spec.check_standard is None:
             problems.add("reverify", "re-verification needs a [check_standard]", "add one or remove [reverify]")
         if "measure-batch" not in seen:
             problems.add("reverify", "re-verification happens during a batch, and this sequence measures none",
                          "remove [reverify] or add a measure-batch step")
+
+
+def _check_transmission_step(step, problems: Problems) -> None:  # noqa: ANN001
+    """A thru-response run measures transmission only: no reflection to qualify a termination
+    or read a check standard with, and the devices' outputs go to analyzer port 2."""
+    why = {"qualify-termination": "it cannot qualify a termination, and the devices' outputs go to analyzer port 2",
+           "verify": "it cannot read the check standard's reflection",
+           "repeatability-study": "a repeatability study reads the devices' match"}.get(step.action)
+    if why is not None:
+        problems.add(step.key, f"step {step.action!r}: a thru-response calibration measures transmission only, so "
+                     f"{why}", 'remove the step (and the table it needs), or calibrate with method = "solt" or '
+                     '"one-path"')
 
 
 def _check_study_step(spec: SequenceSpec, step, seen: set[str], problems: Problems) -> None:  # noqa: ANN001
@@ -257,7 +287,7 @@ def _check_switch(spec: SequenceSpec, problems: Problems) -> None:
     for name, used_at in _needed_objects(spec, port_1_only=True):
         if name not in switch.wiring:
             problems.add(used_at, f"{name!r} is not wired to the switch", f"add it to [{key}] in {source}")
-    two_port = spec.calibration is not None and spec.calibration.method in ("solt", "one-path")
+    two_port = spec.calibration is not None and spec.calibration.method in ("solt", "one-path", "thru-response")
     for unit in spec.devices.units if spec.devices and not two_port else ():  # two-port routes: sequence_methods
         if unit.slot is not None and unit.slot not in switch.wiring:
             problems.add(unit.key.replace(".serial", ".slot"), f"slot {unit.slot!r} of {unit.serial} is not wired to the switch",
@@ -271,6 +301,31 @@ def _check_switch(spec: SequenceSpec, problems: Problems) -> None:
         problems.items.append(exc)
         problems.add(profile_key, "the switch profile named here cannot be used (see above)",
                      "name a shipped switch profile or a valid profile file", source=source)
+
+
+def _check_records(spec: SequenceSpec, problems: Problems) -> None:
+    """The results database the sequence names: a URL this version can use, and -- read only --
+    an existing file that a run would accept (SQLite, lineproof's schema marker).  A location
+    the sequence leaves to --records or the default folder is checked by the run itself."""
+    from lineproof.store import DATABASE_NAME, DEFAULT_RECORDS, database_file_problem, url_problem
+
+    if spec.database is None and spec.records_folder is None:
+        return
+    key = "records.database" if spec.database is not None else "records.folder"
+    if spec.database is not None:
+        refused = url_problem(spec.database)
+        if refused is not None:
+            problems.add(key, *refused)
+            return
+    folder = spec.folder / spec.records_folder if spec.records_folder else DEFAULT_RECORDS
+    if folder.exists() and not folder.is_dir():
+        problems.add("records.folder" if spec.records_folder else key, f"the records folder {str(folder)!r} is a file",
+                     "name a folder (new, or one lineproof wrote to)")
+        return
+    path = folder / (spec.database or DATABASE_NAME)
+    found = database_file_problem(path)
+    if found is not None:
+        problems.add(key, f"{path}: {found[0]}", found[1])
 
 
 def _check_simulated_bench(spec: SequenceSpec, problems: Problems) -> None:

@@ -15,6 +15,7 @@ the station -- worked out before anything touches an instrument.
 from __future__ import annotations
 
 import dataclasses
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -26,12 +27,19 @@ from lineproof.sequence import AUTOMATIC_METHOD, SequenceSpec, resolve_path
 from lineproof.station_file import BETWEEN_WIRING, PORT2_WIRING, REVERSED_WIRING
 from lineproof.toml_problems import Problems
 
-#: Methods a run carries out, best first; thru response corrects transmission only, and a run
-#: judges reflection.
-RUN_METHODS = ("solt", "one-path", "one-port")
+#: Methods a run carries out, best first.  Thru response corrects transmission only: it is
+#: chosen only for a transmission-only check (insertion loss judged alone), and one-port,
+#: which measures no transmission, is never chosen for one.
+RUN_METHODS = ("solt", "one-path", "thru-response", "one-port")
 TWO_PORT_METHODS = ("solt", "one-path")
+THRU_RESPONSE = "thru-response"
+#: Methods that measure each device between the ports.
+TRANSMISSION_METHODS = (*TWO_PORT_METHODS, THRU_RESPONSE)
 #: Parameters each method sweeps.
-METHOD_PARAMETERS = {"one-port": ("S11",), "one-path": ("S11", "S21"), "solt": ("S11", "S21", "S12", "S22")}
+METHOD_PARAMETERS = {"one-port": ("S11",), "one-path": ("S11", "S21"), "solt": ("S11", "S21", "S12", "S22"),
+                     THRU_RESPONSE: ("S21",)}
+#: Standards each method measures.
+METHOD_KINDS = {"one-port": {"open", "short", "load"}, THRU_RESPONSE: {"thru"}}
 
 
 @dataclass(frozen=True)
@@ -48,7 +56,28 @@ def judged_figures(spec: SequenceSpec) -> tuple[str, ...]:
     if spec.measurement.judge is not None:
         return spec.measurement.judge
     method = spec.calibration.method if spec.calibration else "one-port"
+    if method == THRU_RESPONSE:
+        return (figures.INSERTION_LOSS,)
     return figures.DEFAULT_JUDGED_TWO_PORT if method in TWO_PORT_METHODS else figures.DEFAULT_JUDGED_ONE_PORT
+
+
+def needs_termination(spec: SequenceSpec) -> bool:
+    """Whether the batch needs a qualified termination: a one-port run measures each device on
+    it; a two-port run when the as-terminated figure is judged or measured; a thru response
+    never (the devices' outputs go to port 2)."""
+    method = spec.calibration.method if spec.calibration else "one-port"
+    if method == THRU_RESPONSE:
+        return False
+    if method not in TRANSMISSION_METHODS:
+        return True
+    return figures.AS_TERMINATED in judged_figures(spec) or spec.measurement.as_terminated == "measured"
+
+
+def transmission_only(spec: SequenceSpec) -> bool:
+    """Whether the sequence judges insertion loss alone and reads no reflection (qualifies no
+    termination, verifies with no check standard): a thru response can serve it."""
+    reflecting = any(spec.has_step(action) for action in ("qualify-termination", "verify", "repeatability-study"))
+    return spec.measurement.judge == (figures.INSERTION_LOSS,) and not reflecting and not spec.reverify.any
 
 
 def _kit(spec: SequenceSpec) -> CalKit | None:
@@ -64,10 +93,10 @@ def _kit(spec: SequenceSpec) -> CalKit | None:
 def routes_needed(spec: SequenceSpec, method: str, kit: CalKit | None) -> list[Route]:
     """The switch routes ``method`` needs for its standards and devices."""
     needed = []
-    if kit is not None and spec.has_step("calibrate"):
+    if kit is not None and spec.has_step("calibrate") and method != THRU_RESPONSE:
         needed += [Route("wiring", kit.standard(kind).name, f"the {kind} standard at port 1")
                    for kind in ("open", "short", "load") if kit.has(kind)]
-    if method not in TWO_PORT_METHODS:
+    if method not in TRANSMISSION_METHODS:
         units = spec.devices.units if spec.devices is not None and spec.has_step("measure-batch") else ()
         return needed + [Route("wiring", u.slot, f"{u.serial} on port 1") for u in units if u.slot is not None]
     if kit is not None and spec.has_step("calibrate"):
@@ -83,7 +112,7 @@ def routes_needed(spec: SequenceSpec, method: str, kit: CalKit | None) -> list[R
             needed.append(Route(BETWEEN_WIRING, unit.slot, f"{unit.serial} between the ports"))
             if method == "one-path":
                 needed.append(Route(REVERSED_WIRING, unit.slot, f"{unit.serial} turned round (its output on port 1)"))
-            if spec.measurement.as_terminated == "measured":
+            if spec.measurement.as_terminated == "measured" and method in TWO_PORT_METHODS:
                 needed.append(Route("wiring", unit.slot, f"{unit.serial} with its output on the termination"))
     return needed
 
@@ -102,6 +131,15 @@ def _allowed(paths: str) -> list[str]:
     return [short for short in RUN_METHODS if METHOD_NAMES[short] in long_names]
 
 
+def candidates(spec: SequenceSpec, paths: str) -> list[str]:
+    """The methods ``method = "best"`` considers, best first: a transmission-only check (see
+    :func:`transmission_only`) may fall back on a thru response (never on one-port); any other
+    on one-port (never on a thru response, which measures no reflection)."""
+    unfit = "one-port" if transmission_only(spec) else THRU_RESPONSE
+    fit = [method for method in _allowed(paths) if method != unfit]
+    return fit or _allowed(paths)  # a reflectometer: one-port, whose figures the check then refuses
+
+
 def resolve_method(spec: SequenceSpec, paths: str | None) -> tuple[SequenceSpec, str | None]:
     """``spec`` with its calibration method made concrete, and why the harness chose it (None
     when the sequence named it, or when the analyzer's paths are not known)."""
@@ -111,8 +149,8 @@ def resolve_method(spec: SequenceSpec, paths: str | None) -> tuple[SequenceSpec,
     kit = _kit(spec)
     kinds = {standard.kind for standard in kit.standards.values()} if kit is not None else set()
     passed_over = []
-    for method in _allowed(paths):
-        needs = {"one-port": {"open", "short", "load"}}.get(method, {"open", "short", "load", "thru"})
+    for method in candidates(spec, paths):
+        needs = METHOD_KINDS.get(method, {"open", "short", "load", "thru"})
         missing = missing_routes(spec, method, kit)
         if kit is not None and needs <= kinds and not missing:
             why = f"the best the analyzer ({paths} paths) allows"
@@ -121,7 +159,7 @@ def resolve_method(spec: SequenceSpec, paths: str | None) -> tuple[SequenceSpec,
             return dataclasses.replace(spec, calibration=dataclasses.replace(cal, method=method, chosen=why)), why
         passed_over.append(f"{method}: " + (f"the kit lacks {', '.join(sorted(needs - kinds))}" if not needs <= kinds
                                             else f"the switch has no route for {missing[0].what}"))
-    allowed = _allowed(paths)
+    allowed = candidates(spec, paths)
     if not allowed:
         return spec, None
     # nothing this station can do: the best the analyzer allows, whose problems the check lists
@@ -133,14 +171,39 @@ def check_two_port(spec: SequenceSpec, problems: Problems, capabilities: object 
     """Every problem of the sequence's method and figures that a two-port run would meet."""
     cal = spec.calibration
     method = cal.method if cal is not None else "one-port"
-    if method == "thru-response":
-        problems.add("calibration.method", "a thru-response calibration corrects transmission only, and a run judges "
-                     "the devices' match", 'use method = "solt" or "one-path" (or "one-port")')
-        return
-    if method in TWO_PORT_METHODS:
+    if method in TRANSMISSION_METHODS:
         _check_analyzer(spec, problems, method, capabilities)
         _check_routes(spec, problems, method)
+    if spec.measurement.device_max_vswr is not None and method != THRU_RESPONSE:
+        problems.add("measurement.device_max_vswr", f"a {method} calibration measures the devices' match; a stated "
+                     "device match serves only a thru response, which cannot", "remove device_max_vswr")
+    if method == THRU_RESPONSE:
+        _check_thru_response(spec, problems)
+        return
     _check_figures(spec, problems, method)
+
+
+def _check_thru_response(spec: SequenceSpec, problems: Problems) -> None:
+    """A thru response corrects transmission only: insertion loss is all it can judge, and the
+    mismatch it leaves needs the analyzer's raw match stated."""
+    fix = 'calibrate with method = "solt" or "one-path", which measure the match too'
+    judged = judged_figures(spec)
+    reflections = [name for name in judged if name != figures.INSERTION_LOSS]
+    if reflections:
+        problems.add("measurement.judge", f"a thru-response calibration measures transmission only; it cannot judge "
+                     f"{', '.join(reflections)}", f'judge = ["{figures.INSERTION_LOSS}"] alone, or {fix}')
+    for index, band in enumerate(spec.bands, 1):
+        for key, limit in (("max_vswr", None if math.isinf(band.max_vswr) else band.max_vswr),
+                           ("min_return_loss_db", band.min_return_loss_db)):
+            if limit is not None:
+                problems.add(f"band[{index}].{key}", f"band {band.name} limits reflection, and a thru-response "
+                             "calibration measures transmission only", f"remove {key} from the band, or {fix}")
+    settings = spec.station.uncertainty
+    if settings.raw_source_match is None or settings.raw_load_match is None:
+        key = "station.uncertainty" if spec.station.source == spec.source else "uncertainty"
+        problems.add(key, "a thru response leaves the analyzer's source and load match uncorrected, and the station "
+                     "does not state them", "add raw_source_match_db and raw_load_match_db (the analyzer's "
+                     "uncorrected port match, from its data sheet)", source=spec.station.source)
 
 
 def _check_analyzer(spec: SequenceSpec, problems: Problems, method: str, capabilities: object | None) -> None:

@@ -88,7 +88,7 @@ def parse_station(table: TableReader, source: str) -> StationSpec | None:
     reference_plane = table.get("reference_plane", str, "analyzer test-port connector")
     if connected_by == "switch" and not table.has("switch"):
         table.problems.add(table.key("connected_by"), "connected_by = \"switch\" but the station has no switch",
-                           "add a [station.switch] table or choose operator")
+                           f"add a [{table.key('switch')}] table (profile, resource, wiring) or choose operator")
     if connected_by == "simulated-operator" and simulated is None and control is None:
         table.problems.add(table.key("connected_by"), "a simulated operator exists only on a simulated bench",
                            "set simulated_bench = \"<scenario>\" (or bench_control) or choose operator")
@@ -103,19 +103,24 @@ def parse_station(table: TableReader, source: str) -> StationSpec | None:
 def _uncertainty(table: TableReader | None) -> UncertaintySettings | None:
     """``[station.uncertainty]``: connector repeatability from a repeatability study (RMS |Γ| a
     reconnection adds at ``repeatability_reference_hz``), trace noise (None: from the data),
-    the coverage factor (None: from the budget), the mismatch at each end of a switch path."""
+    the coverage factor (None: from the budget), the mismatch at each end of a switch path, and
+    the analyzer's uncorrected port match as its data sheet states it (return loss in dB: what a
+    thru-response calibration leaves)."""
     if table is None:
         return None
     table.reject_unknown({"connection_repeatability", "repeatability_reference_hz", "trace_noise", "coverage_factor",
-                          "switch_path_mismatch"})
+                          "switch_path_mismatch", "raw_source_match_db", "raw_load_match_db"})
     repeatability = table.number("connection_repeatability", 0.0, minimum=0.0)
     reference = table.number("repeatability_reference_hz", 1e9, above=0.0)
     noise = table.number("trace_noise", None, minimum=0.0)
     coverage = table.number("coverage_factor", None, above=0.0)
     path = table.number("switch_path_mismatch", 0.0, minimum=0.0, fix="give |Γ| of a switch path's end, e.g. 0.001")
+    raw = [table.number(key, None, above=0.0, fix="give the uncorrected match as a return loss in dB from the "
+                        "analyzer's data sheet, e.g. 14") for key in ("raw_source_match_db", "raw_load_match_db")]
     if None in (repeatability, reference, path):
         return None
-    return UncertaintySettings(repeatability, reference, noise, coverage, path)
+    source, load = (None if loss is None else 10 ** (-loss / 20) for loss in raw)
+    return UncertaintySettings(repeatability, reference, noise, coverage, path, source, load)
 
 
 def _analyzer(table: TableReader | None, simulated: bool) -> AnalyzerSpec | None:

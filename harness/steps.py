@@ -98,7 +98,7 @@ def calibrate_one_port(station: Station, kit: CalKit) -> CalibrationRecord:
     """Measure the kit's open, short and load at the reference plane and solve the terms."""
     measured: dict[str, np.ndarray] = {}
     ideals: dict[str, np.ndarray] = {}
-    frequencies = station.plan.frequencies()
+    grid = frequencies = station.plan.frequencies()
     for kind in ("open", "short", "load"):
         standard = kit.standard(kind)
         station.operator.connect(
@@ -106,8 +106,9 @@ def calibrate_one_port(station: Station, kit: CalKit) -> CalibrationRecord:
             f"Connect the {kind} standard ({standard.name}, kit {kit.name}) to port {station.port}",
         )
         frequencies, measured[standard.name] = station.measure_raw()
+        calibration.check_grid(standard.name, frequencies, grid)
         ideals[standard.name] = kit.ideal(kind, frequencies)
-    terms = calibration.solve_one_port(frequencies, measured, ideals)
+    terms = calibration.solve_one_port(frequencies, measured, ideals, kit_source=kit.source)
     residuals = residual_model(kit, ("open", "short", "load"), frequencies, station.uncertainty)
     return calibration.make_record(
         calibration.ONE_PORT_METHOD, terms, frequencies, station.plan, station.identity,

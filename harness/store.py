@@ -43,21 +43,76 @@ class SuspectWindow:
     reason: str
 
 
+#: The records folder when neither --records nor the sequence names one, and the database's
+#: file name in it.
+DEFAULT_RECORDS = Path("lineproof-records")
+DATABASE_NAME = "results.sqlite"
 #: Where saved calibrations live, beside the database.
 CALIBRATIONS_FOLDER = "calibrations"
 _NOT_OURS_FIX = "give a new file name or a results database that lineproof created"
 
 
+#: The first 16 bytes of every SQLite 3 database file (sqlite.org, "Database File Format" §1.3).
+SQLITE_HEADER = b"SQLite format 3\x00"
+
+
+def url_problem(location: str) -> tuple[str, str] | None:
+    """(problem, fix) when ``location`` is a database URL this version cannot use, else None."""
+    if location.startswith(("postgresql://", "postgres://")):
+        return ("PostgreSQL results databases are not supported by this version of lineproof",
+                'give an SQLite file for now, e.g. database = "results.sqlite" (the schema and queries are '
+                "written for both)")
+    if "://" in location:
+        return f"unknown database URL scheme in {location[:60]!r}", "give a file path (SQLite)"
+    return None
+
+
+def database_file_problem(path: Path) -> tuple[str, str] | None:
+    """(problem, fix) when ``path`` exists and cannot be the results database -- not a file,
+    not SQLite, SQLite without lineproof's schema marker, a newer schema -- else None (absent,
+    empty, or a lineproof database a run can use).  Only reads: the file is opened read-only,
+    nothing is created beside it."""
+    if not path.exists():
+        return None
+    if not path.is_file():
+        return "the results database named here is not a file", _NOT_OURS_FIX
+    try:
+        with path.open("rb") as handle:
+            header = handle.read(len(SQLITE_HEADER))
+    except OSError as exc:
+        return f"the results database cannot be read ({exc.strerror})", "give a file lineproof may read and write"
+    if not header:
+        return None  # an empty file: a run creates the database in it
+    if header != SQLITE_HEADER:
+        return ("this file exists and is not an SQLite database (a run would refuse it and leave it untouched)",
+                _NOT_OURS_FIX)
+    try:
+        db = sqlite3.connect(f"{path.resolve().as_uri()}?mode=ro", uri=True)
+        try:
+            tables = {row[0] for row in db.execute("SELECT name FROM sqlite_master WHERE type = 'table'")}
+            meta = dict(db.execute("SELECT key, value FROM lineproof_meta")) if "lineproof_meta" in tables else {}
+        finally:
+            db.close()
+    except sqlite3.OperationalError:
+        return None  # busy or mid-recovery: cannot tell now; the run checks again when it opens it
+    except sqlite3.DatabaseError as exc:
+        return f"this file is not a readable SQLite database ({exc})", _NOT_OURS_FIX
+    if meta.get("application") != APPLICATION:
+        return ("this file is a database, but not one lineproof created (a run would refuse it and leave it "
+                "untouched)", _NOT_OURS_FIX)
+    version = meta.get("schema_version", "0")
+    if not version.isdigit() or int(version) > SCHEMA_VERSION:
+        return (f"database schema {version} is newer than this lineproof understands ({SCHEMA_VERSION})",
+                "upgrade lineproof or use another database file")
+    return None
+
+
 def open_store(location: str | Path) -> ResultStore:
     """A store at ``location``: a file path (SQLite) or a database URL."""
     text = str(location)
-    if text.startswith(("postgresql://", "postgres://")):
-        raise InputError("PostgreSQL results databases are not supported by this version of lineproof",
-                         key="records.database",
-                         fix="use an SQLite file for now (the schema and queries are written for both)")
-    if "://" in text:
-        raise InputError(f"unknown database URL scheme in {text[:60]!r}", key="records.database",
-                         fix="give a file path (SQLite)")
+    refused = url_problem(text)
+    if refused is not None:
+        raise InputError(refused[0], key="records.database", fix=refused[1])
     return ResultStore(Path(text))
 
 
@@ -319,12 +374,23 @@ class ResultStore:
                                 verification_id, file_sha256, packed))
             device_row = int(cursor.lastrowid)
             for b in result.bands:
-                self._run(db, "INSERT INTO band_results VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                self._run(db, "INSERT INTO band_results (device_row, band, start_hz, stop_hz, limit_vswr, worst_vswr,"
+                          " worst_frequency_hz, mean_vswr, worst_return_loss_db, expanded_uncertainty, verdict,"
+                          " decision_rule, figure) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                           (device_row, b.limit.name, b.limit.start_hz, b.limit.stop_hz, b.limit.max_vswr,
                            b.worst_vswr, b.worst_frequency_hz, b.mean_vswr, b.worst_return_loss_db,
-                           b.expanded_uncertainty, b.verdict.value, b.decision_rule))
+                           b.expanded_uncertainty, b.verdict.value, b.decision_rule, b.headline))
             for (band, metric), (value, unit) in (metrics or {}).items():
                 self._run(db, "INSERT INTO band_metrics VALUES (?, ?, ?, ?, ?)", (device_row, band, metric, value, unit))
+            for m in result.markers:
+                delay = None if m.group_delay_s is None or m.group_delay_s != m.group_delay_s else m.group_delay_s
+                self._run(db, "INSERT INTO markers (device_row, marker, frequency_hz, figure, vswr, return_loss_db,"
+                          " expanded_uncertainty, insertion_loss_db, insertion_loss_expanded_uncertainty_db, phase_deg,"
+                          " phase_expanded_uncertainty_deg, group_delay_s, group_delay_expanded_uncertainty_s)"
+                          " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                          (device_row, m.name, m.frequency_hz, m.figure, m.vswr, m.return_loss_db,
+                           m.expanded_uncertainty, m.insertion_loss_db, m.insertion_loss_uncertainty_db, m.phase_deg,
+                           m.phase_uncertainty_deg, delay, None if delay is None else m.group_delay_uncertainty_s))
         return device_row
 
     # -- reading ------------------------------------------------------------------------------------

@@ -6,7 +6,7 @@ migration in order, so the upgrade path is exercised by every new database.  Sta
 :class:`Dialect` renders for SQLite (the default, an embedded file) or for PostgreSQL (a URL,
 for a line of several stations; its driver is not part of this version).
 
-Tables (schema 3)::
+Tables (schema 4)::
 
     lineproof_meta        key/value: application, schema_version
     runs                  one per run: sequence and its hash, station, operator, analyzer, status
@@ -16,7 +16,8 @@ Tables (schema 3)::
     verifications         each check-standard verification: calibration, worst deviation, result
     verification_bands    its per-band figures
     devices               one per measured device of a run: verdict, file, calibration, last check
-    band_results          per device and band: worst/mean VSWR, return loss, uncertainty, verdict
+    band_results          per device and band: worst/mean VSWR, return loss, uncertainty, verdict, the
+                          headline figure (the reflection columns empty for transmission-only data)
     band_metrics          per device, band and named metric: further figures (unit given)
     check_history         one row per verification and figure (a band's mean |Γ| of the check
                           standard): station, analyzer, check standard, value, spread, En, what
@@ -24,6 +25,8 @@ Tables (schema 3)::
     study_readings        each reading of a repeatability study: device, operator, repeat, band
     study_results         per band of a study: repeatability, reproducibility, GR&R, part
                           variation (standard deviations) and their shares of the tolerance
+    markers               per device and named marker: the reading there (VSWR, return loss,
+                          insertion loss, phase, group delay, each with its uncertainty)
 """
 
 from __future__ import annotations
@@ -31,7 +34,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 APPLICATION = "lineproof"
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 
 
 @dataclass(frozen=True)
@@ -269,5 +272,54 @@ MIGRATION_3 = (
     )""",
 )
 
+#: The columns of ``band_results`` schemas 1-3 and 4 share, in order.
+_BAND_COLUMNS = ("device_row, band, start_hz, stop_hz, limit_vswr, worst_vswr, worst_frequency_hz, mean_vswr,"
+                 " worst_return_loss_db, expanded_uncertainty, verdict, decision_rule")
+
+#: Schema 3 -> 4: transmission-only results and marker readings.  A thru-response calibration
+#: measures no reflection, so ``band_results`` keeps its rows with the reflection columns empty
+#: and names the band's headline figure (``figure``; NULL in rows from before: as-terminated,
+#: or the judged match figure).  The table is rebuilt, the one way SQL relaxes NOT NULL in
+#: both dialects: every row is copied as it was.  ``markers``: each named marker's reading of a
+#: device (the headline match figure, insertion loss, S21 phase and group delay, each with its
+#: expanded uncertainty; NULL where the data have none or the sweep does not resolve it).
+MIGRATION_4 = (
+    """CREATE TABLE band_results_4 (
+        device_row INTEGER NOT NULL REFERENCES devices(device_row),
+        band TEXT NOT NULL,
+        start_hz {real} NOT NULL,
+        stop_hz {real} NOT NULL,
+        limit_vswr {real} NOT NULL,
+        worst_vswr {real},
+        worst_frequency_hz {real} NOT NULL,
+        mean_vswr {real},
+        worst_return_loss_db {real},
+        expanded_uncertainty {real},
+        verdict TEXT NOT NULL,
+        decision_rule TEXT NOT NULL,
+        figure TEXT,
+        PRIMARY KEY (device_row, band)
+    )""",
+    f"INSERT INTO band_results_4 ({_BAND_COLUMNS}) SELECT {_BAND_COLUMNS} FROM band_results",
+    "DROP TABLE band_results",
+    "ALTER TABLE band_results_4 RENAME TO band_results",
+    """CREATE TABLE markers (
+        device_row INTEGER NOT NULL REFERENCES devices(device_row),
+        marker TEXT NOT NULL,
+        frequency_hz {real} NOT NULL,
+        figure TEXT,
+        vswr {real},
+        return_loss_db {real},
+        expanded_uncertainty {real},
+        insertion_loss_db {real},
+        insertion_loss_expanded_uncertainty_db {real},
+        phase_deg {real},
+        phase_expanded_uncertainty_deg {real},
+        group_delay_s {real},
+        group_delay_expanded_uncertainty_s {real},
+        PRIMARY KEY (device_row, marker)
+    )""",
+)
+
 #: schema version -> the statements that bring the previous version to it.
-MIGRATIONS: dict[int, tuple[str, ...]] = {2: MIGRATION_2, 3: MIGRATION_3}
+MIGRATIONS: dict[int, tuple[str, ...]] = {2: MIGRATION_2, 3: MIGRATION_3, 4: MIGRATION_4}

@@ -56,7 +56,7 @@ def run_study(spec: SequenceSpec, measuring: steps.Station, basis: MeasurementBa
             view.step_started(f"study: {name}, round {m + 1} of {study.reconnections}", total=len(units))
             for i, unit in enumerate(units):
                 if stop_requested():
-                    raise StopRequested()
+                    raise StopRequested("stopped by Ctrl-C between readings")
                 measuring.operator.connect(
                     measuring.port, unit.serial, termination,
                     f"{name}: connect {unit.model} s/n {unit.serial} to port {measuring.port}, its output on "

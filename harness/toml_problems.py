@@ -193,18 +193,25 @@ class KeyLines:
 
 
 class Problems:
-    """Every problem found in one file, each an :class:`InputError` with its line."""
+    """Every problem found in one file (and the files read with it, such as a station file),
+    each an :class:`InputError` with its line."""
 
     def __init__(self, source: str, lines: KeyLines | None = None) -> None:
         self.source = source
         self.lines = lines
         self.items: list[InputError] = []
+        self._other_lines: dict[str, KeyLines] = {}
+
+    def read_with(self, source: str, lines: KeyLines) -> None:
+        """Another file checked with this one: problems added for its keys get their lines."""
+        self._other_lines[source] = lines
 
     def add(self, key: str | None, problem: str, fix: str | None = None, *, source: str | None = None,
             line: int | None = None) -> None:
-        """Record one problem; its line is looked up from ``key`` unless given."""
-        if line is None and self.lines is not None and (source is None or source == self.source):
-            line = self.lines.line_of(key)
+        """Record one problem; its line is looked up from ``key`` (in ``source``) unless given."""
+        lines = self.lines if source is None or source == self.source else self._other_lines.get(source)
+        if line is None and lines is not None:
+            line = lines.line_of(key)
         self.items.append(InputError(problem, path=source or self.source, key=key, line=line, fix=fix))
 
     def absorb(self, error: InputError, key: str | None = None) -> None:

@@ -75,16 +75,18 @@ def solve_solt(
     thru_raw: np.ndarray,
     thru_ideal: np.ndarray,
     isolation_raw: np.ndarray | None = None,
+    kit_source: str = "",
 ) -> dict[str, np.ndarray]:
     """Twelve terms from reflect standards on each port (raw S11 at port 1, raw S22 at
     port 2, keyed like ``ideals``), the thru (raw (N, 2, 2) and its model), and optionally a
-    measurement with loads on both ports (isolation; zero when not measured)."""
+    measurement with loads on both ports (isolation; zero when not measured).  ``kit_source``
+    (the kit file) is named when the standards are refused."""
     f = np.asarray(frequencies_hz, dtype=float)
     _check(f, {"thru": thru_raw, "thru model": thru_ideal, **{f"port 1 {k}": v for k, v in port1.items()},
                **{f"port 2 {k}": v for k, v in port2.items()}})
     terms: dict[str, np.ndarray] = {}
     for direction, measured, flip in (("forward", port1, False), ("reverse", port2, True)):
-        one = solve_one_port(f, measured, ideals)
+        one = solve_one_port(f, measured, ideals, kit_source=kit_source)
         e00, e11, e10e01 = one["directivity"], one["source_match"], one["reflection_tracking"]
         thru = flipped(thru_ideal) if flip else thru_ideal
         raw = flipped(thru_raw) if flip else thru_raw
@@ -103,6 +105,7 @@ def solve_one_path(
     thru_s21_raw: np.ndarray,
     thru_ideal: np.ndarray,
     isolation_s21_raw: np.ndarray | None = None,
+    kit_source: str = "",
 ) -> dict[str, np.ndarray]:
     """Forward terms of a forward-only analyzer (reflect standards at port 1, the thru's raw
     S11 and S21, optionally raw S21 with loads on both ports); the reverse terms are the same,
@@ -110,7 +113,7 @@ def solve_one_path(
     f = np.asarray(frequencies_hz, dtype=float)
     _check(f, {"thru S11": thru_s11_raw, "thru S21": thru_s21_raw, "thru model": thru_ideal,
                **{f"port 1 {k}": v for k, v in port1.items()}})
-    one = solve_one_port(f, port1, ideals)
+    one = solve_one_port(f, port1, ideals, kit_source=kit_source)
     e00, e11, e10e01 = one["directivity"], one["source_match"], one["reflection_tracking"]
     leak = np.zeros(f.shape, complex) if isolation_s21_raw is None else np.asarray(isolation_s21_raw, complex)
     load_match, tracking = _thru_terms(e00, e11, e10e01, thru_s11_raw, thru_s21_raw, thru_ideal, leak)

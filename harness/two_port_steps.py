@@ -18,6 +18,8 @@ from lineproof.calkit import CalKit
 from lineproof.decision import DecisionRule
 from lineproof.deembed import Adapter, remove_from_two_port
 from lineproof.errors import CalibrationError
+from lineproof.markers import TransmissionTrace
+from lineproof.normalization import NormalizedTransmission, normalize, stated_device_match
 from lineproof.steps import QualifiedTermination, Station, device_uncertainty
 from lineproof.two_port_residuals import ThruView
 from lineproof.uncertainty import residual_model, transmission_model
@@ -37,7 +39,7 @@ def _reflects(station: Station, kit: CalKit, ports: tuple[int, ...],
     """Raw reflection of each reflect standard on each port; with ``isolation`` (and loads
     on both ports) also the leakage S21, S12 of the load step."""
     measured: dict[int, dict[str, np.ndarray]] = {port: {} for port in ports}
-    frequencies = station.plan.frequencies()
+    grid = frequencies = station.plan.frequencies()
     leakage = None
     for kind in REFLECTS:
         standard = kit.standard(kind)
@@ -46,6 +48,7 @@ def _reflects(station: Station, kit: CalKit, ports: tuple[int, ...],
                                      f"Connect the {kind} standard ({standard.name}, kit {kit.name}) to port {port}")
         leak = isolation and kind == "load" and len(ports) == 2
         frequencies, traces = _sweep(station, [f"S{p}{p}" for p in ports] + (["S21", "S12"] if leak else []))
+        calibration.check_grid(standard.name, frequencies, grid)
         for port in ports:
             measured[port][kind] = traces[f"S{port}{port}"]
         if leak:
@@ -82,11 +85,11 @@ def calibrate_two_port(station: Station, kit: CalKit, method: str, isolation: bo
         if full:
             raw = two_port.s_matrix(thru["S11"], thru["S21"], thru["S12"], thru["S22"])
             terms = two_port.solve_solt(frequencies, reflects[1], reflects[2], ideals, raw, kit.thru(frequencies),
-                                        leakage)
+                                        leakage, kit_source=kit.source)
             residuals.update(residual_model(kit, REFLECTS, frequencies, station.uncertainty, "port2"))
         else:
             terms = two_port.solve_one_path(frequencies, reflects[1], ideals, thru["S11"], thru["S21"],
-                                            kit.thru(frequencies))
+                                            kit.thru(frequencies), kit_source=kit.source)
         residuals.update(residual_model(kit, REFLECTS, frequencies, station.uncertainty, "port1"))
     else:
         raise CalibrationError(f"{method} is not a two-port method")
@@ -114,11 +117,19 @@ def sweep_device(station: Station, method: str, device: DeviceIdentity, *, conne
     is already), all four parameters in one sweep on a full analyzer; on a forward-only one,
     S11 and S21, then -- turned round -- the same again.  With ``terminated_on``, the device's
     output is then put on that termination and its input reflection swept too (the
-    as-terminated figure measured directly)."""
-    if method not in (calibration.FULL_TWO_PORT_METHOD, calibration.ONE_PATH_METHOD):
-        raise CalibrationError(f"a {method} calibration cannot measure full S-parameters; use SOLT or one-path")
+    as-terminated figure measured directly).  A thru response sweeps S21 alone (it corrects
+    nothing else)."""
+    if method not in (calibration.FULL_TWO_PORT_METHOD, calibration.ONE_PATH_METHOD,
+                      calibration.THRU_RESPONSE_METHOD):
+        raise CalibrationError(f"a {method} calibration cannot measure transmission; use SOLT, one-path or thru "
+                               "response")
     if not connected:
         connect_between_ports(station, device)
+    if method == calibration.THRU_RESPONSE_METHOD:
+        if terminated_on is not None:
+            raise CalibrationError("a thru-response calibration measures no reflection: it cannot measure the "
+                                   "as-terminated figure")
+        return _sweep(station, ["S21"])
     if method == calibration.FULL_TWO_PORT_METHOD:
         f, raw = _sweep(station, ["S11", "S21", "S12", "S22"])
     else:
@@ -202,8 +213,60 @@ def measure_two_port_device(
                   for side, adapter in zip(("input", "output"), adapters, strict=True) if adapter is not None})
     result = figures.judge_figures(device, f, found, bands, rule, judged, markers=markers,
                                    termination=None if termination is None else termination.qualification,
-                                   extra=extra)
+                                   extra=extra,
+                                   transmission=figures.transmission_trace(cal, traces, station.uncertainty, found))
     return result, f, s
+
+
+#: What a thru-response record's data and headline are, in the words records use.
+NORMALIZED = "S21 normalized by a thru response (transmission tracking corrected; S11, S12 and S22 not measured)"
+NORMALIZED_FIGURE = f"{figures.DESCRIPTIONS[figures.INSERTION_LOSS]}, by thru response (normalization)"
+
+
+def transmission_result(station: Station, cal: CalibrationRecord, device: DeviceIdentity, frequencies: np.ndarray,
+                        raw_s21: np.ndarray, bands: Sequence[BandLimit], rule: DecisionRule,
+                        device_max_vswr: float | None = None,
+                        markers: Mapping[str, float] | None = None) -> tuple[DeviceResult, NormalizedTransmission]:
+    """A device's raw S21 corrected by a thru response and judged on insertion loss, with the
+    mismatch the normalization leaves in its uncertainty (:mod:`lineproof.normalization`):
+    the station's stated raw match, and the devices' specified match within the bands when
+    the sequence states one (else the passive bound from their transmission)."""
+    known = stated_device_match(frequencies, bands, device_max_vswr)
+    found = normalize(cal, frequencies, raw_s21, station.uncertainty, known)
+    trace = figures.FigureTrace(figures.INSERTION_LOSS, found.loss_db, found.loss_expanded_db)
+    source, load = station.uncertainty.raw_source_match, station.uncertainty.raw_load_match
+    match = "bounded by the device's own transmission (passive, reciprocal)" if device_max_vswr is None else (
+        f"VSWR {device_max_vswr:g} within the bands as the sequence states; elsewhere bounded by the device's own "
+        "transmission (passive, reciprocal)")
+    extra = {"normalization.raw_source_match": f"{source:.4f} (|reflection| at most, as the station states)",
+             "normalization.raw_load_match": f"{load:.4f} (|reflection| at most, as the station states)",
+             "normalization.device_match": match}
+    for band in bands:
+        points = metrics.band_indices(frequencies, band)
+        extra[f"band.{band.name}.normalization.mismatch_bound_db"] = f"{float(found.bounds.loss_db[points].max()):.4f}"
+    transmission = TransmissionTrace(found.s21, found.loss_expanded_db, found.phase_expanded_rad)
+    result = figures.judge_figures(device, frequencies, [trace], bands, rule, (figures.INSERTION_LOSS,),
+                                   markers=markers, extra=extra, description=NORMALIZED_FIGURE,
+                                   transmission=transmission)
+    return result, found
+
+
+def measure_transmission_device(station: Station, cal: CalibrationRecord, device: DeviceIdentity,
+                                bands: Sequence[BandLimit], rule: DecisionRule, device_max_vswr: float | None = None,
+                                markers: Mapping[str, float] | None = None,
+                                ) -> tuple[DeviceResult, np.ndarray, NormalizedTransmission]:
+    """Connect the device between the ports, sweep S21 and judge its insertion loss with a
+    thru-response calibration (:func:`transmission_result`)."""
+    f, raw = sweep_device(station, cal.method, device)
+    result, found = transmission_result(station, cal, device, f, raw["S21"], bands, rule, device_max_vswr, markers)
+    return result, f, found
+
+
+def transmission_data(s21: np.ndarray) -> np.ndarray:
+    """A two-port record of S21 alone: the parameters a thru response does not measure are
+    NaN (Touchstone has no word for "not measured"; scikit-rf reads nan back as NaN)."""
+    unknown = np.full(np.shape(s21), complex(np.nan, np.nan))
+    return two_port.s_matrix(unknown, s21, unknown, unknown)
 
 
 def side_figures(f: np.ndarray, s: np.ndarray, bands: Sequence[BandLimit],

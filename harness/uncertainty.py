@@ -67,6 +67,11 @@ class UncertaintySettings:
     #: |Γ| of the small fixed mismatch at each end of each switch path (the switch's data
     #: sheet): standards, terminations and devices reached through different paths differ by it.
     switch_path_mismatch: float = 0.0
+    #: Largest |Γ| of the analyzer's uncorrected source match at port 1 and load match at port 2
+    #: (its data sheet; None: not stated): what a thru-response calibration leaves uncorrected
+    #: (see :mod:`lineproof.normalization`).
+    raw_source_match: float | None = None
+    raw_load_match: float | None = None
 
     def repeatability(self, frequencies_hz: np.ndarray) -> np.ndarray:
         return self.connection_repeatability * np.asarray(frequencies_hz, dtype=float) / self.repeatability_reference_hz
@@ -546,6 +551,29 @@ def transmission_relative_uncertainty(
     sigma = noise if noise is not None else (settings.trace_noise or estimate_trace_noise(s21))
     through = np.abs(s21) if s21_magnitude is None else s21_magnitude
     return np.sqrt(magnitude + 0.5 * mismatch + (sigma / np.maximum(through, 1e-12)) ** 2)
+
+
+def transmission_phase_uncertainty(
+    residuals: Mapping[str, np.ndarray],
+    s11: np.ndarray,
+    s21: np.ndarray,
+    s22: np.ndarray,
+    settings: UncertaintySettings = UncertaintySettings(),
+    interpolation_error: float | None = None,
+) -> np.ndarray:
+    """Standard uncertainty (rad) of the phase of S21: the first-order relative error of S21
+    is that of :func:`transmission_relative_uncertainty`, and its imaginary part turns the
+    phase -- the thru's delay and connection (the tracking's phase part), the residual match
+    terms and noise (of unknown phase: half their variance each way), and a moved
+    calibration's interpolation estimate."""
+    phase = residuals.get("transmission.phase_variance", np.zeros(s21.shape)).real
+    mismatch: np.ndarray | float = 0.0
+    variance = residuals.get("port1.variance")
+    if variance is not None:
+        mismatch = variance[:, 2, 2].real * _power(s11) + variance[:, 0, 0].real * _power(s22)
+    sigma = settings.trace_noise if settings.trace_noise is not None else estimate_trace_noise(s21)
+    return np.sqrt(phase + 0.5 * mismatch + (sigma / np.maximum(np.abs(s21), 1e-12)) ** 2
+                   + (interpolation_error or 0.0) ** 2 / 2)
 
 
 # -- published mismatch formulas -------------------------------------------------------------

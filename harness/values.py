@@ -150,20 +150,31 @@ class Verdict(str, enum.Enum):
 
 @dataclass(frozen=True)
 class MarkerReading:
-    """A figure read at a named marker frequency (the nearest sweep point)."""
+    """What a device reads at a named marker frequency (the nearest sweep point): the headline
+    match figure's |Γ| (``figure``; None for transmission-only data) and, with transmission
+    data, insertion loss, the phase of S21 and group delay -- each with its expanded
+    uncertainty (None: not evaluated; a group delay of NaN: the sweep does not resolve it)."""
 
     name: str
     frequency_hz: float
-    reflection: float
+    reflection: float | None
     expanded_uncertainty: float | None = None
     insertion_loss_db: float | None = None
+    figure: str | None = "as-terminated"
+    insertion_loss_uncertainty_db: float | None = None
+    phase_deg: float | None = None
+    phase_uncertainty_deg: float | None = None
+    group_delay_s: float | None = None
+    group_delay_uncertainty_s: float | None = None
 
     @property
-    def vswr(self) -> float:
-        return _vswr(self.reflection)
+    def vswr(self) -> float | None:
+        return None if self.reflection is None else _vswr(self.reflection)
 
     @property
-    def return_loss_db(self) -> float:
+    def return_loss_db(self) -> float | None:
+        if self.reflection is None:
+            return None
         return math.inf if self.reflection == 0 else -20.0 * math.log10(self.reflection)
 
 
@@ -196,15 +207,18 @@ class FigureResult:
 class BandResult:
     """One band of one device: worst and mean figures and the verdict.
 
+    ``worst_reflection`` and ``mean_reflection`` are the headline match figure's |Γ| (None
+    for transmission-only data: a thru response measures no reflection; the band's figures
+    then hold insertion loss, and ``worst_frequency_hz`` is its worst point);
     ``expanded_uncertainty`` is the largest expanded (k = 2) uncertainty of |Γ| in the band;
     ``worst_upper_reflection`` the largest |Γ| + U (what guard-banded acceptance compares).
     Insertion-loss figures are present when the band has transmission data.
     """
 
     limit: BandLimit
-    worst_reflection: float
+    worst_reflection: float | None
     worst_frequency_hz: float
-    mean_reflection: float
+    mean_reflection: float | None
     expanded_uncertainty: float | None
     verdict: Verdict
     decision_rule: str
@@ -212,24 +226,35 @@ class BandResult:
     worst_insertion_loss_db: float | None = None
     worst_insertion_loss_frequency_hz: float | None = None
     insertion_loss_uncertainty_db: float | None = None
+    #: The markers inside the band (the device's, see :attr:`DeviceResult.markers`).
     markers: tuple[MarkerReading, ...] = ()
     #: Every figure of the band, judged or reported beside (two-port data), the headline first.
     figures: tuple[FigureResult, ...] = ()
+    #: Smallest and largest group delay of S21 over the band (s; transmission data only; NaN
+    #: when the sweep does not resolve the phase).
+    group_delay_s: tuple[float, float] | None = None
 
     def figure(self, name: str) -> FigureResult | None:
         return next((f for f in self.figures if f.figure == name), None)
 
     @property
-    def worst_vswr(self) -> float:
-        return _vswr(self.worst_reflection)
+    def worst_vswr(self) -> float | None:
+        return None if self.worst_reflection is None else _vswr(self.worst_reflection)
 
     @property
-    def mean_vswr(self) -> float:
-        return _vswr(self.mean_reflection)
+    def mean_vswr(self) -> float | None:
+        return None if self.mean_reflection is None else _vswr(self.mean_reflection)
 
     @property
-    def worst_return_loss_db(self) -> float:
+    def worst_return_loss_db(self) -> float | None:
+        if self.worst_reflection is None:
+            return None
         return math.inf if self.worst_reflection == 0 else -20.0 * math.log10(self.worst_reflection)
+
+    @property
+    def headline(self) -> str:
+        """The figure the band's headline is: its first figure (as-terminated for one-port data)."""
+        return self.figures[0].figure if self.figures else "as-terminated"
 
 
 def _vswr(reflection: float) -> float:
@@ -320,6 +345,8 @@ class DeviceResult:
     termination: TerminationQualification | None = None
     #: What the bands judge, e.g. "as-terminated input reflection" or "S11 (ideal termination)".
     figure: str = "as-terminated input reflection"
+    #: The readings at the sequence's named markers, anywhere in the sweep.
+    markers: tuple[MarkerReading, ...] = ()
 
     @property
     def verdict(self) -> Verdict:
@@ -371,6 +398,10 @@ class VerificationResult:
     control_signals: tuple[str, ...] | None = None
     repeats: int = 1
     temperature_c: float | None = None
+    #: Among the signals, a point beyond the control limits: the check fails.  Every other
+    #: signal (a run rule, the precision chart) is a warning: the check passes, but the
+    #: calibration no longer holds.
+    beyond_limits: bool = False
 
     @property
     def agrees(self) -> bool:
@@ -381,10 +412,19 @@ class VerificationResult:
 
     @property
     def passed(self) -> bool:
-        return self.agrees and not self.control_signals
+        """The check passed: it agrees with its reference and lies within its control limits
+        (the results it covers stand)."""
+        return self.agrees and not self.beyond_limits
+
+    @property
+    def in_control(self) -> bool:
+        """No chart signal at all (or no chart yet): with :attr:`passed`, the calibration holds."""
+        return not self.control_signals
 
     def describe(self) -> str:
         outcome = "passed" if self.passed else "FAILED"
+        if self.passed and not self.in_control:
+            outcome = "passed, but out of statistical control: the calibration is to be made again"
         figure = (f"En {self.en:.2f}" if self.en is not None else
                   f"largest deviation of |Γ| {self.sweep_worst_deviation:.4f} at "
                   f"{self.sweep_worst_frequency_hz / 1e6:.3f} MHz, tolerance {self.tolerance:.4f}")

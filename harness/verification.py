@@ -10,9 +10,10 @@ Two criteria:
 - **En** (when the reference has a stated uncertainty): per band, the normalized error of
   the band's mean |Γ|, En = |measured - reference| / sqrt(U_meas² + U_ref²), with U_meas the
   expanded uncertainty lineproof itself states for the reading (its mean over the band's
-  points) and U_ref the reference's.  The check agrees when |En| <= 1 in every band: the
-  criterion of ISO/IEC 17043:2010, Annex B (B.4.1.1 e), and of ISO 13528:2015 §9.7 (clause
-  numbers from memory).
+  points) and U_ref the reference's.  The check agrees when |En| <= 1 in every band: En as
+  ISO 13528:2015 §9.7 defines it and ISO/IEC 17043:2010 Annex B lists it among the performance
+  statistics, |En| <= 1 satisfactory (clause and annex from memory; the formula as the NIST
+  Dataplot reference manual states ISO 13528's En score).
 - **A fixed tolerance** (no reference uncertainty given): the largest deviation of |Γ| at any
   point of the sweep must stay within it.
 
@@ -115,7 +116,7 @@ class CheckReading:
 
 
 def _judge_band(band: BandLimit, reading: CheckReading, reference: CheckReference, deviation: np.ndarray,
-                tolerance: float | None) -> tuple[VerificationBand, ChartPoint] | None:
+                tolerance: float | None, calibration_id: str) -> tuple[VerificationBand, ChartPoint] | None:
     inside = np.flatnonzero(metrics.band_mask(reading.frequencies_hz, band))
     if inside.size == 0:
         return None
@@ -124,7 +125,7 @@ def _judge_band(band: BandLimit, reading: CheckReading, reference: CheckReferenc
     measured = float(np.mean(per_repeat))
     expected = float(np.mean(reference.magnitude[inside]))
     spread = float(np.std(per_repeat, ddof=1)) if reading.repeats >= 2 else None
-    point = ChartPoint(measured, spread, reading.repeats)
+    point = ChartPoint(measured, spread, reading.repeats, calibration_id)
     if reference.expanded_uncertainty is None:
         assert tolerance is not None
         return VerificationBand(band.name, band.start_hz, band.stop_hz, measured, expected, float(deviation[worst]),
@@ -141,12 +142,12 @@ def judge_check(name: str, calibration_id: str, reading: CheckReading, reference
                 tolerance: float | None, bands: tuple[BandLimit, ...],
                 devices_before: int) -> tuple[VerificationResult, dict[str, ChartPoint]]:
     """Judge the reading band by band (En, or the fixed tolerance over the sweep); returns the
-    result and each band's chart point (the band's mean |Γ| over the repeats)."""
+    result and each band's chart point (the band's mean |Γ| over the repeats, with its calibration)."""
     deviation = np.abs(reading.mean - reference.magnitude)
     worst = int(np.argmax(deviation))
     judged, points = [], {}
     for band in bands:
-        found = _judge_band(band, reading, reference, deviation, tolerance)
+        found = _judge_band(band, reading, reference, deviation, tolerance, calibration_id)
         if found is not None:
             judged.append(found[0])
             points[band.name] = found[1]

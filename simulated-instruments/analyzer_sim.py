@@ -417,3 +417,7 @@ class SimulatedAnalyzer:
         delay = self.busy_until - time.monotonic()
         if delay > 0:
             time.sleep(delay)
+
+    def idle(self) -> bool:
+        """Whether the current sweep would have finished on real hardware."""
+        return self.busy_until <= time.monotonic()

@@ -139,6 +139,9 @@ class AnalyzerScpiFront(ScpiFront):
     def wait_idle(self) -> None:
         self.analyzer.wait_idle()
 
+    def idle(self) -> bool:
+        return self.analyzer.idle()
+
     # -- handlers ---------------------------------------------------------------------------
 
     def _trigger(self) -> None:

@@ -22,6 +22,8 @@ _MESSAGE_LIMIT = 1 << 20
 POWER_ON_BIT = 128
 #: SCPI-1999 Vol 1 §9.1 (from memory): bit 2 of the status byte, error/event queue not empty.
 ERROR_QUEUE_BIT = 4
+#: IEEE 488.2 §11.5.1.1.8 (from memory): bit 0, Operation Complete, set by *OPC (§12.5.2).
+OPERATION_COMPLETE_BIT = 1
 
 
 class DataReply:
@@ -44,6 +46,8 @@ class ScpiFront:
         # Power-on: the PON bit is set until *ESR? reads it (IEEE 488.2 §11.5.1.1.2).
         self.event_status = POWER_ON_BIT
         self.dispatcher.on_error = self._latch_error
+        #: *OPC was received and its Operation Complete bit is not set yet.
+        self.operation_complete_armed = False
         #: One program message at a time, whichever client sent it (an instrument has one
         #: parser); the model's own lock stays free for the bench control channel.
         self.message_lock = threading.Lock()
@@ -54,10 +58,10 @@ class ScpiFront:
     def _register_common(self) -> None:
         add = self.dispatcher.add
         add("*IDN?", lambda args, sfx: self.identity)
-        add("*RST", lambda args, sfx: self.reset())
+        add("*RST", lambda args, sfx: self._reset_command())
         add("*CLS", lambda args, sfx: self._clear())
         add("*OPC?", lambda args, sfx: self.operation_complete())
-        add("*OPC", lambda args, sfx: None)
+        add("*OPC", lambda args, sfx: self._arm_operation_complete())
         add("*WAI", lambda args, sfx: self.wait_idle())
         add("*ESR?", lambda args, sfx: self._esr())
         # Bit 2: the error/event queue is not empty (SCPI-1999 Vol 1 §9.1, from memory); no ESB
@@ -73,6 +77,10 @@ class ScpiFront:
     def wait_idle(self) -> None:
         """Block until pending operations would have finished."""
 
+    def idle(self) -> bool:
+        """Whether no operation is pending (what *OPC waits for)."""
+        return True
+
     def operation_complete(self) -> str:
         self.wait_idle()
         return "1"
@@ -80,15 +88,24 @@ class ScpiFront:
     def power_cycle(self) -> None:
         """What the ``reset`` fault does: power-on settings, a cleared error queue, and the
         Power On bit set so a careful driver can tell that it happened."""
-        self.reset()
+        self._reset_command()
         self.dispatcher.errors.clear()
         self.event_status = POWER_ON_BIT
 
     # -- common commands ----------------------------------------------------------------------
 
+    def _reset_command(self) -> None:
+        # *RST and *CLS leave the Operation Complete Query/Command Active States (§10.32, §10.3).
+        self.operation_complete_armed = False
+        self.reset()
+
     def _clear(self) -> None:
         self.dispatcher.errors.clear()
         self.event_status = 0
+        self.operation_complete_armed = False
+
+    def _arm_operation_complete(self) -> None:
+        self.operation_complete_armed = True
 
     def _latch_error(self, code: int) -> None:
         # IEEE 488.2 §11.5.1: an event sets its bit, which stays set until *ESR? reads the
@@ -105,6 +122,9 @@ class ScpiFront:
             self.event_status |= 4  # query error
 
     def _esr(self) -> str:
+        if self.operation_complete_armed and self.idle():
+            self.event_status |= OPERATION_COMPLETE_BIT
+            self.operation_complete_armed = False
         value, self.event_status = self.event_status, 0
         return str(value)
 

@@ -173,6 +173,9 @@ class SimulatedSwitch:
         if delay > 0:
             time.sleep(delay)
 
+    def idle(self) -> bool:
+        return self.busy_until <= time.monotonic()
+
     # -- wiring ---------------------------------------------------------------------------------
 
     def _port_keys(self, channel: Channel) -> set[tuple[str, int]]:
@@ -242,3 +245,6 @@ class SwitchScpiFront(ScpiFront):
 
     def wait_idle(self) -> None:
         self.switch.wait_idle()
+
+    def idle(self) -> bool:
+        return self.switch.idle()

@@ -16,7 +16,7 @@ import numpy as np
 import skrf
 from skrf.calibration import SOLT, OnePort, TwelveTerm
 
-from lineproof import calibration, figures, metrics, steps, two_port
+from lineproof import calibration, figures, markers, metrics, steps, two_port
 from lineproof.calkit import load_kit
 from lineproof.two_port_residuals import through_path, thru_view
 from lineproof.uncertainty import (
@@ -128,7 +128,8 @@ def two_port_processing() -> None:
         return reference.apply_cal(network)
 
     report("2-port: correction + metrics + uncertainty + decision", ours, "TwelveTerm.apply_cal", library, 1.0)
-    # what a two-port run does per device: all four figures, each with its uncertainty, judged
+    # what a two-port run does per device: all four figures, each with its uncertainty, judged,
+    # and the phase's uncertainty for each band's group delay
     views = figures.thru_views(cal)
     termination = (np.full(POINTS, 0.01 + 0.005j), np.full(POINTS, 0.002))
 
@@ -136,9 +137,15 @@ def two_port_processing() -> None:
         s = correction.apply(F, *traces)
         found = figures.two_port_figures(cal, F, s, SETTINGS, termination, views)
         judged = (figures.AS_TERMINATED, figures.INSERTION_LOSS)
-        return figures.judge_figures(identity, F, figures.headline_first(found, judged), BANDS, "guard-banded", judged)
+        return figures.judge_figures(identity, F, figures.headline_first(found, judged), BANDS, "guard-banded", judged,
+                                     transmission=figures.transmission_trace(cal, s, SETTINGS, found))
 
     report("2-port: the four figures of a run (as-terminated, input and output match, insertion loss)", every_figure,
+           "TwelveTerm.apply_cal", library, None)
+    corrected = correction.apply(F, *traces)
+    found = figures.two_port_figures(cal, F, corrected, SETTINGS, termination, views)
+    report("2-port: of those, the phase's uncertainty and the group delay (markers, each band's group delay)",
+           lambda: markers.group_delay(F, figures.transmission_trace(cal, corrected, SETTINGS, found)),
            "TwelveTerm.apply_cal", library, None)
     # for scale: scikit-rf's two-port apply_cal is itself a vectorised closed form
     report("2-port: correction alone", lambda: correction.apply(F, *traces), "TwelveTerm.apply_cal",

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from links import DriverBench
 
-from lineproof.errors import InputError, InstrumentReported
+from lineproof.errors import InputError, InstrumentError, InstrumentReported
 from lineproof.values import SweepPlan
 
 PLAN = SweepPlan(100e6, 500e6, 401)
@@ -96,6 +96,17 @@ def test_reset_returns_to_power_on_and_asks_for_a_new_configuration(link: Driver
     assert analyzer.measure(["S11"])["S11"].size == PLAN.points
 
 
+def test_a_slow_reset_is_waited_for_as_long_as_the_profile_says(visa_link: DriverBench) -> None:
+    # *RST has no reply: its time shows in the *OPC? after it, here 1 s -- longer than the
+    # command timeout, within the reset's own timeout_s (DEVELOPERS.md worked example 1).
+    link = visa_link
+    analyzer = link.analyzer(timing={"command_timeout_s": 0.3, "retries": 0},
+                             operations={"reset": {"send": "*RST", "timeout_s": 5}})
+    link.arm("stall", seconds=1.0, match="*OPC?")
+    analyzer.reset()
+    assert link.fired() == ["*OPC?"] and analyzer.recoveries == []
+
+
 @pytest.mark.analyzer_settings(time_scale=1.0)
 def test_the_sweep_timeout_scales_with_the_sweep_not_the_command_timeout(link: DriverBench) -> None:
     # 201 points at 1 kHz IF bandwidth take 0.2 s plus per-point time (simulated in real
@@ -104,6 +115,32 @@ def test_the_sweep_timeout_scales_with_the_sweep_not_the_command_timeout(link: D
     analyzer.configure(SweepPlan(100e6, 200e6, 201, if_bandwidth_hz=1000.0))
     assert analyzer.measure(["S11"])["S11"].size == 201
     assert analyzer.recoveries == []
+
+
+POLLED_WAIT = {"wait": {"send": "*ESR?", "reply": "status", "arm": "*OPC", "done_bits": 1}}
+
+
+@pytest.mark.analyzer_settings(time_scale=1.0)
+def test_a_polled_wait_holds_the_read_until_the_sweep_ends(visa_link: DriverBench) -> None:
+    # *OPC, then *ESR? until bit 0 (IEEE 488.2 §12.5.2).  The sweep takes 0.2 s in real time
+    # and the read's timeout is 0.1 s: a read sent before the sweep ends would time out.
+    link = visa_link
+    analyzer = link.analyzer(timing={"command_timeout_s": 0.1, "retries": 0}, operations=POLLED_WAIT)
+    link.control.connect(1, "TM150-0002", "good-termination")
+    plan = SweepPlan(100e6, 500e6, 201, if_bandwidth_hz=1000.0)
+    analyzer.configure(plan)
+    sweep = analyzer.measure(["S11"])
+    np.testing.assert_allclose(sweep["S11"], _model_of_truth(link, plan), rtol=0, atol=link.kind.data_tolerance)
+    assert analyzer.recoveries == []
+
+
+def test_a_reset_is_told_even_when_a_polled_wait_read_the_power_on_bit(visa_link: DriverBench) -> None:
+    link = visa_link
+    analyzer = link.analyzer(timing={"command_timeout_s": 0.4}, operations=POLLED_WAIT)
+    analyzer.configure(PLAN)
+    link.arm("reset", match="INIT")  # a power glitch just before the trigger
+    with pytest.raises(InstrumentError, match="Power On bit"):
+        analyzer.measure(["S11"])
 
 
 @pytest.mark.parametrize(

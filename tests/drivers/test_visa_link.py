@@ -7,6 +7,7 @@ import importlib.util
 import select
 import socket
 import time
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
@@ -33,9 +34,16 @@ def test_a_refused_connection_fails_at_open() -> None:
 
 
 @pytest.mark.skipif(importlib.util.find_spec("usb") is not None, reason="PyUSB is installed here")
-def test_a_missing_backend_package_is_named() -> None:
-    with pytest.raises(LinkError, match="Please install PyUSB"):
+def test_a_missing_backend_package_is_named_with_the_command_that_installs_it() -> None:
+    with pytest.raises(LinkError, match="Please install PyUSB.*Install it with: pip install pyusb"):
         VisaTransport("USB0::0x1234::0x5678::SN1::INSTR")
+
+
+@pytest.mark.skipif(importlib.util.find_spec("gpib") is not None or importlib.util.find_spec("gpib_ctypes") is not None,
+                    reason="a GPIB package is installed here")
+def test_a_missing_gpib_package_is_named_with_the_command_that_installs_it() -> None:
+    with pytest.raises(LinkError, match="gpib-ctypes.*Install it with: pip install gpib-ctypes"):
+        VisaTransport("GPIB0::5::INSTR")
 
 
 def test_a_missing_visa_library_says_what_to_do(tmp_path) -> None:
@@ -86,6 +94,28 @@ def test_block_reads_take_bytes_pyvisa_py_already_holds_first(visa_link: DriverB
     assert transport.read_exact_raw(1, deadline) == b"\n"
     values = ieee488.decode_real_payload(payload, "REAL,64", "little")
     np.testing.assert_array_equal(ieee488.interleaved_to_complex(values), expected)
+
+
+def test_direct_socket_reads_past_their_deadline_time_out() -> None:
+    # A deadline can pass between two chunks of a reply; select() refuses a negative timeout.
+    ours, theirs = socket.socketpair()
+    with ours, theirs:
+        direct = visa_backend.DirectSocketIO(SimpleNamespace(interface=ours, _pending_buffer=bytearray()))
+        past = time.monotonic() - 0.1
+        with pytest.raises(TimeoutError):
+            direct.read_line(b"\n", past, 100)
+        with pytest.raises(TimeoutError):
+            direct.read_exact(4, past)
+
+
+def test_a_reply_still_missing_at_the_deadline_is_a_timeout_naming_resource_and_command(
+        visa_link: DriverBench) -> None:
+    link = visa_link
+    analyzer = link.analyzer(timing={"command_timeout_s": 0.5, "retries": 0})
+    link.arm("stall", seconds=5, match="*IDN?")  # the reply cannot have come before the read
+    with pytest.raises(LinkError, match="timed out") as caught:
+        analyzer.session.query("*IDN?", timeout_s=1e-6)
+    assert caught.value.resource == link.resource and caught.value.command == "*IDN?"
 
 
 def test_closing_one_instrument_leaves_the_others_open(link: DriverBench) -> None:

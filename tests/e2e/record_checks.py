@@ -57,3 +57,21 @@ def check_records_agree(records: Path, run_id: str) -> dict[str, dict[str, str]]
         assert int(metadata["device.position"]) == row["position"]
         found[str(row["serial"])] = metadata
     return found
+
+
+def steps_in_pairs(events: list[dict]) -> list[tuple[str, str, str]]:
+    """(step, how it ended, its text) per step; fails unless every step-started is followed,
+    before the next one, by a step-finished or step-failed naming the same step."""
+    pairs, open_step = [], None
+    for event in events:
+        kind = event["event"]
+        if kind == "step-started":
+            assert open_step is None, f"{event['step']!r} started while {open_step!r} had not finished"
+            open_step = event["step"]
+        elif kind in ("step-finished", "step-failed"):
+            assert open_step is not None and event["step"] == open_step, f"{event} without its step-started"
+            pairs.append((open_step, kind, event.get("text", event.get("reason"))))
+            open_step = None
+    assert open_step is None, f"{open_step!r} never finished"
+    return pairs
+

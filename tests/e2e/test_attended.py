@@ -44,13 +44,33 @@ def test_serials_are_entered_checked_and_refused_clearly(tmp_path: Path, sequenc
 def test_input_that_ends_stops_the_run_resumably(tmp_path: Path, sequence_variant) -> None:
     sequence = scanned(sequence_variant)
     first = run_cli("run", str(sequence), "--records", "rec", cwd=tmp_path, stdin="\n" * 5 + "TM150-0001\n")
-    assert first.returncode == 2 and "interrupted" in first.stderr
+    assert first.returncode == 2 and "(interrupted): input ended (stdin closed)" in first.stderr
+    assert "To continue: lineproof run --resume" in first.stdout and "Traceback" not in first.stderr
     with sqlite3.connect(tmp_path / "rec" / "results.sqlite") as db:
         run_id, = db.execute("SELECT run_id FROM runs").fetchone()
     assert sorted(check_records_agree(tmp_path / "rec", run_id)) == ["TM150-0001"]
     # Resumed: the calibration is still valid and kept, so the first prompt asks for a device.
     second = run_cli("run", "--resume", run_id, "--records", "rec", cwd=tmp_path,
                      stdin="TM150-0001\nstop\n")
-    assert second.returncode == 2
+    assert second.returncode == 2 and "(interrupted): stopped at the operator's request" in second.stderr
     assert "TM150-0001 is already measured in this run" in second.stdout
     assert "Connect the open standard" not in second.stdout
+
+
+def test_a_batch_that_records_no_device_is_not_all_passed(tmp_path: Path, sequence_variant) -> None:
+    sequence = scanned(sequence_variant)
+    first = run_cli("run", str(sequence), "--records", "rec", cwd=tmp_path, stdin="\n" * 5)  # input ends at the batch
+    assert first.returncode == 2 and "input ended (stdin closed)" in first.stderr
+    with sqlite3.connect(tmp_path / "rec" / "results.sqlite") as db:
+        run_id, = db.execute("SELECT run_id FROM runs").fetchone()
+    # Resumed, and the batch ended at once: every step finished, but no device was measured.
+    empty = run_cli("run", "--resume", run_id, "--records", "rec", cwd=tmp_path, stdin="\n")
+    assert empty.returncode == 2, empty.stdout + empty.stderr
+    assert "(halted): no device measured: the batch ended before any device was recorded" in empty.stderr
+    assert "To continue: lineproof run --resume" in empty.stdout
+    with sqlite3.connect(tmp_path / "rec" / "results.sqlite") as db:
+        assert db.execute("SELECT status FROM runs").fetchone() == ("halted",)
+    # It stays resumable: a device measured, it completes and passes.
+    measured = run_cli("run", "--resume", run_id, "--records", "rec", cwd=tmp_path, stdin="TM150-0002\n\n\n")
+    assert measured.returncode == 0, measured.stdout + measured.stderr
+    assert sorted(check_records_agree(tmp_path / "rec", run_id)) == ["TM150-0002"]

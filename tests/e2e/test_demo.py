@@ -11,6 +11,7 @@ from pathlib import Path
 
 import numpy as np
 import skrf
+from record_checks import steps_in_pairs
 from skrf.network import connect
 
 from lineproof.simulators.bench import SimulatedBench
@@ -114,3 +115,20 @@ def test_a_closed_pipe_is_not_an_error(tmp_path: Path) -> None:
     _, error = producer.communicate(timeout=60)
     assert producer.returncode == 0, error
     assert b"BrokenPipe" not in error and b"Traceback" not in error
+
+
+def test_the_demo_sequences_json_steps_come_in_pairs(tmp_path: Path) -> None:
+    import json
+
+    demo_sequence = Path(__file__).parents[2] / "sequences" / "demo-switch.toml"
+    completed = run_cli("run", str(demo_sequence), "--records", "rec", "--json", cwd=tmp_path)
+    assert completed.returncode == 1, completed.stderr  # 0104 fails (the scenario's truth)
+    events = [json.loads(line) for line in completed.stdout.splitlines()]
+    pairs = steps_in_pairs(events)
+    started = sum(e["event"] == "step-started" for e in events)
+    assert started == len(pairs) and all(kind == "step-finished" for _, kind, _ in pairs)
+    # calibrate, qualify, the check after calibrating, 12 devices, the checks after 6 and 12, the route
+    assert started == 1 + 1 + 1 + 12 + 2 + 1
+    assert pairs[-1] == ("routing to good-termination", "step-finished", "routed to good-termination")
+    assert [p[0] for p in pairs if p[0].endswith(": connect and sweep")] == [f"{s}: connect and sweep" for s in SERIALS]
+    assert events[-1]["event"] == "run-finished"

@@ -50,12 +50,14 @@ def test_the_study_agrees_with_statsmodels_on_its_own_readings(study: tuple[Path
         # variance components from its mean squares by the same expected-mean-square algebra.
         table = anova_lm(ols("value ~ C(serial) * C(operator)", data=data).fit(), typ=2)
         ms = table["sum_sq"] / table["df"]
-        r, n = 4, 5
+        r, n, k = 4, 5, 2
         error = ms["Residual"]
         interaction = max(0.0, (ms["C(serial):C(operator)"] - error) / r)
         operators = max(0.0, (ms["C(operator)"] - ms["C(serial):C(operator)"]) / (n * r))
+        devices = max(0.0, (ms["C(serial)"] - ms["C(serial):C(operator)"]) / (k * r))
         assert result["repeatability_sd"] == pytest.approx(math.sqrt(error), rel=1e-9)
         assert result["reproducibility_sd"] == pytest.approx(math.sqrt(operators + interaction), rel=1e-9, abs=1e-12)
+        assert result["part_sd"] == pytest.approx(math.sqrt(devices), rel=1e-9)
         assert result["gauge_share"] == pytest.approx(6 * result["gauge_sd"] / result["tolerance"], rel=1e-12)
         assert result["tolerance"] == pytest.approx({"2m": 0.10, "70cm": 0.20}[band])
 
@@ -81,7 +83,10 @@ def test_the_study_is_in_the_report(study: tuple[Path, str]) -> None:
     records, run_id = study
     assert main(["report", run_id, "--records", str(records)]) == 0
     folder = records / "runs" / run_id
-    assert "Repeatability study" in (folder / "report.html").read_text(encoding="utf-8")
+    html = (folder / "report.html").read_text(encoding="utf-8")
+    assert "Repeatability study" in html
+    # Who measured: the study's own operators, named in its sequence.
+    assert "<dt>operators (the study&#x27;s)</dt><dd>A. Tester, B. Tester; run started by " in html
     summary = json.loads((folder / "summary.json").read_text(encoding="utf-8"))
     assert len(summary["repeatability_study"]["results"]) == 2
     assert len(summary["repeatability_study"]["readings"]) == 2 * 40

@@ -8,6 +8,7 @@ import csv
 import io
 import json
 import re
+import shutil
 import sqlite3
 from pathlib import Path
 
@@ -84,9 +85,26 @@ def test_results_are_found_by_run_serial_verdict_and_date(recorded_run: tuple[Pa
     assert len(results("--since", "2000-01-01", "--until", "2999-12-31")) == 5
     assert results("--until", "2000-01-01") == []
     runs = results("--runs")
-    assert runs[0]["run_id"] == run_id and runs[0]["devices"] == 5 and runs[0]["failed"] == 1
+    assert runs[0]["run_id"] == run_id and runs[0]["devices"] == 5
+    assert (runs[0]["failed"], runs[0]["indeterminate"]) == (1, 0)
     assert main(["results", "--records", str(records), "--since", "last tuesday"]) == 3
     assert "is not a date" in capsys.readouterr().err
     assert main(["report", "run-20260101T000000Z-000000", "--records", str(records)]) == 3
     assert "no run" in capsys.readouterr().err
     assert main(["results", "--records", str(tmp_path / "empty")]) == 3 and not (tmp_path / "empty").exists()
+
+
+def test_the_runs_table_counts_failed_and_indeterminate_apart(recorded_run: tuple[Path, str], tmp_path: Path,
+                                                              capsys: pytest.CaptureFixture[str]) -> None:
+    records, run_id = recorded_run
+    copy = tmp_path / "rec"
+    copy.mkdir()
+    shutil.copy(records / "results.sqlite", copy / "results.sqlite")
+    with sqlite3.connect(copy / "results.sqlite") as db:  # a copy: one result made indeterminate
+        db.execute("UPDATE devices SET verdict = 'indeterminate' WHERE serial = 'TM150-0001'")
+    assert main(["results", "--records", str(copy), "--runs", "--json"]) == 0
+    [run] = json.loads(capsys.readouterr().out)
+    assert (run["run_id"], run["devices"], run["failed"], run["indeterminate"]) == (run_id, 5, 1, 1)
+    assert main(["results", "--records", str(copy), "--runs"]) == 0
+    header, row = capsys.readouterr().out.splitlines()[:2]
+    assert header.split()[-3:] == ["devices", "failed", "indeterminate"] and row.split()[-3:] == ["5", "1", "1"]

@@ -5,17 +5,19 @@ half-written, and the database and the files agree."""
 from __future__ import annotations
 
 import json
+import queue
 import random
 import signal
 import sqlite3
 import subprocess
 import sys
+import threading
 import time
 from functools import partial
 from pathlib import Path
 
 import skrf
-from record_checks import check_records_agree, device_rows, run_cli
+from record_checks import check_records_agree, device_rows, run_cli, steps_in_pairs
 
 from lineproof.journal import read_journal
 from lineproof.touchstone import read_metadata
@@ -55,6 +57,7 @@ def test_ctrl_c_stops_between_devices_and_the_run_resumes(tmp_path: Path, sequen
     assert 2 <= len(first) < 10
     with sqlite3.connect(records / "results.sqlite") as db:
         assert db.execute("SELECT status FROM runs").fetchone() == ("interrupted",)
+    assert (records / "runs" / run_id / "run.lock").is_file()  # resumable: its lock stays
 
     resumed = run_cli("run", "--resume", run_id, "--records", str(records), cwd=tmp_path)
     assert resumed.returncode == 1, resumed.stderr  # TM150-0004 fails
@@ -65,6 +68,7 @@ def test_ctrl_c_stops_between_devices_and_the_run_resumes(tmp_path: Path, sequen
     with sqlite3.connect(records / "results.sqlite") as db:
         assert db.execute("SELECT COUNT(*) FROM calibrations").fetchone() == (1,)  # still valid: kept
         assert db.execute("SELECT status FROM runs").fetchone() == ("complete",)
+    assert not (records / "runs" / run_id / "run.lock").exists()  # complete: no lock left behind
 
 
 def progressed(records: Path, before: int, devices_wanted: int, process: subprocess.Popen[str]) -> bool:
@@ -162,3 +166,86 @@ def test_a_calibration_too_old_or_disproven_is_made_again_on_resume(tmp_path: Pa
     again = run_cli("run", "--resume", strict_run, "--records", "strict", cwd=tmp_path)
     assert again.returncode == 2 and "its last check-standard verification failed" in again.stdout
     assert not list((tmp_path / "strict" / "runs" / strict_run).glob("*.s1p"))
+
+
+def run_with_ctrl_c(args: list[str], cwd: Path, when, timeout_s: float = 60.0) -> tuple[list[dict], int, str]:  # noqa: ANN001
+    """``lineproof run --json``: its events, exit code and standard error; SIGINT is sent the
+    moment ``when(events)`` first holds."""
+    lines: queue.Queue[str | None] = queue.Queue()
+    events: list[dict] = []
+    signalled = False
+    with (cwd / "stderr.txt").open("w+") as errors, subprocess.Popen(
+            [sys.executable, "-m", "lineproof.cli", *args, "--json"], cwd=cwd, stdout=subprocess.PIPE, stderr=errors,
+            text=True) as process:
+        reader = threading.Thread(target=lambda: [lines.put(line) for line in process.stdout]  # type: ignore[union-attr]
+                                  + [lines.put(None)])
+        reader.start()
+        deadline = time.monotonic() + timeout_s
+        while (line := lines.get(timeout=max(0.1, deadline - time.monotonic()))) is not None:
+            events.append(json.loads(line))
+            if not signalled and when(events):
+                process.send_signal(signal.SIGINT)
+                signalled = True
+        reader.join()
+        process.wait(timeout=60)
+        errors.seek(0)
+        stderr = errors.read()
+    assert signalled, "the moment to press Ctrl-C never came"
+    return events, process.returncode, stderr
+
+
+def in_the_final_check(events: list[dict]) -> bool:
+    """The batch's last device is swept and the check after it has begun."""
+    last_swept = [i for i, e in enumerate(events) if e.get("step") == "TM150-0010: connect and sweep"
+                  and e["event"] == "step-finished"]
+    return bool(last_swept) and events[-1]["event"] == "step-started" and events[-1]["step"].startswith("verifying")
+
+
+def test_ctrl_c_in_the_final_check_completes_a_run_with_nothing_left_to_measure(tmp_path: Path,
+                                                                                  sequence_variant) -> None:
+    # The check standard connected ten times: a final check long enough for Ctrl-C to land in;
+    # a route after the batch, which measures nothing.
+    sequence = sequence_variant(time_scale=1.0, replace={
+        "tolerance = 0.015": "tolerance = 0.015\nrepeats = 10",
+        '[[step]]\ndo = "measure-batch"': '[[step]]\ndo = "measure-batch"\n\n[[step]]\ndo = "route"\nto = "good-termination"'})
+    records = tmp_path / "rec"
+    events, code, stderr = run_with_ctrl_c(["run", str(sequence), "--records", str(records)], tmp_path,
+                                           in_the_final_check)
+    assert code == 1, stderr  # complete; TM150-0004 fails
+    notes = [e["text"] for e in events if e["event"] == "note"]
+    assert any(n.startswith("Ctrl-C: stopping after the current device or step") for n in notes)  # it landed
+    assert "Ctrl-C came when nothing was left to measure: the run is complete" in notes
+    assert ("routing to good-termination", "step-finished", "routed to good-termination") in steps_in_pairs(events)
+    assert events[-1]["status"] == "complete" and events[-1]["exit_code"] == 1 and "resume_command" not in events[-1]
+    run_id = events[0]["run_id"]
+    assert sorted(check_records_agree(records, run_id)) == ALL_SERIALS
+    with sqlite3.connect(records / "results.sqlite") as db:
+        assert db.execute("SELECT status FROM runs").fetchone() == ("complete",)
+        assert db.execute("SELECT MAX(devices_before) FROM verifications").fetchone() == (10,)
+
+
+def test_ctrl_c_before_a_step_that_measures_says_so_and_the_resume_only_does_that(tmp_path: Path,
+                                                                                sequence_variant) -> None:
+    sequence = sequence_variant(time_scale=1.0, replace={
+        "tolerance = 0.015": "tolerance = 0.015\nrepeats = 10",
+        '[[step]]\ndo = "measure-batch"': '[[step]]\ndo = "measure-batch"\n\n[[step]]\ndo = "verify"'})
+    records = tmp_path / "rec"
+    events, code, stderr = run_with_ctrl_c(["run", str(sequence), "--records", str(records)], tmp_path,
+                                           in_the_final_check)
+    assert code == 2, stderr
+    finished = events[-1]
+    assert finished["status"] == "interrupted" and finished["reason"] == (
+        "stopped by Ctrl-C before step 5 (verify); every device of the batch is recorded; still to do: verify")
+    steps_in_pairs(events)
+    run_id = finished["run_id"]
+    resumed = run_cli("run", "--resume", run_id, "--records", str(records), "--json", cwd=tmp_path)
+    assert resumed.returncode == 1, resumed.stderr
+    again = [json.loads(line) for line in resumed.stdout.splitlines()]
+    pairs = steps_in_pairs(again)
+    assert not any(e["event"] == "device" for e in again)  # nothing measured again
+    assert pairs[0][0].startswith("keeping calibration cal-") and "kept: still valid" in pairs[0][2]
+    # What is left is the verify step, and the check after the tenth device still holds for it.
+    checks = [(e["devices_before"], e["reused"]) for e in again if e["event"] == "verification"]
+    assert checks and all(check == (10, True) for check in checks)
+    assert again[-1]["status"] == "complete"
+    assert sorted(check_records_agree(records, run_id)) == ALL_SERIALS

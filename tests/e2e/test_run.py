@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import skrf
-from record_checks import check_records_agree, device_rows, run_cli
+from record_checks import check_records_agree, device_rows, run_cli, steps_in_pairs
 
 from lineproof.cli import main
 from lineproof.simulators.bench import SimulatedBench
@@ -50,6 +50,8 @@ def test_a_batch_is_recorded_completely_and_matches_the_truth(tmp_path: Path, se
     # directivity, which is the actual load's reflection: 40-45 dB return loss here, |Γ| <= 0.01.
     assert all(abs(m - 0.2) < 0.012 for (m,) in check_bands)
     assert status == ("complete",)
+    assert sorted(p.name for p in (records / "runs" / run_id).iterdir() if not p.suffix == ".s1p") == [
+        "journal.jsonl", "sequence.toml"]  # no empty run.lock left in a finished run's folder
 
     # Against the hidden truth: a device's recorded reflection is its true as-terminated input
     # reflection within the same residual (plus the scenario's connector repeatability, 0.0005).
@@ -154,6 +156,7 @@ def test_a_station_file_replaces_the_sequences_station(tmp_path: Path, sequence_
     assert refused.returncode == 3
     error = json.loads(refused.stdout)
     assert error["event"] == "error" and error["kind"] == "invalid-input"
+    assert error["ok"] is False and error["exit_code"] == 3  # the same object as every command's
     line = station.read_text().splitlines().index('colour = "red"') + 1
     assert error["problems"] == [{"file": str(station), "line": line, "key": "colour", "problem": "unknown key",
                                   "fix": error["problems"][0]["fix"]}]
@@ -172,3 +175,29 @@ def test_checks_fall_due_by_time_and_the_analyzer_is_identified_again(tmp_path: 
     assert checks == sorted(set(checks))  # never two checks without a device between them
     assert any(e["event"] == "step-finished" and e["text"].startswith("identified: Tarnmoor Instruments")
                for e in events)
+    assert ("identifying the analyzer", "step-finished") in {pair[:2] for pair in steps_in_pairs(events)}
+
+
+def test_a_command_line_mistake_exits_3_from_the_installed_command(tmp_path: Path) -> None:
+    # argparse alone would exit 2, which means "the run could not complete".
+    completed = run_cli("run", "--bogus", "x", "--json", cwd=tmp_path)
+    assert completed.returncode == 3
+    assert json.loads(completed.stdout)["problems"][0]["key"] == "--bogus"
+    assert "usage: lineproof run" in completed.stderr and not (tmp_path / "lineproof-records").exists()
+
+
+def test_check_refuses_the_database_run_would_refuse_with_file_and_line(tmp_path: Path, sequence_variant) -> None:
+    stranger = tmp_path / "passwd"
+    stranger.write_text("root:x:0:0:root:/root:/bin/sh\n")
+    for database, problem in (("postgresql://u@h/db", "PostgreSQL results databases are not supported"),
+                              (str(stranger), "is not an SQLite database")):
+        sequence = sequence_variant(replace={"[[step]]\ndo = \"calibrate\"":
+                                             f'[records]\ndatabase = "{database}"\n\n[[step]]\ndo = "calibrate"'})
+        line = sequence.read_text().splitlines().index(f'database = "{database}"') + 1
+        where = f"{sequence}:{line} [records.database]: "
+        checked = run_cli("check", str(sequence), cwd=tmp_path)
+        assert checked.returncode == 3 and where in checked.stderr and problem in checked.stderr
+        refused = run_cli("run", str(sequence), "--records", "rec", cwd=tmp_path)
+        assert refused.returncode == 3 and where in refused.stderr and "<input>" not in refused.stderr
+        assert not (tmp_path / "rec").exists()
+    assert stranger.read_text() == "root:x:0:0:root:/root:/bin/sh\n"

@@ -123,7 +123,14 @@ def test_two_port_device_record_holds_ideal_termination_output_match_and_as_term
     output = float(metrics.vswr_from_reflection(np.abs(truth[inside, 1, 1]).max()))
     assert float(result.extra["band.low.output_match.worst_vswr"]) == pytest.approx(output, abs=1e-3)
     (marker,) = judged.markers
-    assert marker.frequency_hz == pytest.approx(146e6, abs=f[1] - f[0])
+    assert result.markers == (marker,) and marker.frequency_hz == pytest.approx(146e6, abs=(f[1] - f[0]) / 2)
+    # what it reads there is the device's truth at that point (this bench's standards are the kit's)
+    at = int(np.argmin(np.abs(f - 146e6)))
+    assert marker.figure == "input-match" and marker.reflection == pytest.approx(abs(truth[at, 0, 0]), abs=1e-5)
+    assert marker.insertion_loss_db == pytest.approx(float(metrics.insertion_loss_db(truth[at, 1, 0])), abs=1e-4)
+    assert marker.phase_deg == pytest.approx(float(np.degrees(np.angle(truth[at, 1, 0]))), abs=1e-3)
+    true_delay = float(metrics.group_delay_s(f, truth[:, 1, 0])[at])
+    assert marker.group_delay_s == pytest.approx(true_delay, abs=1e-13) and true_delay > 1e-9
     assert judged.verdict is Verdict.PASS and "4.2.3" in judged.decision_rule
     assert result.bands[1].verdict is Verdict.FAIL
 

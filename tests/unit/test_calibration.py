@@ -155,27 +155,3 @@ def test_a_method_beyond_the_analyzer_is_refused() -> None:
     with pytest.raises(CalibrationError, match="unknown calibration method"):
         calibration.choose_method("full", "trl")
 
-
-def test_75_ohm_system_is_corrected_correctly() -> None:
-    # A device defined by scikit-rf in 50 ohm and renormalised by scikit-rf to 75 ohm (the
-    # reference), measured through error terms with the 75-ohm kit's standards (defined
-    # against 75 ohm): the correction must return the 75-ohm reflection.  scikit-rf 2.2's
-    # OnePort.apply_cal is wrong here (it assumes 50 ohm); our closed form has no Z0 in it.
-    import skrf
-
-    f = PLAN.frequencies()
-    frequency = skrf.Frequency.from_f(f, unit="Hz")
-    media = skrf.media.DefinedGammaZ0(frequency, z0_port=50.0, z0=50.0)
-    device = media.resistor(30.0) ** media.shunt_capacitor(2e-12) ** media.short()  # a one-port in 50 ohm
-    truth_50 = device.s[:, 0, 0].copy()
-    device.renormalize(75.0)
-    truth_75 = device.s[:, 0, 0]
-    kit = load_kit("kits/n75-illustrative.toml")
-    assert kit.reference_impedance_ohm == 75.0
-    terms = random_terms(np.random.default_rng(23), f.size)
-    ideals = {kind: kit.ideal(kind, f) for kind in ("open", "short", "load")}
-    cal = calibration.make_record("test", calibration.solve_one_port(
-        f, {k: embed(terms, v) for k, v in ideals.items()}, ideals), f, PLAN, IDENTITY, kit.name, kit.sha256, 75.0)
-    np.testing.assert_allclose(calibration.correct_one_port(cal, f, embed(terms, truth_75)), truth_75, atol=1e-11)
-    # and the 75-ohm figure differs from the 50-ohm one: the test would notice a 50-ohm slip
-    assert np.max(np.abs(truth_75 - truth_50)) > 0.05

@@ -106,7 +106,7 @@ def test_touchstone_standard_is_used_and_interpolated(tmp_path) -> None:
     kit = load_kit(tmp_path / "k.toml")
     np.testing.assert_allclose(kit.ideal("open", grid), data, atol=1e-12)
     np.testing.assert_allclose(kit.ideal("open", F), 0.999 * np.exp(-2j * np.pi * F * 60e-12), atol=1e-6)
-    with pytest.raises(InputError, match=r"k.toml \[standards.open.touchstone\].*leaves the known span"):
+    with pytest.raises(InputError, match=r"k.toml:5 \[standards.open.touchstone\].*leaves the known span"):
         kit.ideal("open", np.linspace(1e6, 7e9, 11))
 
 
@@ -133,7 +133,7 @@ def test_more_bad_kits_name_key_and_fix(tmp_path, text: str, key: str, words: st
 
 def test_kit_without_a_thru_says_so_for_a_two_port_calibration() -> None:
     kit = parse_kit("[kit]\nname='k'\n[standards.open]\nkind='open'\n", "k.toml")
-    with pytest.raises(InputError, match=r"k.toml \[standards\]: the kit has no thru.*\[standards.thru\]"):
+    with pytest.raises(InputError, match=r"k.toml:3 \[standards\]: the kit has no thru.*\[standards.thru\]"):
         kit.thru(F)
 
 
@@ -147,3 +147,34 @@ def test_shipped_kits_are_complete_and_marked_illustrative(name: str, z0: float)
     # every model standard is passive: |Γ| <= 1 over the range a kit of this kind serves
     for kind in ("open", "short", "load"):
         assert np.all(np.abs(kit.ideal(kind, F)) <= 1.0 + 1e-12)
+
+
+def test_a_second_standard_of_one_kind_is_refused_with_both_names_line_and_fix() -> None:
+    # Before: the kit loaded and kit.standard("open") silently took whichever open came first.
+    text = ("[kit]\nname='k'\n[standards.open]\nkind='open'\n[standards.short]\nkind='short'\n"
+            "[standards.open-2]\nkind='open'\noffset_delay_s=30e-12\n[standards.load]\nkind='load'\n")
+    with pytest.raises(InputError) as caught:
+        parse_kit(text, "two-opens.toml")
+    message = str(caught.value)
+    assert message.startswith("two-opens.toml:8 [standards.open-2.kind]: a second open standard")
+    assert "[standards.open]" in message and "fix: keep one open" in message
+
+
+@pytest.mark.parametrize(("text", "expected"), [
+    # line 6 sets the mistyped kind; line 7 the negative delay; line 1 the [kit] table without a name
+    ("[kit]\nname='k'\n\n# a comment\n[standards.open]\nkind='opne'\n", "k.toml:6 [standards.open.kind]"),
+    ("[kit]\nname='k'\n[standards.open]\nkind='open'\n\n\noffset_delay_s=-1e-12\n", "k.toml:7 [standards.open.offset_delay_s]"),
+    ("[kit]\nconnector='N'\n[standards.open]\nkind='open'\n", "k.toml:1 [kit.name]"),
+    ("[kit]\nname='k'\n[standards.load]\nkind='load'\n\n[uncertainty]\nopen_phase_deg=-1\n",
+     "k.toml:7 [uncertainty.open_phase_deg]"),
+])
+def test_kit_errors_carry_the_line_of_their_key(text: str, expected: str) -> None:
+    with pytest.raises(InputError) as caught:
+        parse_kit(text, "k.toml")
+    assert str(caught.value).startswith(expected + ":")
+
+
+def test_a_missing_standard_asked_of_a_loaded_kit_names_the_standards_line() -> None:
+    kit = parse_kit("[kit]\nname='k'\n\n[standards.open]\nkind='open'\n", "k.toml")
+    with pytest.raises(InputError, match=r"^k.toml:4 \[standards\]: the kit has no short"):
+        kit.standard("short")

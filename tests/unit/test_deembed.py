@@ -79,3 +79,24 @@ def test_delay_from_length() -> None:
     assert deembed.delay_from_length(1.0, 0.66) == pytest.approx(5.0541e-9, rel=1e-4)
     with pytest.raises(ValueError):
         deembed.delay_from_length(1.0, 1.5)
+
+
+def test_touchstone_adapter_referred_to_another_impedance_is_renormalised(tmp_path: Path) -> None:
+    # 150 ps of 60-ohm line as scikit-rf's media gives it between 75-ohm ports, written to a
+    # file (its option line says R 75) and read into a 50-ohm system: it must be the same line
+    # as scikit-rf's media gives it between 50-ohm ports (scikit-rf as the reference library).
+    grid = np.linspace(1e6, 6e9, 3001)
+    length = 150e-12 * 3e8
+
+    def line(frequency: skrf.Frequency, z_ports: float) -> skrf.Network:
+        media = skrf.media.DefinedGammaZ0(frequency, z0_port=z_ports, z0=60.0,
+                                          gamma=1j * 2 * np.pi * frequency.f / 3e8)
+        return media.line(length, unit="m")
+
+    line(skrf.Frequency.from_f(grid, unit="Hz"), 75.0).write_touchstone(str(tmp_path / "line75"))
+    assert skrf.Network(str(tmp_path / "line75.s2p")).z0[0, 0] == 75.0
+    adapter = deembed.adapter_from_touchstone(tmp_path / "line75.s2p", F, 50.0)
+    at_50 = line(FREQUENCY, 50.0).s
+    np.testing.assert_allclose(adapter.s, at_50, atol=1e-6)
+    # the 75-ohm numbers taken as they stand would be another adapter altogether
+    assert np.max(np.abs(line(FREQUENCY, 75.0).s - at_50)) > 0.1

@@ -67,6 +67,14 @@ def test_crossed_anova_agrees_with_statsmodels(seed: int) -> None:
         assert reference.loc[term, "sum_sq"] == pytest.approx(ss, rel=1e-9)
         assert reference.loc[term, "df"] == df
     assert reference.loc["C(device)", "F"] == pytest.approx(table.ms_devices / table.ms_error, rel=1e-9)
+    # The variance components from statsmodels' mean squares by the crossed random-effects
+    # model's expected mean squares (Montgomery, from memory): devices against the interaction.
+    ms = reference["sum_sq"] / reference["df"]
+    result = variance_components(table, tolerance=0.2)
+    devices = (ms["C(device)"] - ms["C(device):C(operator)"]) / (k * r)
+    assert result.device_sd == pytest.approx(math.sqrt(max(devices, 0.0)), rel=1e-9)
+    interaction = (ms["C(device):C(operator)"] - ms["Residual"]) / r
+    assert result.interaction_sd == pytest.approx(math.sqrt(max(interaction, 0.0)), rel=1e-9, abs=1e-15)
 
 
 def test_variance_components_recover_known_spreads() -> None:

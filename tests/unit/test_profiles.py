@@ -34,6 +34,7 @@ set_start = "FREQ:STAR {start_hz:.0f}"
 set_stop = "FREQ:STOP {stop_hz:.0f}"
 set_points = "SWE:POIN {points}"
 trigger = "INIT"
+wait = { send = "*OPC?", reply = "complete" }
 read_raw = { send = "TRAC? RAW", reply = "block" }
 """
 
@@ -80,6 +81,158 @@ def test_bad_profiles_name_the_key(change: tuple[str, str], key: str) -> None:
         parse_analyzer_profile(text, "mine.toml")
     message = str(caught.value)
     assert "mine.toml" in message and f"[{key}]" in message
+
+
+@pytest.mark.parametrize(
+    ("operation", "allowed"),
+    [
+        ('identify = "*IDN?"', '"identity"'),  # a plain string means no reply
+        ('event_status = "*ESR?"', '"text" or "status"'),
+        ('next_error = { send = "SYST:ERR?", reply = "text" }', '"error-entry"'),
+        ('wait = "*OPC?"', '"complete" or "status"'),
+        ('read_temperature = { send = "SYST:TEMP?", reply = "text" }', '"numbers"'),
+        ('read_frequencies = { send = "FREQ:DATA?", reply = "text" }', '"block", "numbers" or "rows"'),
+        ('reset = { send = "*RST", reply = "identity" }', '"none", "text" or "complete"'),
+        ('set_power = { send = "POW {power_dbm}", reply = "numbers" }', '"none", "text" or "complete"'),
+    ],
+)
+def test_each_operation_allows_only_the_reply_kinds_the_driver_reads(operation: str, allowed: str) -> None:
+    name = operation.split(" = ", 1)[0]
+    lines = [line for line in MINIMAL.splitlines() if not line.startswith(f"{name} = ")]
+    text = "\n".join(lines).replace("[operations]", f"[operations]\n{operation}")
+    with pytest.raises(InputError) as caught:
+        parse_analyzer_profile(text, "mine.toml")
+    error = caught.value
+    assert (error.path, error.key) == ("mine.toml", f"operations.{name}.reply")
+    assert f"{name} must reply {allowed}" in error.problem and f"{name} = {{ send = " in error.fix
+
+
+def test_an_analyzer_must_have_a_way_to_tell_that_its_sweep_ended() -> None:
+    # Without a wait, a trigger without a reply would be followed at once by the trace read,
+    # which could return the previous sweep.
+    without_wait = MINIMAL.replace('wait = { send = "*OPC?", reply = "complete" }\n', "")
+    with pytest.raises(InputError) as caught:
+        parse_analyzer_profile(without_wait, "mine.toml")
+    error = caught.value
+    assert (error.path, error.key) == ("mine.toml", "operations.wait")
+    assert "previous sweep" in error.problem and 'wait = { send = "*OPC?", reply = "complete" }' in error.fix
+    for trigger in ('{ send = "INIT;*OPC?", reply = "complete" }', '{ send = "take", reply = "text" }'):
+        profile = parse_analyzer_profile(without_wait.replace('trigger = "INIT"', f"trigger = {trigger}"), "x.toml")
+        assert profile.operation("wait") is None
+
+
+def test_a_polled_wait() -> None:
+    polled = '{ send = "*ESR?", reply = "status", arm = "*OPC", done_bits = 1 }'
+    profile = parse_analyzer_profile(MINIMAL.replace('{ send = "*OPC?", reply = "complete" }', polled), "x.toml")
+    wait = profile.operation("wait")
+    assert (wait.send, wait.reply, wait.arm, wait.done_bits) == ("*ESR?", "status", "*OPC", 1)
+
+
+@pytest.mark.parametrize(
+    ("wait", "key"),
+    [
+        ('{ send = "*ESR?", reply = "status" }', "operations.wait.done_bits"),
+        ('{ send = "*ESR?", reply = "status", done_bits = 0 }', "operations.wait.done_bits"),
+        ('{ send = "*ESR?", reply = "status", done_bits = 1, arm = "*OPC {points}" }', "operations.wait.arm"),
+        ('{ send = "*OPC?", reply = "complete", done_bits = 1 }', "operations.wait.done_bits"),
+        ('{ send = "*OPC?", reply = "complete", arm = "*OPC" }', "operations.wait.arm"),
+    ],
+)
+def test_bad_polled_waits_name_the_key_and_the_fix(wait: str, key: str) -> None:
+    text = MINIMAL.replace('{ send = "*OPC?", reply = "complete" }', wait)
+    with pytest.raises(InputError) as caught:
+        parse_analyzer_profile(text, "mine.toml")
+    assert (caught.value.path, caught.value.key) == ("mine.toml", key) and caught.value.fix
+
+
+def test_a_switch_reads_its_channels_as_numbers() -> None:
+    with pytest.raises(InputError, match=r"\[operations.query_closed.reply\]: query_closed must reply \"numbers\""):
+        parse_switch_profile(SWITCH + '[operations]\nquery_closed = { send = "ROUT:CLOS? {channels}", reply = "text" }',
+                             "matrix.toml")
+
+
+def _with_timing(line: str) -> tuple[str, str]:
+    return "[operations]", f"[timing]\n{line}\n[operations]"
+
+
+@pytest.mark.parametrize(
+    ("change", "key"),
+    [
+        (("ports = 1", "ports = 0"), "capabilities.ports"),
+        (("ports = 1", "ports = -2"), "capabilities.ports"),
+        (("ports = 1", "ports = 5"), "capabilities.ports"),
+        (('parameters = ["S11"]', 'parameters = ["S11", "S22"]'), "capabilities.parameters"),  # one port
+        (('paths = "reflection"', 'paths = "full"'), "capabilities.paths"),  # one port
+        (('parameters = ["S11"]', 'parameters = ["S11", "T11"]'), "capabilities.parameters"),
+        (("frequency_max_hz = 1e9", "frequency_max_hz = inf"), "capabilities.frequency_max_hz"),
+        (("frequency_max_hz = 1e9", "frequency_max_hz = nan"), "capabilities.frequency_max_hz"),
+        (("frequency_max_hz = 1e9", "frequency_max_hz = 1e5"), "capabilities.frequency_max_hz"),
+        (("frequency_min_hz = 1e6", "frequency_min_hz = 0"), "capabilities.frequency_min_hz"),
+        (("frequency_min_hz = 1e6", "frequency_min_hz = -inf"), "capabilities.frequency_min_hz"),
+        (("max_points = 201", "max_points = 1"), "capabilities.max_points"),
+        (_with_timing("settle_per_point_s = -1e-3"), "timing.settle_per_point_s"),
+        (_with_timing("sweep_overhead_s = -0.1"), "timing.sweep_overhead_s"),
+        (_with_timing("sweep_overhead_s = inf"), "timing.sweep_overhead_s"),
+        (_with_timing("command_timeout_s = inf"), "timing.command_timeout_s"),
+        (_with_timing("command_timeout_s = 0"), "timing.command_timeout_s"),
+        (_with_timing("transfer_timeout_margin = -1"), "timing.transfer_timeout_margin"),
+        (_with_timing("retries = 11"), "timing.retries"),
+        (_with_timing("retries = -1"), "timing.retries"),
+        (('trigger = "INIT"', 'trigger = { send = "INIT", timeout_s = inf }'), "operations.trigger.timeout_s"),
+        (('set_start = "FREQ:STAR {start_hz:.0f}"', 'set_start = "FREQ:STAR {start_hz"'), "operations.set_start.send"),
+        (('trigger = "INIT"', "trigger = 7"), "operations.trigger"),
+        (('kind = "analyzer"', 'kind = "meter"'), "profile.kind"),
+    ],
+)
+def test_values_out_of_range_are_refused_with_file_key_and_fix(change: tuple[str, str], key: str) -> None:
+    text = MINIMAL.replace(*change)
+    assert text != MINIMAL
+    with pytest.raises(InputError) as caught:
+        parse_analyzer_profile(text, "mine.toml")
+    error = caught.value
+    assert (error.path, error.key) == ("mine.toml", key)
+    assert error.fix and f"mine.toml [{key}]: " in str(error) and " -- fix: " in str(error)
+
+
+@pytest.mark.parametrize(
+    ("change", "key"),
+    [
+        (("parity = \"E\"", "parity = \"E\"\nstop_bits = 3"), "link.stop_bits"),
+        (("parity = \"E\"", "parity = \"E\"\nbyte_size = 9"), "link.byte_size"),
+        (("baud_rate = 9600", "baud_rate = 0"), "link.baud_rate"),
+        (("baud_rate = 9600", "baud_rate = 9600.5"), "link.baud_rate"),
+    ],
+)
+def test_line_settings_out_of_range_are_refused_with_file_key_and_fix(change: tuple[str, str], key: str) -> None:
+    text = LINE.replace(*change)
+    assert text != LINE
+    with pytest.raises(InputError) as caught:
+        parse_analyzer_profile(text, "line.toml")
+    assert (caught.value.path, caught.value.key) == ("line.toml", key) and caught.value.fix
+
+
+def test_stop_bits_may_be_one_and_a_half() -> None:
+    assert parse_analyzer_profile(LINE.replace('parity = "E"', 'parity = "E"\nstop_bits = 1.5'),
+                                  "line.toml").link.stop_bits == 1.5
+
+
+@pytest.mark.parametrize("change", [("modules = 2", "modules = 0"), ("channels_per_module = 6", "channels_per_module = -1")])
+def test_a_switch_of_no_channels_is_refused(change: tuple[str, str]) -> None:
+    with pytest.raises(InputError) as caught:
+        parse_switch_profile(SWITCH.replace(*change), "matrix.toml")
+    assert caught.value.key == f"capabilities.{change[1].split(' =')[0]}" and caught.value.fix
+
+
+def test_a_misspelt_based_on_names_the_users_file(tmp_path: Path) -> None:
+    path = tmp_path / "my-analyzer.toml"
+    path.write_text('[profile]\nname = "mine"\nkind = "analyzer"\nbased_on = "generic-scpi-analyser"\n',
+                    encoding="utf-8")
+    with pytest.raises(InputError) as caught:
+        load_analyzer_profile(path)
+    error = caught.value
+    assert (error.path, error.key) == (str(path), "profile.based_on")
+    assert "'generic-scpi-analyser'" in error.problem and "generic-scpi-analyzer" in error.fix
+    assert str(error).startswith(f"{path} [profile.based_on]: ")
 
 
 def test_unknown_shipped_profile_lists_the_known_ones() -> None:

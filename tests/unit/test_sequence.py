@@ -200,3 +200,92 @@ dotted.key = 5
     assert lines.line_of("b[1].y") == 14 and lines.line_of("b[1].c.z") == 16
     assert lines.line_of("b[2].y") == 19 and lines.line_of("b[2].dotted.key") == 20
     assert lines.line_of("nothing.here") is None
+
+
+def test_a_stored_calibration_is_named_as_lineproof_names_it(tmp_path: Path) -> None:
+    reuse = 'kit = "kits/n50-illustrative.toml"\nreuse = "latest"\nmax_interpolation_error = 2e-3'
+    spec = load_sequence(write(tmp_path, GOOD.replace('kit = "kits/n50-illustrative.toml"', reuse)))
+    assert spec.calibration is not None and spec.calibration.reuse == "latest"
+    assert spec.calibration.max_interpolation_error == 2e-3
+    named = GOOD.replace('kit = "kits/n50-illustrative.toml"',
+                         'kit = "kits/n50-illustrative.toml"\nreuse = "cal-20260101T120000Z-1a2b3c"')
+    assert load_sequence(write(tmp_path, named)).calibration.reuse == "cal-20260101T120000Z-1a2b3c"
+    text = GOOD.replace('kit = "kits/n50-illustrative.toml"', 'kit = "kits/n50-illustrative.toml"\nreuse = "newest"')
+    (found,) = problems_of(tmp_path, text)
+    assert found.key == "calibration.reuse" and found.line == line_of(text, 'reuse = "newest"')
+    assert "'newest' names no stored calibration" in found.problem and 'reuse = "latest"' in found.fix
+    # the calibrate step is where a stored calibration is loaded
+    text = GOOD.replace('kit = "kits/n50-illustrative.toml"', reuse).replace(
+        '[[step]]\ndo = "calibrate"\n\n[[step]]\ndo = "qualify-termination"\n\n[[step]]\ndo = "verify"\n\n'
+        '[[step]]\ndo = "measure-batch"\n', '[[step]]\ndo = "message"\ntext = "nothing to do"\n')
+    by_key = {p.key: p for p in problems_of(tmp_path, text)}
+    assert "loaded by the calibrate step, and this sequence has none" in by_key["calibration.reuse"].problem
+
+
+def test_markers_are_named_and_lie_in_the_sweep(tmp_path: Path) -> None:
+    marker = '[[marker]]\nname = "{}"\nfrequency_hz = {}\n\n[calibration]'
+    two = marker.format("f0", "146e6").replace("\n\n[calibration]", "\n\n") + marker.format("f1", "435e6")
+    spec = load_sequence(write(tmp_path, GOOD.replace("[calibration]", two)))
+    assert spec.marker_frequencies == {"f0": 146e6, "f1": 435e6}
+    text = GOOD.replace("[calibration]", marker.format("f0", "146e6").replace("\n\n[calibration]", "\n\n")
+                        + marker.format("F 0", "600e6").replace("\n\n[calibration]", "\n\n")
+                        + marker.format("f0", "146e6"))
+    by_key = {p.key: p for p in problems_of(tmp_path, text)}
+    assert "marker name 'F 0' is not allowed" in by_key["marker[2].name"].problem
+    assert "marker at 600 MHz lies outside the sweep (100-500 MHz" in by_key["marker[2].frequency_hz"].problem
+    assert by_key["marker[2].frequency_hz"].line == line_of(text, "600e6")
+    assert "defined twice" in by_key["marker[3].name"].problem
+
+
+def test_the_results_database_a_sequence_names_is_checked_read_only(tmp_path: Path) -> None:
+    # `lineproof run` would refuse each of these only after opening the station; check says so first.
+    import sqlite3
+
+    from lineproof.store import ResultStore
+
+    url = problems_of(tmp_path, GOOD + '\n[records]\ndatabase = "postgresql://u@h/db"\n')
+    assert [(p.key, p.line) for p in url] == [("records.database", GOOD.count("\n") + 3)]
+    assert "PostgreSQL" in url[0].problem and url[0].path == str(tmp_path / "sequence.toml") and url[0].fix
+
+    stranger = tmp_path / "passwd"
+    stranger.write_text("root:x:0:0:root:/root:/bin/sh\n")
+    named = problems_of(tmp_path, GOOD + f'\n[records]\ndatabase = "{stranger}"\n')
+    assert [p.key for p in named] == ["records.database"] and "not an SQLite database" in named[0].problem
+    assert str(stranger) in named[0].problem and stranger.read_text() == "root:x:0:0:root:/root:/bin/sh\n"
+
+    (tmp_path / "rec").mkdir()
+    with sqlite3.connect(tmp_path / "rec" / "results.sqlite") as db:
+        db.execute("CREATE TABLE stock (part TEXT)")
+    text = GOOD + '\n[records]\nfolder = "rec"\n'
+    in_folder = problems_of(tmp_path, text)
+    assert [(p.key, p.line) for p in in_folder] == [("records.folder", line_of(text, 'folder = "rec"'))]
+    assert "not one lineproof created" in in_folder[0].problem
+
+    (tmp_path / "rec" / "results.sqlite").unlink()
+    ResultStore(tmp_path / "rec" / "results.sqlite").close()  # ours: the run may use it
+    assert load_sequence(write(tmp_path, text)).records_folder == "rec"
+    assert load_sequence(write(tmp_path, GOOD + '\n[records]\ndatabase = "new.sqlite"\n')).database == "new.sqlite"
+
+
+def test_a_station_files_problems_name_its_own_lines_and_tables(tmp_path: Path) -> None:
+    # The analyzer's port is judged against its profile after the station file is read: the
+    # problem still carries the station file's line, and a fix names the table as that file writes it.
+    station = write(tmp_path, f'name = "bench B"\nsimulated_bench = "{SCENARIOS / "batch-bench.toml"}"\n'
+                    'connected_by = "simulated-operator"\n\n[analyzer]\nprofile = "generic-scpi-reflectometer"\n'
+                    "port = 2\n", "station.toml")
+    with pytest.raises(SequenceProblems) as caught:
+        load_sequence(write(tmp_path, GOOD), station)
+    [port] = caught.value.problems  # once: not again as a parameter the one-port calibration lacks
+    assert (port.path, port.key, port.line) == (str(station), "analyzer.port", 7)
+    assert "the analyzer has 1 port(s)" in port.problem and port.fix == "use a port from 1 to 1"
+
+    station.write_text(station.read_text().replace('"simulated-operator"', '"switch"').replace("port = 2\n", ""))
+    with pytest.raises(SequenceProblems) as caught:
+        load_sequence(tmp_path / "sequence.toml", station)
+    [switch] = caught.value.problems
+    assert (switch.key, switch.line) == ("connected_by", 3)
+    assert switch.fix.startswith("add a [switch] table")  # in a station file; [station.switch] in a sequence
+
+    in_sequence = problems_of(tmp_path, GOOD.replace('connected_by = "simulated-operator"', 'connected_by = "switch"'))
+    [switch] = [p for p in in_sequence if p.key == "station.connected_by"]
+    assert switch.fix.startswith("add a [station.switch] table") and switch.line == line_of(GOOD, "connected_by")

@@ -72,7 +72,15 @@ def test_a_method_named_needs_its_routes(tmp_path: Path) -> None:
 
 def test_methods_the_run_or_the_analyzer_cannot_do(tmp_path: Path) -> None:
     found = problems(tmp_path, {'method = "best"': 'method = "thru-response"'})
-    assert "corrects transmission only" in found["calibration.method"][0].problem
+    limit = found["band[1].max_vswr"][0]
+    assert limit.problem == "band 2m limits reflection, and a thru-response calibration measures transmission only"
+    assert limit.fix == 'remove max_vswr from the band, or calibrate with method = "solt" or "one-path", which ' \
+        "measure the match too"
+    assert "it cannot judge as-terminated" in found["measurement.judge"][0].problem
+    assert "it cannot qualify a termination" in found["step[2].do"][0].problem
+    assert "cannot read the check standard's reflection" in found["step[3].do"][0].problem
+    assert "cannot read the check standard's reflection" in found["reverify"][0].problem
+    assert "add raw_source_match_db and raw_load_match_db" in found["station.uncertainty"][0].fix
     found = problems(tmp_path, {'method = "best"': 'method = "solt"', "port = 1 ": "port = 2 "})
     assert "from port 1 (its input) to port 2" in found["station.analyzer.port"][0].problem
     reflectometer = {'profile = "generic-scpi-analyzer"': 'profile = "generic-scpi-reflectometer"'}
@@ -98,6 +106,47 @@ def test_figures_against_the_bands_limits(tmp_path: Path) -> None:
                                 'as_terminated = "computed"': 'as_terminated = "guessed"'})
     assert "must list figures once each" in found["measurement.judge"][0].problem
     assert "use one of: computed, measured" in found["measurement.as_terminated"][0].fix
+
+
+#: two-port-batch.toml judging insertion loss alone (no match limits) ...
+LOSS_ONLY = {'judge = ["as-terminated", "insertion-loss"]': 'judge = ["insertion-loss"]',
+             "max_vswr = 1.10\n": "", "max_vswr = 1.20\n": ""}
+#: ... and reading no reflection either (a transmission-only check), the analyzer's raw match stated.
+TRANSMISSION_ONLY = {
+    **LOSS_ONLY,
+    "switch_path_mismatch = 0.001 ": "raw_source_match_db = 18.0\nraw_load_match_db = 18.0\nswitch_path_mismatch = 0.001 ",
+    '[[step]]\ndo = "qualify-termination"\n': "", '[[step]]\ndo = "verify"\n': "",
+    "[reverify]\nevery_devices = 6\nat_end = true\n": "",
+}
+
+
+def test_a_transmission_only_check_gets_the_best_method_that_can_do_it(tmp_path: Path) -> None:
+    spec = load_sequence(variant(tmp_path, TRANSMISSION_ONLY))
+    assert spec.calibration is not None and spec.calibration.method == "solt"  # it corrects the mismatch too
+    # without port 2's standards SOLT cannot be done, nor one-path (no route turns a device round):
+    # a thru response can, and lineproof says why it chose it; one-port never (no transmission)
+    spec = load_sequence(variant(tmp_path, {**TRANSMISSION_ONLY, PORT2: ""}))
+    assert spec.calibration is not None and spec.calibration.method == "thru-response"
+    assert spec.calibration.chosen == ("the best the analyzer (full paths) allows that this station can do (solt: "
+                                       "the switch has no route for the open standard at port 2; one-path: the "
+                                       "switch has no route for TM150-0101 turned round (its output on port 1))")
+    # a check that reads reflection too (it qualifies a termination, verifies with a check
+    # standard) never falls back on a thru response
+    found = problems(tmp_path, {**LOSS_ONLY, PORT2: ""})
+    assert len(found["station.switch.wiring_port2"]) == 3 and "which a solt run needs" in \
+        found["station.switch.wiring_port2"][0].problem
+
+
+def test_a_thru_response_check_needs_its_statements(tmp_path: Path) -> None:
+    thru = {**TRANSMISSION_ONLY, 'method = "best"': 'method = "thru-response"'}
+    spec = load_sequence(variant(tmp_path, {**thru, 'as_terminated = "computed"': "device_max_vswr = 1.2"}))
+    assert spec.measurement.device_max_vswr == 1.2
+    found = problems(tmp_path, {**thru, "raw_source_match_db = 18.0\n": ""})
+    assert "does not state them" in found["station.uncertainty"][0].problem
+    found = problems(tmp_path, {**TRANSMISSION_ONLY, 'as_terminated = "computed"': "device_max_vswr = 1.2"})
+    assert "a solt calibration measures the devices' match" in found["measurement.device_max_vswr"][0].problem
+    found = problems(tmp_path, {**thru, 'as_terminated = "computed"': "device_max_vswr = 0.9"})
+    assert "must be greater than 1" in found["measurement.device_max_vswr"][0].problem
 
 
 def test_a_band_may_limit_insertion_loss_alone(tmp_path: Path) -> None:

@@ -14,7 +14,7 @@ import re
 
 import numpy as np
 import pytest
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 from scripted import ScriptedTransport
 
@@ -38,10 +38,24 @@ def test_definite_block_is_read_exactly() -> None:
     assert session.query_block("TRAC? RAW") == payload
 
 
-def test_leading_white_space_and_indefinite_block() -> None:
-    session, _ = _session(lambda cmd: b" \r#15hello\n" if cmd.startswith(b"A") else b"#0abc,def\n")
+def test_leading_white_space_before_a_block() -> None:
+    session, _ = _session(lambda cmd: b" \r#15hello\n")
     assert session.query_block("A?") == b"hello"
-    assert session.query_block("B?") == b"abc,def"  # §8.7.10: to NL^END
+
+
+def test_an_indefinite_block_is_refused_and_its_rest_never_read_as_the_next_reply() -> None:
+    # IEEE 488.2 §8.7.10: '#0' runs to NL^END; a byte stream has no END, and this REAL,64
+    # payload holds a 0x0A byte (the first NL would have cut it short).
+    payload = np.array([1.0 + 10 * 2.0 ** -52, 3.0]).astype("<f8").tobytes()  # 0a 00 .. f0 3f
+    assert b"\n" in payload[:-1]
+    session, transport = _session(lambda cmd: b"#0" + payload + b"\n" if cmd == b"TRAC? RAW\n" else b"1\n")
+    with pytest.raises(ReplyError) as caught:
+        session.query_block("TRAC? RAW")
+    error = caught.value
+    assert error.command == "TRAC? RAW" and error.resource == transport.resource
+    assert "indefinite-length block" in str(error) and "fix: set the instrument to definite-length blocks" in str(error)
+    assert session.query("*OPC?") == "1"  # not the rest of the block
+    assert transport.reopened == 1
 
 
 def test_declared_size_above_the_cap_is_refused_before_reading() -> None:
@@ -85,20 +99,19 @@ def test_a_truncated_block_never_yields_data(payload: bytes, cut: int) -> None:
 
 @settings(max_examples=300, deadline=None)
 @given(garbage=st.binary(min_size=1, max_size=64))
+@example(garbage=b"#0\x01\x02\n\x03\n")  # indefinite: the first NL would cut it
 def test_garbage_is_an_error_or_exactly_the_block_it_declares(garbage: bytes) -> None:
     session, _ = _session(lambda cmd: garbage, retries=0, block_cap=1 << 16)
     try:
         payload = session.query_block("D?")
     except (LinkError, ReplyError):
         return
-    # Only bytes that form a valid block come through, and then exactly its payload.
+    # Only bytes that form a valid definite-length block come through (an indefinite one,
+    # '#0', cannot be told apart from a cut one), and then exactly its payload.
     header = ieee488.parse_block_header(garbage, 1 << 16)
-    assert header is not None
-    if header.payload_length is None:
-        assert garbage[header.header_length:].split(b"\n")[0] == payload
-    else:
-        end = header.header_length + header.payload_length
-        assert garbage[header.header_length:end] == payload and garbage[end:end + 1] == b"\n"
+    assert header is not None and header.payload_length is not None
+    end = header.header_length + header.payload_length
+    assert garbage[header.header_length:end] == payload and garbage[end:end + 1] == b"\n"
 
 
 @settings(max_examples=50, deadline=None)

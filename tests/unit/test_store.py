@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 from lineproof.errors import InputError
-from lineproof.store import ResultStore, open_store
+from lineproof.store import ResultStore, database_file_problem, open_store, url_problem
 from lineproof.store_schema import SCHEMA_VERSION
 from lineproof.values import CalibrationRecord, InstrumentIdentity, SweepPlan
 
@@ -114,3 +114,71 @@ def test_a_calibration_round_trips_through_the_database(tmp_path: Path) -> None:
     assert np.array_equal(back.frequencies_hz, f)
     for name, value in terms.items():
         assert np.array_equal(back.terms[name], value)
+
+
+def test_schema_3_band_results_are_kept_and_a_transmission_only_band_fits_after(tmp_path: Path) -> None:
+    from lineproof.store_schema import MIGRATION_2, MIGRATION_3, SCHEMA_1, SQLITE
+    from lineproof.values import BandLimit, BandResult, DeviceIdentity, DeviceResult, FigureResult, Verdict
+
+    path = tmp_path / "results.sqlite"
+    with sqlite3.connect(path) as db:  # a database as schema 3 left it, with one device and band
+        for statement in (*SCHEMA_1, *MIGRATION_2, *MIGRATION_3):
+            db.execute(SQLITE.render(statement))
+        db.execute("INSERT INTO lineproof_meta VALUES ('application', 'lineproof'), ('schema_version', '3')")
+        db.execute("INSERT INTO runs (run_id, started_utc, status, sequence_name, station, operator, software_version,"
+                   " analyzer, resource, sweep_plan) VALUES ('run-3', 'x', 'complete', 's', 'st', 'op', 'v', 'a', 'r', 'p')")
+        db.execute("INSERT INTO devices (device_row, run_id, serial, model, measured_utc, verdict, touchstone)"
+                   " VALUES (1, 'run-3', 'A-1', 'm', 'x', 'pass', 'runs/run-3/A-1.s1p')")
+        db.execute("INSERT INTO band_results VALUES (1, '2m', 144e6, 148e6, 1.1, 1.01, 148e6, 1.005, 46.0, 0.002,"
+                   " 'pass', 'simple')")
+    band = BandLimit("pass", 1e7, 1e8, float("inf"), max_insertion_loss_db=1.0)
+    loss = FigureResult("insertion-loss", 0.15, 3.2e7, 0.05, 1.0, 0.83, 0.98, Verdict.PASS)
+    result = DeviceResult(DeviceIdentity("B-1", "m"), (BandResult(band, None, 3.2e7, None, None, Verdict.PASS, "rule",
+                                                                  figures=(loss,)),), "x")
+    with ResultStore(path) as store:
+        assert store.schema_version == SCHEMA_VERSION == 4
+        assert store.query("SELECT band, worst_vswr, mean_vswr, expanded_uncertainty, figure FROM band_results") == [
+            ("2m", 1.01, 1.005, 0.002, None)]
+        row = store.record_device("run-3", result, "runs/run-3/B-1.s2p")
+        assert store.query("SELECT worst_vswr, worst_frequency_hz, worst_return_loss_db, limit_vswr, figure, verdict"
+                           " FROM band_results WHERE device_row = ?", (row,)) == [
+            (None, 3.2e7, None, float("inf"), "insertion-loss", "pass")]
+    assert (tmp_path / "results.sqlite.schema3-backup").is_file()
+
+
+def test_a_database_file_is_judged_read_only(tmp_path: Path) -> None:
+    # What `lineproof check` says of a [records] database before a run would open it.
+    ours = tmp_path / "ours.sqlite"
+    ResultStore(ours).close()
+    foreign = tmp_path / "inventory.sqlite"
+    with sqlite3.connect(foreign) as db:
+        db.execute("CREATE TABLE parts (name TEXT)")
+    newer = tmp_path / "newer.sqlite"
+    ResultStore(newer).close()
+    with sqlite3.connect(newer) as db:
+        db.execute("UPDATE lineproof_meta SET value = '99' WHERE key = 'schema_version'")
+    text_file = tmp_path / "passwd"
+    text_file.write_text("root:x:0:0:root:/root:/bin/sh\n")
+    empty = tmp_path / "empty.sqlite"
+    empty.touch()
+    folder = tmp_path / "folder.sqlite"
+    folder.mkdir()
+    before = {p.name: (digest(p), p.stat().st_mtime_ns) for p in tmp_path.iterdir() if p.is_file()}
+    found = {name: database_file_problem(tmp_path / name) for name in
+             ("ours.sqlite", "absent.sqlite", "empty.sqlite", "inventory.sqlite", "newer.sqlite", "passwd",
+              "folder.sqlite")}
+    assert found["ours.sqlite"] is None and found["absent.sqlite"] is None and found["empty.sqlite"] is None
+    assert "not one lineproof created" in found["inventory.sqlite"][0]
+    assert "schema 99 is newer" in found["newer.sqlite"][0]
+    assert "not an SQLite database" in found["passwd"][0]
+    assert "not a file" in found["folder.sqlite"][0]
+    assert all(problem is None or problem[1] for problem in found.values())  # each with its fix
+    # Nothing written, nothing created beside them (no journal, no new database).
+    assert {p.name: (digest(p), p.stat().st_mtime_ns) for p in tmp_path.iterdir() if p.is_file()} == before
+
+
+def test_database_urls_are_judged_without_connecting() -> None:
+    assert "PostgreSQL" in url_problem("postgresql://u@h/db")[0]
+    assert "PostgreSQL" in url_problem("postgres://u@h/db")[0]
+    assert "unknown database URL scheme" in url_problem("mysql://u@h/db")[0]
+    assert url_problem("results.sqlite") is None and url_problem("/var/lib/lineproof/results.sqlite") is None

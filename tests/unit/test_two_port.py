@@ -1,5 +1,5 @@
 """Two-port calibration: SOLT and one-path solves against scikit-rf's own algorithms, 12-term
-correction round trips, thru response, grids, and a 75-ohm system."""
+correction round trips, thru response and grids (a 75-ohm system: test_seventy_five_ohm.py)."""
 
 from __future__ import annotations
 
@@ -147,26 +147,6 @@ def test_missing_terms_are_named() -> None:
     del terms["reverse.load_match"]
     with pytest.raises(CalibrationError, match="reverse.load_match"):
         two_port.correct_two_port(record(terms), F, random_device(39))
-
-
-def test_75_ohm_two_port_round_trip() -> None:
-    # SOLT with the 75-ohm kit (standards and flush thru defined against 75 ohm) recovers a
-    # 75-ohm device that scikit-rf renormalised from its 50-ohm definition.
-    kit = load_kit("kits/n75-illustrative.toml")
-    frequency = skrf.Frequency.from_f(F, unit="Hz")
-    media = skrf.media.DefinedGammaZ0(frequency, z0_port=50.0, z0=50.0)
-    device = media.inductor(20e-9) ** media.shunt_capacitor(4e-12) ** media.inductor(20e-9)
-    device.renormalize(75.0)
-    truth = random_terms(40)
-    ideals = {kind: kit.ideal(kind, F) for kind in ("open", "short", "load")}
-    thru = kit.thru(F)
-    measured = {k: two_port.embed_two_port(truth, reflects(v)) for k, v in ideals.items()}
-    terms = two_port.solve_solt(F, {k: m[:, 0, 0] for k, m in measured.items()},
-                                {k: m[:, 1, 1] for k, m in measured.items()}, ideals,
-                                two_port.embed_two_port(truth, thru), thru,
-                                two_port.embed_two_port(truth, reflects(np.zeros(F.size, complex))))
-    corrected = two_port.correct_two_port(record(terms, 75.0), F, two_port.embed_two_port(truth, device.s))
-    np.testing.assert_allclose(corrected, device.s, atol=1e-10)
 
 
 def test_terminated_reflection_matches_scikit_rf() -> None:

@@ -28,14 +28,26 @@ from lineproof.uncertainty import (
 F = np.linspace(1e6, 3e9, 61)
 
 
-def test_mismatch_limits_worked_example() -> None:
-    # Published worked example: a VSWR 1.35 source (|Γ| 0.15) driving a VSWR 1.5 load (|Γ| 0.2)
-    # has mismatch error limits of +0.257 dB and -0.265 dB (microwave software, "Utilities+
-    # User Manual", Mismatch Error Limits, p. 31; formula 20 log10(1 ± |ΓA||ΓB|) as in RF Cafe,
-    # "VSWR & Mismatch", rfcafe.com/references/electrical/vswr-mismatch.htm).
-    plus, minus = mismatch_limits_db(0.15, 0.2)
-    assert plus == pytest.approx(0.257, abs=5e-4)
-    assert minus == pytest.approx(-0.265, abs=5e-4)
+@pytest.mark.parametrize(("gamma_1", "gamma_2", "percent", "db"), [
+    ((1.5 - 1) / (1.5 + 1), (1.2 - 1) / (1.2 + 1), 3.64, 0.155),  # VSWR 1.5:1 generator, 1.2:1 sensor
+    (10 ** (-20 / 20), 10 ** (-23 / 20), 1.41, 0.061),           # return losses 20 dB and 23 dB
+])
+def test_mismatch_limits_against_published_worked_examples(gamma_1: float, gamma_2: float, percent: float,
+                                                           db: float) -> None:
+    # T. Lymer, "Calculating Mismatch Uncertainty", Microwave Journal, 15 May 2008, Examples 1
+    # and 2: ±3.64 % or ±0.155 dB, and ±1.41 % or ±0.061 dB.  The article's figures are the
+    # binomial series of the power ratio cut after two terms, ±200 |Γ1||Γ2| %: the mean of the
+    # exact upper and lower limits (in %) is that term, to the article's rounding of |Γ| to
+    # three places; each limit differs from it by the dropped |Γ1 Γ2|² (computed from the
+    # formula 20 log10(1 ± |Γ1||Γ2|) the function states).  In dB the article gives one figure
+    # for both signs; the limits differ from it by its rounding and the dropped terms (measured
+    # here: 0.0015 dB above, 0.0044 dB below at most).
+    plus, minus = mismatch_limits_db(gamma_1, gamma_2)
+    up, down = 100 * (10 ** (plus / 10) - 1), 100 * (1 - 10 ** (minus / 10))
+    assert (up + down) / 2 == pytest.approx(percent, abs=0.01)
+    assert (up - down) / 2 == pytest.approx(100 * (gamma_1 * gamma_2) ** 2, rel=1e-9)
+    assert plus == pytest.approx(db, abs=0.002)
+    assert minus == pytest.approx(-db, abs=0.005)
 
 
 def test_cascaded_vswr_worked_example() -> None:
@@ -56,9 +68,12 @@ def test_cascade_bounds_hold_for_any_phase() -> None:
 
 
 def test_u_shaped_standard_uncertainty() -> None:
-    # Harris and Warner, IEE Proc. H 128(1), 1981; also the E4416A/E4417A power meter service
-    # guide's mismatch term: u = |Γ1||Γ2| / sqrt(2).  Checked against the projection of a
-    # vector of that magnitude at uniformly random phase (numpy).
+    # I. A. Harris and F. L. Warner, "Re-examination of mismatch uncertainty when measuring
+    # microwave power and attenuation", IEE Proc. H 128(1), pp. 35-41, 1981 (doi
+    # 10.1049/ip-h-1.1981.0007): with the phases unknown, the mismatch term |Γ1||Γ2| cos φ is
+    # U-shaped.  Its standard deviation, half-width / sqrt(2) (the arcsine distribution's; from
+    # memory), is checked here against the projection of a vector of that magnitude at
+    # uniformly random phase (numpy).
     assert mismatch_standard_uncertainty(0.2, 0.15) == pytest.approx(0.03 / math.sqrt(2))
     phases = np.random.default_rng(1).uniform(0, 2 * np.pi, 400_000)
     assert np.std(0.03 * np.cos(phases)) == pytest.approx(0.03 / math.sqrt(2), rel=5e-3)

@@ -6,6 +6,8 @@ from __future__ import annotations
 
 from types import SimpleNamespace
 
+import pytest
+
 from lineproof.drivers import visa_backend
 
 
@@ -32,7 +34,24 @@ def test_workarounds_leave_other_backends_alone() -> None:
     assert visa_backend.peer_closed(handle) is False
 
 
-def test_install_hint_passes_the_backends_sentence_on() -> None:
-    error = ValueError("Please install PyUSB to use this resource type.\nNo module named 'usb'")
-    assert visa_backend.install_hint(error) == "Please install PyUSB to use this resource type."
+@pytest.mark.parametrize(
+    ("message", "command"),
+    [  # pyvisa-py 0.8.1's own sentences
+        ("Please install PyUSB to use this resource type.\nNo module named 'usb'", "pip install pyusb"),
+        ("PyUSB does not seem to be properly installed.\nPlease refer to the PyUSB documentation",
+         "pip install libusb-package"),
+        ("Please install PySerial (>=3.0) to use this resource type.\nNo module named 'serial'", "pip install pyserial"),
+        ("Please install linux-gpib (Linux) or gpib-ctypes (Windows, Linux) to use this resource type. Note that "
+         "installing gpib-ctypes will give you access to a broader range of functionalities.\nNo module named 'gpib'",
+         "pip install gpib-ctypes"),
+        ("Please install PyVICP to use this resource type.", "pip install pyvicp"),
+    ],
+)
+def test_install_hint_passes_the_backends_sentence_on_with_the_command(message: str, command: str) -> None:
+    hint = visa_backend.install_hint(ValueError(message))
+    assert hint.startswith(message.splitlines()[0]) and f"Install it with: {command}" in hint
+    assert "\n" not in hint
+
+
+def test_install_hint_is_none_for_other_errors() -> None:
     assert visa_backend.install_hint(ValueError("something else")) is None
