@@ -62,7 +62,7 @@ def _check_analyzer(spec: SequenceSpec, problems: Problems):  # -> AnalyzerCapab
     try:
         profile = load_analyzer_profile(_profile_path(spec, spec.station.analyzer.profile))
     except InputError as exc:
-        problems.items.append(exc)
+        problems.items.extend(getattr(exc, "problems", None) or [exc])  # a profile's every problem
         problems.add(key, "the analyzer profile named here cannot be used (see above)",
                      "name a shipped profile or a valid profile file", source=source)
         return None
@@ -298,7 +298,7 @@ def _check_switch(spec: SequenceSpec, problems: Problems) -> None:
     try:
         load_switch_profile(_profile_path(spec, switch.profile))
     except InputError as exc:
-        problems.items.append(exc)
+        problems.items.extend(getattr(exc, "problems", None) or [exc])  # a profile's every problem
         problems.add(profile_key, "the switch profile named here cannot be used (see above)",
                      "name a shipped switch profile or a valid profile file", source=source)
 
