@@ -332,15 +332,20 @@ def _check_simulated_bench(spec: SequenceSpec, problems: Problems) -> None:
     scenario_name = spec.station.simulated_bench
     if scenario_name is None:
         return
-    from lineproof.simulators.scenario import load_scenario
+    from lineproof.simulators.scenario import find_scenario, load_scenario
 
     key, source = _station_key(spec, "simulated_bench")
     local = Path(spec.station.source).parent / scenario_name
     try:
-        scenario = load_scenario(local if local.is_file() else scenario_name)
-    except InputError as exc:
+        path = find_scenario(local if local.is_file() else scenario_name)
+    except InputError as exc:  # no such file: the sequence's key is what is wrong
         problems.add(key, exc.problem, exc.fix or "name a shipped scenario (e.g. demo-bench) or a scenario file",
                      source=source)
+        return
+    try:
+        scenario = load_scenario(path)
+    except InputError as exc:  # the scenario file is wrong: its own file, line and key, and who named it
+        problems.absorb(exc, key, source=source, what="the simulated bench scenario")
         return
     if spec.station.connected_by == "switch":
         return  # the switch reaches what the scenario wires; _check_switch covered the names

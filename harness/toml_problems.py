@@ -50,15 +50,17 @@ class Problems:
             line = lines.line_of(key)
         self.items.append(InputError(problem, path=source or self.source, key=key, line=line, fix=fix))
 
-    def absorb(self, error: InputError, key: str | None = None) -> None:
-        """Keep an error raised by another loader (a kit, a profile), naming where it was used."""
-        if error.path and error.path != self.source:
+    def absorb(self, error: InputError, key: str | None = None, *, source: str | None = None,
+               what: str = "the file") -> None:
+        """Keep an error raised by another loader (a kit, a profile, a scenario) with its own file,
+        line and key, and name ``key`` (in ``source``, this file by default) as where it was used."""
+        if error.path and error.path != (source or self.source):
             self.items.append(error)
             if key is not None:
-                self.add(key, f"the file named here has a problem (see {error.path} above)",
-                         "correct that file or name another one")
+                self.add(key, f"{what} named here has a problem (see {error.path} above)",
+                         "correct that file or name another one", source=source)
         else:
-            self.add(key or error.key, error.problem, error.fix)
+            self.add(key or error.key, error.problem, error.fix, source=source)
 
     def __bool__(self) -> bool:
         return bool(self.items)
