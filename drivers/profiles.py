@@ -18,7 +18,7 @@ from pathlib import Path
 from typing import Any
 
 from lineproof.drivers import ieee488, line_protocol
-from lineproof.drivers.profile_files import TableReader, load_toml, profile_text, with_base
+from lineproof.drivers.profile_files import ProfileProblemList, TableReader, load_toml, profile_text, with_base
 from lineproof.drivers.profile_files import shipped_profile_names as shipped_profile_names
 from lineproof.errors import InputError
 
@@ -208,12 +208,12 @@ def _check_template(reader: TableReader, key: str, send: str, fields: frozenset[
     for slot in _SLOT.findall(send):
         match = _SLOT_BODY.match(slot)
         if not match or match.group(1) not in fields:
-            raise reader.error(key, f"template slot {{{slot}}} is not allowed here",
-                               fix=f"use only these slots: {', '.join(sorted(fields)) or 'none'} "
-                               "(with an optional numeric format such as :.0f)")
+            reader.problem(key, f"template slot {{{slot}}} is not allowed here",
+                           fix=f"use only these slots: {', '.join(sorted(fields)) or 'none'} "
+                           "(with an optional numeric format such as :.0f)")
     if "{" in _SLOT.sub("", send) or "}" in _SLOT.sub("", send):
-        raise reader.error(key, "unbalanced brace in template",
-                           fix="close every { with } around a slot name; braces cannot be sent literally")
+        reader.problem(key, "unbalanced brace in template",
+                       fix="close every { with } around a slot name; braces cannot be sent literally")
 
 
 def _either(kinds: tuple[str, ...]) -> str:
@@ -228,86 +228,104 @@ def _reply_fix(name: str, send: str, allowed: tuple[str, ...]) -> str:
     return f"write e.g. {example} (reply may be {_either(allowed)}; see DEVELOPERS.md, the operations table)"
 
 
-def _parse_operation(reader: TableReader, name: str, spec: OperationSpec) -> Operation:
+def _parse_operation(reader: TableReader, name: str, spec: OperationSpec) -> Operation | None:
+    """The operation, or None when a problem (recorded) leaves it unusable."""
     raw = reader.data[name]
     if isinstance(raw, str):
         raw = {"send": raw}
     if not isinstance(raw, dict):
-        raise reader.error(name, "must be a string or a table {send = ..., reply = ...}",
-                           fix=f'write {name} = "<command>" or {name} = {{ send = "<command>", reply = "..." }}')
-    table = TableReader(raw, reader.path, f"{reader.key(name)}.")
+        reader.problem(name, "must be a string or a table {send = ..., reply = ...}",
+                       fix=f'write {name} = "<command>" or {name} = {{ send = "<command>", reply = "..." }}')
+        return None
+    table = TableReader(raw, reader.path, f"{reader.key(name)}.", reader.problems)
     table.reject_unknown({"send", "reply", "idempotent", "timeout_s", "columns", "arm", "done_bits"})
     send = table.get("send", str)
-    _check_template(reader, f"{name}.send", send, spec.fields)
+    if send is not None:
+        _check_template(reader, f"{name}.send", send, spec.fields)
     reply = table.choice("reply", REPLY_KINDS, "none")
-    if reply not in spec.replies:
-        raise table.error("reply", f"{name} must reply {_either(spec.replies)}, not {reply!r}"
-                          + (" (a plain string means no reply)" if isinstance(reader.data[name], str) else ""),
-                          fix=_reply_fix(name, send, spec.replies))
-    columns = tuple(table.get("columns", list, []))
+    if reply is not None and reply not in spec.replies:
+        table.problem("reply", f"{name} must reply {_either(spec.replies)}, not {reply!r}"
+                      + (" (a plain string means no reply)" if isinstance(reader.data[name], str) else ""),
+                      fix=_reply_fix(name, send or "...", spec.replies))
+        reply = None
+    columns = tuple(table.get("columns", list, []) or ())
     if reply == "rows":
         if not columns or not all(c in ROW_COLUMNS for c in columns):
-            raise table.error("columns", f"a rows reply needs columns from {', '.join(ROW_COLUMNS)}",
-                              fix='e.g. columns = ["frequency", "re", "im"]')
-    elif columns:
-        raise table.error("columns", "only a rows reply has columns", fix='remove it or set reply = "rows"')
+            table.problem("columns", f"a rows reply needs columns from {', '.join(ROW_COLUMNS)}",
+                          fix='e.g. columns = ["frequency", "re", "im"]')
+    elif columns and reply is not None:
+        table.problem("columns", "only a rows reply has columns", fix='remove it or set reply = "rows"')
     timeout = table.positive("timeout_s", None) if "timeout_s" in raw else None
-    arm, done_bits = _parse_polling(reader, table, name, reply)
-    return Operation(send=send, reply=reply, idempotent=table.get("idempotent", bool, spec.idempotent),
-                     timeout_s=timeout, columns=columns, arm=arm, done_bits=done_bits)
+    arm, done_bits = _parse_polling(table, name, reply)
+    idempotent = table.get("idempotent", bool, spec.idempotent)
+    if send is None or reply is None:
+        return None
+    return Operation(send=send, reply=reply, idempotent=bool(idempotent), timeout_s=timeout, columns=columns,
+                     arm=arm, done_bits=done_bits)
 
 
-def _parse_polling(reader: TableReader, table: TableReader, name: str, reply: str) -> tuple[str | None, int]:
+def _parse_polling(table: TableReader, name: str, reply: str | None) -> tuple[str | None, int]:
     """``arm`` and ``done_bits`` of a polled wait (and of nothing else)."""
+    if reply is None:
+        return None, 0  # the reply's own problem is reported; what goes with it cannot be judged
     if not (name == "wait" and reply == "status"):
         for key in ("arm", "done_bits"):
             if key in table.data:
-                raise table.error(key, f"only a polled wait (wait with reply = \"status\") has {key}",
-                                  fix="remove it")
+                table.problem(key, f"only a polled wait (wait with reply = \"status\") has {key}", fix="remove it")
         return None, 0
     done_bits = table.get("done_bits", int, fix='e.g. done_bits = 1 (bit 0 of *ESR?, Operation Complete)')
-    if not 1 <= done_bits <= 0xFFFF:
-        raise table.error("done_bits", f"must be a bit mask 1..65535, got {done_bits}",
-                          fix="give the bits that say the operation is done, e.g. 1 for bit 0 of *ESR?")
+    if done_bits is not None and not 1 <= done_bits <= 0xFFFF:
+        table.problem("done_bits", f"must be a bit mask 1..65535, got {done_bits}",
+                      fix="give the bits that say the operation is done, e.g. 1 for bit 0 of *ESR?")
     arm = table.get("arm", str, None)
     if arm is not None:
         _check_template(table, "arm", arm, frozenset())
         if not arm.strip():
-            raise table.error("arm", "must not be empty", fix='e.g. arm = "*OPC", or remove it')
-    return arm, done_bits
+            table.problem("arm", "must not be empty", fix='e.g. arm = "*OPC", or remove it')
+    return arm, done_bits or 0
 
 
 def _parse_operations(root: TableReader, allowed: Mapping[str, OperationSpec],
-                      required: tuple[str, ...]) -> dict[str, Operation]:
+                      required: tuple[str, ...]) -> tuple[dict[str, Operation], set[str]]:
+    """The operations that could be read, and the names of every operation the file defines."""
     reader = root.table("operations")
+    if reader is None:
+        return {}, set()
     reader.reject_unknown(set(allowed))
-    operations = {name: _parse_operation(reader, name, allowed[name]) for name in reader.data}
+    operations = {}
+    for name in reader.data:
+        if name in allowed:
+            operation = _parse_operation(reader, name, allowed[name])
+            if operation is not None:
+                operations[name] = operation
     for name in required:
-        if name not in operations:
-            raise reader.error(name, "missing operation", fix=f"add {name} = {{ send = \"...\" }}")
-    return operations
+        if name not in reader.data:
+            reader.problem(name, "missing operation", fix=f"add {name} = {{ send = \"...\" }}")
+    return operations, set(reader.data)
 
 
-def _parse_link(reader: TableReader) -> LinkSettings:
+def _parse_link(reader: TableReader | None) -> LinkSettings:
     defaults = LinkSettings()
+    if reader is None:
+        return defaults
     reader.reject_unknown(set(LinkSettings.__dataclass_fields__))
     for name in ("write_termination", "read_termination", "rows_end"):
-        if not reader.get(name, str, "x"):
-            raise reader.error(name, "must not be empty", fix='give it as e.g. "\\n"')
+        if reader.get(name, str, "x") == "":
+            reader.problem(name, "must not be empty", fix='give it as e.g. "\\n"')
     error_line = reader.get("error_line", str, None)
     if error_line is not None:
         try:
             line_protocol.compile_error_pattern(error_line)
         except ieee488.CodecError as exc:
-            raise reader.error("error_line", str(exc), fix=r"e.g. '^\?(?P<code>\d+) (?P<text>.*)$'") from exc
+            reader.problem("error_line", str(exc), fix=r"e.g. '^\?(?P<code>\d+) (?P<text>.*)$'")
     prompt = reader.get("prompt", str, None)
     if prompt == "":
-        raise reader.error("prompt", "must not be empty", fix="remove it when the instrument sends no prompt")
+        reader.problem("prompt", "must not be empty", fix="remove it when the instrument sends no prompt")
     return LinkSettings(
         write_termination=reader.get("write_termination", str, defaults.write_termination),
         read_termination=reader.get("read_termination", str, defaults.read_termination),
         echo=reader.get("echo", bool, False),
-        prompt=prompt,
+        prompt=prompt or None,
         error_line=error_line,
         rows_end=reader.get("rows_end", str, defaults.rows_end),
         baud_rate=reader.whole("baud_rate", 1, None, defaults.baud_rate, fix="give the line's rate, e.g. baud_rate = 115200"),
@@ -318,24 +336,26 @@ def _parse_link(reader: TableReader) -> LinkSettings:
     )
 
 
-def _byte_size(reader: TableReader) -> int:
+def _byte_size(reader: TableReader) -> int | None:
     value = reader.get("byte_size", int, 8)
-    if value not in (5, 6, 7, 8):
-        raise reader.error("byte_size", f"must be 5, 6, 7 or 8, got {value}",
-                           fix="give the data bits per character, usually byte_size = 8")
+    if value is not None and value not in (5, 6, 7, 8):
+        reader.problem("byte_size", f"must be 5, 6, 7 or 8, got {value}",
+                       fix="give the data bits per character, usually byte_size = 8")
     return value
 
 
-def _stop_bits(reader: TableReader) -> float:
+def _stop_bits(reader: TableReader) -> float | None:
     value = reader.get("stop_bits", float, LinkSettings().stop_bits)
-    if value not in (1, 1.5, 2):
-        raise reader.error("stop_bits", f"must be 1, 1.5 or 2, got {value:g}", fix="usually stop_bits = 1")
+    if value is not None and value not in (1, 1.5, 2):
+        reader.problem("stop_bits", f"must be 1, 1.5 or 2, got {value:g}", fix="usually stop_bits = 1")
     return value
 
 
-def _parse_timing(reader: TableReader) -> Timing:
-    reader.reject_unknown(set(Timing.__dataclass_fields__))
+def _parse_timing(reader: TableReader | None) -> Timing:
     defaults = Timing()
+    if reader is None:
+        return defaults
+    reader.reject_unknown(set(Timing.__dataclass_fields__))
     retries = reader.whole("retries", 0, 10, defaults.retries,
                            fix="give how often an idempotent query may be repeated, 0..10 (default 2)")
     return Timing(
@@ -350,34 +370,28 @@ def _parse_timing(reader: TableReader) -> Timing:
     )
 
 
-def _parse_analyzer_capabilities(reader: TableReader) -> AnalyzerCapabilities:
+def _parse_analyzer_capabilities(reader: TableReader | None) -> AnalyzerCapabilities | None:
+    if reader is None:
+        return None
     reader.reject_unknown(set(AnalyzerCapabilities.__dataclass_fields__))
     paths = reader.choice("paths", ("reflection", "forward", "full"),
                           fix="use reflection (1-port), forward (one-path 2-port) or full")
     ports = reader.whole("ports", 1, 4, fix="give the analyzer's test ports, 1 to 4 (parameters are named S11..S44)")
-    if paths != "reflection" and ports < 2:
-        raise reader.error("paths", f"paths = {paths!r} measures transmission, which needs two ports, not {ports}",
-                           fix='use paths = "reflection" for a one-port analyzer, or set ports = 2')
+    if paths not in (None, "reflection") and ports is not None and ports < 2:
+        reader.problem("paths", f"paths = {paths!r} measures transmission, which needs two ports, not {ports}",
+                       fix='use paths = "reflection" for a one-port analyzer, or set ports = 2')
     low, high = _frequency_range(reader)
     max_points = reader.whole("max_points", 2, None,
                               fix="give the most points the instrument sweeps at once, e.g. max_points = 1601")
-    parameters = reader.get("parameters", list)
-    if not parameters or not all(isinstance(p, str) and re.fullmatch(r"S[1-4][1-4]", p) for p in parameters):
-        raise reader.error("parameters", "parameters must be a non-empty list of S-parameter names",
-                           fix='e.g. parameters = ["S11", "S21"]')
-    beyond = [p for p in parameters if max(int(p[1]), int(p[2])) > ports]
-    if beyond:
-        raise reader.error("parameters", f"{', '.join(beyond)} need{'s' if len(beyond) == 1 else ''} more than "
-                           f"the {ports} port{'s' if ports > 1 else ''} of capabilities.ports",
-                           fix=f"list only parameters of ports 1..{ports}, or set ports to the analyzer's number of ports")
-    names = reader.get("parameter_names", dict, {})
+    parameters = _parameters(reader, ports)
+    names = reader.get("parameter_names", dict, {}) or {}
     for key, value in names.items():
-        if key not in parameters or not isinstance(value, str) or not re.fullmatch(r"[\w:/.-]+", value):
-            raise reader.error(f"parameter_names.{key}", "must map a listed parameter to a plain name",
-                               fix='e.g. parameter_names = { S11 = "s11" }')
+        if key not in (parameters or ()) or not isinstance(value, str) or not re.fullmatch(r"[\w:/.-]+", value):
+            reader.problem(f"parameter_names.{key}", "must map a listed parameter to a plain name",
+                           fix='e.g. parameter_names = { S11 = "s11" }')
     return AnalyzerCapabilities(
         ports=ports, paths=paths, frequency_min_hz=low, frequency_max_hz=high,
-        max_points=max_points, parameters=tuple(parameters),
+        max_points=max_points, parameters=tuple(parameters or ()),
         raw_data=reader.get("raw_data", bool, True), corrected_data=reader.get("corrected_data", bool, False),
         data_format=reader.choice("data_format", ("REAL,64", "REAL,32", "ASCII"), "REAL,64"),
         byte_order=reader.choice("byte_order", ("big", "little"), "big"),
@@ -385,19 +399,38 @@ def _parse_analyzer_capabilities(reader: TableReader) -> AnalyzerCapabilities:
     )
 
 
-def _frequency_range(reader: TableReader) -> tuple[float, float]:
+def _parameters(reader: TableReader, ports: int | None) -> list[str] | None:
+    parameters = reader.get("parameters", list)
+    if parameters is None:
+        return None
+    if not parameters or not all(isinstance(p, str) and re.fullmatch(r"S[1-4][1-4]", p) for p in parameters):
+        reader.problem("parameters", "parameters must be a non-empty list of S-parameter names",
+                       fix='e.g. parameters = ["S11", "S21"]')
+        return None
+    beyond = [p for p in parameters if ports is not None and max(int(p[1]), int(p[2])) > ports]
+    if beyond:
+        reader.problem("parameters", f"{', '.join(beyond)} need{'s' if len(beyond) == 1 else ''} more than "
+                       f"the {ports} port{'s' if ports > 1 else ''} of capabilities.ports",
+                       fix=f"list only parameters of ports 1..{ports}, or set ports to the analyzer's number of ports")
+    return parameters
+
+
+def _frequency_range(reader: TableReader) -> tuple[float | None, float | None]:
     fix = "give the analyzer's range in Hz, finite and 0 < frequency_min_hz < frequency_max_hz, e.g. 100e3 and 6e9"
     low = reader.get("frequency_min_hz", float, fix=fix)
     high = reader.get("frequency_max_hz", float, fix=fix)
-    if not 0 < low < math.inf:
-        raise reader.error("frequency_min_hz", f"must be a finite frequency above 0 Hz, got {low!r}", fix=fix)
-    if not low < high < math.inf:
-        raise reader.error("frequency_max_hz", f"must be a finite frequency above frequency_min_hz ({low:g} Hz), "
-                           f"got {high!r}", fix=fix)
+    if low is not None and not 0 < low < math.inf:
+        reader.problem("frequency_min_hz", f"must be a finite frequency above 0 Hz, got {low!r}", fix=fix)
+        low = None
+    if low is not None and high is not None and not low < high < math.inf:
+        reader.problem("frequency_max_hz", f"must be a finite frequency above frequency_min_hz ({low:g} Hz), "
+                       f"got {high!r}", fix=fix)
     return low, high
 
 
-def _parse_switch_capabilities(reader: TableReader) -> SwitchCapabilities:
+def _parse_switch_capabilities(reader: TableReader | None) -> SwitchCapabilities | None:
+    if reader is None:
+        return None
     reader.reject_unknown(set(SwitchCapabilities.__dataclass_fields__))
     modules = reader.whole("modules", 1, None, fix="give the switch's number of modules, e.g. modules = 1")
     channels = reader.whole("channels_per_module", 1, None,
@@ -406,17 +439,24 @@ def _parse_switch_capabilities(reader: TableReader) -> SwitchCapabilities:
 
 
 def _parse_common(text: str, source: str, kind: str) -> tuple[TableReader, dict[str, Any]]:
-    root = TableReader(with_base(load_toml(text, source), source), source)
+    """The root table (collecting every problem, each with its line in ``text``) and what every
+    profile kind has.  A profile of the other kind is refused at once: its keys would all be wrong."""
+    root = TableReader(with_base(load_toml(text, source), source), source, "", ProfileProblemList(source, text))
     root.reject_unknown({"profile", "link", "capabilities", "timing", "operations"})
     head = root.table("profile")
-    head.reject_unknown({"name", "kind", "summary", "based_on"})
-    found = head.get("kind", str)
-    if found != kind:
-        raise head.error("kind", f"expected kind = \"{kind}\", got {found!r}",
-                         fix=f"load it as a {found} profile" if found in ("analyzer", "switch")
-                         else f'set kind = "{kind}"')
+    found = None
+    if head is not None:
+        head.reject_unknown({"name", "kind", "summary", "based_on"})
+        found = head.get("kind", str)
+        if found in ("analyzer", "switch") and found != kind:
+            raise InputError(
+                f"expected kind = \"{kind}\", got {found!r}", path=source, key="profile.kind",
+                line=root.problems.lines.line_of("profile.kind"), fix=f"load it as a {found} profile")
+        if found is not None and found != kind:
+            head.problem("kind", f"expected kind = \"{kind}\", got {found!r}", fix=f'set kind = "{kind}"')
     common = {
-        "name": head.get("name", str), "kind": kind, "summary": head.get("summary", str, ""), "source": source,
+        "name": head.get("name", str) if head is not None else None, "kind": kind,
+        "summary": head.get("summary", str, "") if head is not None else "", "source": source,
         "link": _parse_link(root.table("link", required=False)),
         "timing": _parse_timing(root.table("timing", required=False)),
     }
@@ -424,27 +464,33 @@ def _parse_common(text: str, source: str, kind: str) -> tuple[TableReader, dict[
 
 
 def parse_analyzer_profile(text: str, source: str) -> AnalyzerProfile:
-    """Validate and build an analyzer profile from TOML text; ``source`` names it in errors."""
+    """Validate and build an analyzer profile from TOML text; ``source`` names it in errors.
+    Every problem of the file is reported at once (:class:`ProfileProblems` when there are several)."""
     root, common = _parse_common(text, source, "analyzer")
-    operations = _parse_operations(root, ANALYZER_OPERATIONS, REQUIRED_ANALYZER_OPERATIONS)
-    if "set_sweep" not in operations:
+    operations, written = _parse_operations(root, ANALYZER_OPERATIONS, REQUIRED_ANALYZER_OPERATIONS)
+    problems = root.problems
+    if "set_sweep" not in written:
         for name in ("set_start", "set_stop", "set_points"):
-            if name not in operations:
-                raise InputError("missing operation", path=source, key=f"operations.{name}",
-                                 fix=f"add {name}, or one set_sweep with {{start_hz}} {{stop_hz}} {{points}}")
-    _check_sweep_end(operations, source)
+            if name not in written:
+                problems.add(f"operations.{name}", "missing operation",
+                             fix=f"add {name}, or one set_sweep with {{start_hz}} {{stop_hz}} {{points}}")
+    _check_sweep_end(operations, written, problems)
     capabilities = _parse_analyzer_capabilities(root.table("capabilities"))
-    _check_reads(operations, capabilities, common["link"], source)
+    if capabilities is not None:
+        _check_reads(operations, capabilities, common["link"], problems)
+    problems.raise_if_any()
     return AnalyzerProfile(**common, operations=operations, capabilities=capabilities)
 
 
-def _check_sweep_end(operations: Mapping[str, Operation], source: str) -> None:
+def _check_sweep_end(operations: Mapping[str, Operation], written: set[str], problems: ProfileProblemList) -> None:
     """Something must tell when a triggered sweep has ended: without it the trace read after
     the trigger may be the previous sweep's."""
-    if operations["trigger"].reply == "none" and "wait" not in operations:
-        raise InputError(
+    trigger = operations.get("trigger")
+    if trigger is not None and trigger.reply == "none" and "wait" not in written:
+        problems.add(
+            "operations.wait",
             "the trigger has no reply and there is no wait operation: nothing would tell when the sweep "
-            "ends, and the trace read after it could be the previous sweep's", path=source, key="operations.wait",
+            "ends, and the trace read after it could be the previous sweep's",
             fix='add wait = { send = "*OPC?", reply = "complete" } (or a polled wait: { send = "*ESR?", '
                 'reply = "status", arm = "*OPC", done_bits = 1 }), or give the trigger the reply the '
                 'instrument sends when the sweep ends (reply = "text" or "complete")',
@@ -452,29 +498,29 @@ def _check_sweep_end(operations: Mapping[str, Operation], source: str) -> None:
 
 
 def _check_reads(operations: Mapping[str, Operation], capabilities: AnalyzerCapabilities,
-                 link: LinkSettings, source: str) -> None:
+                 link: LinkSettings, problems: ProfileProblemList) -> None:
     for name, needed in (("read_raw", {"re", "im"}), ("read_corrected", {"re", "im"}),
                          ("read_frequencies", {"frequency"})):
         operation = operations.get(name)
         if operation is None:
             continue
         if operation.reply == "rows" and not needed <= set(operation.columns):
-            raise InputError(f"columns must include {', '.join(sorted(needed))}", path=source,
-                             key=f"operations.{name}.columns",
-                             fix='name each column the reply has, e.g. columns = ["frequency", "re", "im"]')
+            problems.add(f"operations.{name}.columns", f"columns must include {', '.join(sorted(needed))}",
+                         fix='name each column the reply has, e.g. columns = ["frequency", "re", "im"]')
         if operation.reply == "block" and (link.needs_serial or capabilities.data_format == "ASCII"):
-            raise InputError("a block reply needs message framing and a REAL data format", path=source,
-                             key=f"operations.{name}.reply", fix='use reply = "rows" or "numbers"')
+            problems.add(f"operations.{name}.reply", "a block reply needs message framing and a REAL data format",
+                         fix='use reply = "rows" or "numbers"')
 
 
 def parse_switch_profile(text: str, source: str) -> SwitchProfile:
-    """Validate and build a switch-matrix profile from TOML text."""
+    """Validate and build a switch-matrix profile from TOML text (every problem at once)."""
     root, common = _parse_common(text, source, "switch")
-    operations = _parse_operations(root, SWITCH_OPERATIONS, REQUIRED_SWITCH_OPERATIONS)
-    if "open_all" not in operations and "open_channels" not in operations:
-        raise InputError("missing operation", path=source, key="operations.open_all",
-                         fix="add open_all, or open_channels with a {channels} slot")
+    operations, written = _parse_operations(root, SWITCH_OPERATIONS, REQUIRED_SWITCH_OPERATIONS)
+    if "open_all" not in written and "open_channels" not in written:
+        root.problems.add("operations.open_all", "missing operation",
+                          fix="add open_all, or open_channels with a {channels} slot")
     capabilities = _parse_switch_capabilities(root.table("capabilities"))
+    root.problems.raise_if_any()
     return SwitchProfile(**common, operations=operations, capabilities=capabilities)
 
 

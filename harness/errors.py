@@ -97,7 +97,14 @@ class CalibrationError(LineproofError):
 
 
 class RunHalted(LineproofError):
-    """A step found that the run must not go on (e.g. the termination failed qualification)."""
+    """A step found that the run must not go on (e.g. the termination failed qualification).
+
+    ``resumable`` is False when resuming would meet the same refusal (a stored calibration the
+    sequence asks to reuse cannot serve): the message's fix is then the only way on."""
+
+    def __init__(self, message: str, *, resumable: bool = True) -> None:
+        super().__init__(message)
+        self.resumable = resumable
 
 
 class InputError(LineproofError):

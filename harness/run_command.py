@@ -20,7 +20,7 @@ from lineproof.errors import InputError, LineproofError
 from lineproof.run_steps import StopSignal
 from lineproof.run_view import ConsoleRunView, JsonRunView, RunView
 from lineproof.runner import RunOptions, resume_run, start_run
-from lineproof.sequence import SequenceProblems, load_sequence
+from lineproof.sequence import load_sequence
 
 
 @contextmanager
@@ -46,7 +46,7 @@ def stop_on_ctrl_c(stop: StopSignal, view: RunView) -> Iterator[None]:
 
 
 def problems_as_json(error: InputError) -> list[dict[str, object]]:
-    items = error.problems if isinstance(error, SequenceProblems) else [error]
+    items = getattr(error, "problems", None) or [error]  # a sequence's or a profile's every problem
     return [{"file": p.path, "line": p.line, "key": p.key, "problem": p.problem, "fix": p.fix} for p in items]
 
 

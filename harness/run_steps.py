@@ -282,7 +282,7 @@ class StepRunner:
             reused = reuse_calibration(self.store, self.spec, self.facts.station, self.station.identity,
                                        self.checks.read_temperature())
         except ReuseRefused as exc:
-            raise RunHalted(str(exc)) from exc
+            raise RunHalted(str(exc), resumable=False) from exc  # a resume would load the same one
         self.store.update_run(self.facts.run_id, {"calibration_id": reused.calibration.calibration_id,
                                                   "calibration_method": reused.calibration.method,
                                                   "cal_kit": reused.calibration.kit_name})

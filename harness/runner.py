@@ -64,6 +64,8 @@ class RunOutcome:
     run_folder: Path
     recorded: list[RecordedDevice] = field(default_factory=list)
     counts: dict[str, int] = field(default_factory=dict)
+    #: False when ``--resume`` would stop at the same refusal (the reason's fix is the way on).
+    resumable: bool = True
 
     @property
     def exit_code(self) -> int:
@@ -80,7 +82,7 @@ class RunOutcome:
             "exit_code": self.exit_code, "records": str(self.records), "database": str(self.database),
             "run_folder": str(self.run_folder),
         }
-        if self.status != "complete":
+        if self.status != "complete" and self.resumable:
             summary["resume_command"] = f"lineproof run --resume {self.run_id} --records {self.records}"
         return summary
 
@@ -207,6 +209,7 @@ def _execute(runner: StepRunner, store: ResultStore, journal: RunJournal, outcom
         status, reason = "interrupted", "stopped by Ctrl-C"
     except RunHalted as exc:
         status, reason = "halted", str(exc)
+        outcome.resumable = exc.resumable
     except LineproofError as exc:
         status, reason, raised = "failed", str(exc), exc
     except BaseException as exc:

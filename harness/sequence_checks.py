@@ -62,7 +62,7 @@ def _check_analyzer(spec: SequenceSpec, problems: Problems):  # -> AnalyzerCapab
     try:
         profile = load_analyzer_profile(_profile_path(spec, spec.station.analyzer.profile))
     except InputError as exc:
-        problems.items.append(exc)
+        problems.items.extend(getattr(exc, "problems", None) or [exc])  # a profile's every problem
         problems.add(key, "the analyzer profile named here cannot be used (see above)",
                      "name a shipped profile or a valid profile file", source=source)
         return None
@@ -298,7 +298,7 @@ def _check_switch(spec: SequenceSpec, problems: Problems) -> None:
     try:
         load_switch_profile(_profile_path(spec, switch.profile))
     except InputError as exc:
-        problems.items.append(exc)
+        problems.items.extend(getattr(exc, "problems", None) or [exc])  # a profile's every problem
         problems.add(profile_key, "the switch profile named here cannot be used (see above)",
                      "name a shipped switch profile or a valid profile file", source=source)
 
@@ -332,15 +332,20 @@ def _check_simulated_bench(spec: SequenceSpec, problems: Problems) -> None:
     scenario_name = spec.station.simulated_bench
     if scenario_name is None:
         return
-    from lineproof.simulators.scenario import load_scenario
+    from lineproof.simulators.scenario import find_scenario, load_scenario
 
     key, source = _station_key(spec, "simulated_bench")
     local = Path(spec.station.source).parent / scenario_name
     try:
-        scenario = load_scenario(local if local.is_file() else scenario_name)
-    except InputError as exc:
+        path = find_scenario(local if local.is_file() else scenario_name)
+    except InputError as exc:  # no such file: the sequence's key is what is wrong
         problems.add(key, exc.problem, exc.fix or "name a shipped scenario (e.g. demo-bench) or a scenario file",
                      source=source)
+        return
+    try:
+        scenario = load_scenario(path)
+    except InputError as exc:  # the scenario file is wrong: its own file, line and key, and who named it
+        problems.absorb(exc, key, source=source, what="the simulated bench scenario")
         return
     if spec.station.connected_by == "switch":
         return  # the switch reaches what the scenario wires; _check_switch covered the names

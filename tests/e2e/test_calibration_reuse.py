@@ -161,6 +161,10 @@ def test_reuse_refuses_another_analyzer_an_old_calibration_and_a_sweep_beyond_it
             text for text in sequence.read_text(encoding="utf-8").splitlines() if text.startswith("reuse = "))) + 1
         assert message.rstrip().endswith(f"Fix: remove reuse from [calibration] ({sequence}:{line}) and run again: "
                                          "the calibrate step then measures the kit's standards"), message
+        # A resume would load the same stored calibration and be refused again: the Fix is the way on.
+        assert "To continue" not in completed.stdout and "--resume" not in completed.stdout + completed.stderr, \
+            completed.stdout
+        assert f"run {last_run(records)[0]} halted" in completed.stdout, completed.stdout
         run_id, run = last_run(records)
         with sqlite3.connect(records / "results.sqlite") as db:
             devices = db.execute("SELECT COUNT(*) FROM devices WHERE run_id = ?", (run_id,)).fetchone()

@@ -7,6 +7,7 @@ from pathlib import Path
 
 import pytest
 
+from lineproof.drivers.profile_files import ProfileProblems
 from lineproof.drivers.profiles import (
     load_analyzer_profile,
     load_switch_profile,
@@ -191,7 +192,8 @@ def test_values_out_of_range_are_refused_with_file_key_and_fix(change: tuple[str
         parse_analyzer_profile(text, "mine.toml")
     error = caught.value
     assert (error.path, error.key) == ("mine.toml", key)
-    assert error.fix and f"mine.toml [{key}]: " in str(error) and " -- fix: " in str(error)
+    assert error.line is not None and key.split(".")[1] in text.splitlines()[error.line - 1]
+    assert error.fix and f"mine.toml:{error.line} [{key}]: " in str(error) and " -- fix: " in str(error)
 
 
 @pytest.mark.parametrize(
@@ -353,3 +355,29 @@ def test_the_contributor_guide_examples_load(tmp_path: Path) -> None:
     misspelt = examples[0].replace('reply = "block"', 'reply = "blok"')
     with pytest.raises(InputError, match=re.escape("[operations.read_raw.reply]: unknown value 'blok'")):
         parse_analyzer_profile(misspelt, "my-analyzer.toml")
+
+
+def test_every_problem_of_a_switch_profile_is_reported_at_once_each_with_its_line() -> None:
+    text = SWITCH.replace("modules = 2", 'modules = "two"') + "foo = 1\n"
+    with pytest.raises(ProfileProblems) as caught:
+        parse_switch_profile(text, "matrix.toml")
+    found = {(p.key, p.line) for p in caught.value.problems}
+    lines = text.splitlines()
+    assert found == {("capabilities.modules", lines.index('modules = "two"') + 1),
+                     ("capabilities.foo", lines.index("foo = 1") + 1)}
+    assert all(p.path == "matrix.toml" and p.fix for p in caught.value.problems)
+    assert "2 problems found" in str(caught.value) and "matrix.toml:9 [capabilities.foo]: unknown key" in str(caught.value)
+
+
+def test_every_problem_of_an_analyzer_profile_is_reported_across_its_tables() -> None:
+    text = (MINIMAL.replace("ports = 1", "ports = 0").replace('trigger = "INIT"', "trigger = 7")
+            .replace("[operations]", "[timing]\nretries = 11\n[link]\nparity = \"Q\"\n[operations]"))
+    with pytest.raises(ProfileProblems) as caught:
+        parse_analyzer_profile(text, "mine.toml")
+    lines = text.splitlines()
+    assert {(p.key, p.line) for p in caught.value.problems} == {
+        ("capabilities.ports", lines.index("ports = 0") + 1),
+        ("operations.trigger", lines.index("trigger = 7") + 1),
+        ("timing.retries", lines.index("retries = 11") + 1),
+        ("link.parity", lines.index('parity = "Q"') + 1),
+    }

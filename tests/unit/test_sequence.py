@@ -289,3 +289,38 @@ def test_a_station_files_problems_name_its_own_lines_and_tables(tmp_path: Path) 
     in_sequence = problems_of(tmp_path, GOOD.replace('connected_by = "simulated-operator"', 'connected_by = "switch"'))
     [switch] = [p for p in in_sequence if p.key == "station.connected_by"]
     assert switch.fix.startswith("add a [station.switch] table") and switch.line == line_of(GOOD, "connected_by")
+
+
+def _check_json(path: Path, capsys: pytest.CaptureFixture[str]) -> list[dict]:
+    import json
+
+    from lineproof.cli import main
+
+    assert main(["check", str(path), "--json"]) == 3
+    return json.loads(capsys.readouterr().out)["problems"]
+
+
+def test_check_names_the_scenario_file_its_key_and_line_and_the_key_that_named_it(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    bench_text = (SCENARIOS / "batch-bench.toml").read_text(encoding="utf-8").replace(
+        "time_scale = 0.1", 'time_scale = 0.1\ncolour = "blue"')
+    bench = write(tmp_path, bench_text, "bench.toml")
+    sequence = write(tmp_path, GOOD.replace(str(SCENARIOS / "batch-bench.toml"), str(bench)))
+    found = _check_json(sequence, capsys)
+    in_bench = [p for p in found if p["file"] == str(bench)]
+    assert len(in_bench) == 1 and in_bench[0]["key"] == "bench.colour"
+    assert in_bench[0]["line"] == line_of(bench_text, "colour") and in_bench[0]["fix"]
+    pointer = [p for p in found if p["file"] == str(sequence)]
+    assert [(p["key"], p["line"]) for p in pointer] == [("station.simulated_bench", line_of(GOOD, "simulated_bench"))]
+    assert str(bench) in pointer[0]["problem"] and "scenario" in pointer[0]["problem"]
+
+
+def test_check_lists_every_problem_of_a_profile_file(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    profile_text = ('[profile]\nname = "mine"\nkind = "analyzer"\nbased_on = "generic-scpi-reflectometer"\n'
+                    '[capabilities]\nmax_points = "many"\nfoo = 1\n')
+    profile = write(tmp_path, profile_text, "mine.toml")
+    sequence = write(tmp_path, GOOD.replace('profile = "generic-scpi-reflectometer"', f'profile = "{profile}"'))
+    found = _check_json(sequence, capsys)
+    assert {(p["key"], p["line"]) for p in found if p["file"] == str(profile)} == {
+        ("capabilities.max_points", line_of(profile_text, "max_points")), ("capabilities.foo", line_of(profile_text, "foo"))}
+    assert any(p["file"] == str(sequence) and p["key"] == "station.analyzer.profile" for p in found)
