@@ -96,6 +96,8 @@ def read_markers(frequencies_hz: np.ndarray, markers: Mapping[str, float], match
                          else float(np.degrees(transmission.phase_expanded_rad[i])))
         if delays is not None:
             found.update(group_delay_s=float(delays[0][i]), group_delay_uncertainty_s=_at(delays[1], i))
+        if float(f[i]) != float(hz):
+            found.update(requested_hz=float(hz))
         readings.append(MarkerReading(name, float(f[i]), **found))  # type: ignore[arg-type]
     return tuple(readings)
 

@@ -262,6 +262,8 @@ def marker_items(result: DeviceResult) -> list[tuple[str, object]]:
     for marker in result.markers:
         prefix = f"marker.{marker.name}"
         items.append((f"{prefix}.frequency_hz", f"{marker.frequency_hz:.10g}"))
+        if marker.requested_hz is not None:  # read at the sweep point nearest the named frequency
+            items.append((f"{prefix}.requested_hz", f"{marker.requested_hz:.10g}"))
         if marker.reflection is not None:
             items += [(f"{prefix}.figure", marker.figure), (f"{prefix}.vswr", f"{marker.vswr:.4f}"),
                       (f"{prefix}.return_loss_db", f"{marker.return_loss_db:.2f}"),

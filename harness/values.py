@@ -166,6 +166,9 @@ class MarkerReading:
     phase_uncertainty_deg: float | None = None
     group_delay_s: float | None = None
     group_delay_uncertainty_s: float | None = None
+    #: The frequency the sequence named, when it is not a sweep point (``frequency_hz`` is then
+    #: the nearest point, where the reading was taken).
+    requested_hz: float | None = None
 
     @property
     def vswr(self) -> float | None:

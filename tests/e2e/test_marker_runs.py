@@ -94,6 +94,11 @@ def test_markers_and_group_delay_hold_the_truth_with_full_s_parameters(tmp_path:
             keys = metadata[serial]
             assert float(keys[f"marker.{name}.insertion_loss_db"]) == round(m["insertion_loss_db"], 4)
             assert float(keys[f"marker.{name}.group_delay_s"]) == float(f"{m['group_delay_s']:.6g}")
+            # read at the nearest point; the file keeps the frequency the sequence named beside it
+            named = {"f50": 50e6, "stop": 300e6}[name]
+            assert float(keys[f"marker.{name}.frequency_hz"]) == hz
+            assert (float(keys[f"marker.{name}.requested_hz"]) if hz != named
+                    else f"marker.{name}.requested_hz" not in keys) == (named if hz != named else True)
         # each band's group delay: the truth's over the band's sweep points, within what the
         # phase's uncertainty allows there (the f50 marker's bound, inside the band)
         f = np.linspace(10e6, 500e6, 201)

@@ -48,6 +48,7 @@ def test_a_marker_reads_the_nearest_point_of_every_trace() -> None:
     (reading,) = read_markers(F, {"f0": 150.4e6}, match, transmission)
     i = 50  # 150 MHz is the nearest point
     assert reading.frequency_hz == 150e6 and reading.figure == "input-match"
+    assert reading.requested_hz == 150.4e6  # what the sequence named, kept beside where it was read
     assert reading.reflection == pytest.approx(gamma[i]) and reading.expanded_uncertainty == 0.004
     assert reading.vswr == pytest.approx((1 + gamma[i]) / (1 - gamma[i]))
     assert reading.return_loss_db == pytest.approx(-20 * math.log10(gamma[i]))
@@ -57,6 +58,7 @@ def test_a_marker_reads_the_nearest_point_of_every_trace() -> None:
     assert reading.group_delay_s == pytest.approx(2e-9)
     assert reading.group_delay_uncertainty_s == pytest.approx(2 * math.radians(0.2) / (2 * np.pi * 2e6))
     (bare,) = read_markers(F, {"f0": 150e6}, None, transmission)  # a thru response: no reflection
+    assert bare.requested_hz is None  # named on a sweep point: read there
     assert bare.reflection is None and bare.vswr is None and bare.return_loss_db is None and bare.figure is None
     with pytest.raises(ValueError, match="outside the sweep"):
         read_markers(F, {"far": 300e6}, match, None)
