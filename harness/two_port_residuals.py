@@ -60,7 +60,9 @@ class ThroughPath:
 
     def vector(self, gamma: np.ndarray, gamma_squared: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(1 - K, Γin - K Γthru, Γin² - K Γthru²) for the corrected reading ``gamma`` (and its square)."""
-        inverse = 1 / (1 - self.far_reflection * self.load_match)  # 1 / (1 - S22 L)
+        inverse = self.far_reflection * self.load_match
+        np.subtract(1, inverse, out=inverse)
+        np.reciprocal(inverse, out=inverse)  # 1 / (1 - S22 L)
         reading = self.product * self.load_match
         reading *= inverse
         reading += gamma

@@ -249,8 +249,13 @@ def _vector(gamma: np.ndarray, gamma_squared: np.ndarray,
 
 
 def _power(values: np.ndarray) -> np.ndarray:
-    """|z|² computed as re² + im² (what z̄ z gives, without the complex product)."""
-    return values.real * values.real + values.imag * values.imag
+    """|z|² computed as re² + im² (what z̄ z gives, without the complex product); on a
+    contiguous array by squaring its float64 view in one pass (the same numbers, 0.7 of the time)."""
+    if values.dtype != np.complex128 or not values.flags.c_contiguous:
+        return values.real * values.real + values.imag * values.imag
+    parts = values.view(np.float64)
+    parts = parts * parts
+    return np.add(parts[0::2], parts[1::2])
 
 
 def _hermitian_form(matrix: np.ndarray, squares: tuple[np.ndarray | float, np.ndarray, np.ndarray],
@@ -319,9 +324,22 @@ def estimate_trace_noise(trace: np.ndarray) -> float:
     values = np.asarray(trace, dtype=complex)
     if values.size < 5:
         return 0.0
-    second = values[:-2] - 2 * values[1:-1] + values[2:]
+    second = values[1:-1] * 2
+    np.subtract(values[:-2], second, out=second)
+    second += values[2:]
     # |second| is Rayleigh with scale sqrt(6)σ; its median is that scale times sqrt(2 ln 2).
-    return float(np.median(np.abs(second)) / (math.sqrt(6) * math.sqrt(2 * math.log(2))))
+    return float(_median(np.abs(second)) / (math.sqrt(6) * math.sqrt(2 * math.log(2))))
+
+
+def _median(values: np.ndarray) -> float:
+    """np.median of a 1-D array (which it reorders), by one partition in place (half the time)."""
+    middle = values.size // 2
+    values.partition((middle - 1, middle) if values.size % 2 == 0 else middle)
+    if np.isnan(np.max(values[middle:])):  # partition puts NaNs after the middle; np.median gives NaN
+        return math.nan
+    if values.size % 2:
+        return float(values[middle])
+    return float((values[middle - 1] + values[middle]) / 2)
 
 
 #: Coverage factor for the coverage probability of k = 2 under a normal distribution
@@ -425,9 +443,13 @@ def reflection_uncertainty(
     v *= 0.5
     variance = np.maximum(v, 0.0, out=v)  # of |Γ| from the calibration's residuals
     calibration = np.sqrt(variance)
-    load = np.minimum(np.sqrt(np.maximum(load_v, 0.0, out=load_v) / 2), calibration)
-    budget = {"calibration (load standard)": load,
-              "calibration (other standards)": np.sqrt(np.maximum(variance - load * load, 0.0))}
+    load = np.maximum(load_v, 0.0, out=load_v)  # in place here and below: load_v and others are fresh arrays
+    load /= 2
+    load = np.minimum(np.sqrt(load, out=load), calibration, out=load)
+    others = load * load
+    np.subtract(variance, others, out=others)
+    others = np.sqrt(np.maximum(others, 0.0, out=others), out=others)
+    budget = {"calibration (load standard)": load, "calibration (other standards)": others}
     noise = settings.trace_noise if settings.trace_noise is not None else estimate_trace_noise(g)
     budget["noise"] = np.full(f.shape, noise)
     total_variance = variance + noise * noise  # load² + others² = the calibration's variance
@@ -436,7 +458,12 @@ def reflection_uncertainty(
         if transmission is not None:
             # the connection at the device's far port reaches S11 through S21 S12, and the
             # thru's own connection through the load match it gave (K = 1 - v0, see _vector)
-            reach = np.hypot(reach + np.abs(transmission.product), np.abs(1 - v0))  # type: ignore[operator]
+            # sqrt(a² + b²) rather than np.hypot (a third of its time; no overflow at these sizes)
+            reach += np.abs(transmission.product)
+            reach *= reach
+            thru_reach = _power(1 - v0)  # type: ignore[operator]
+            reach += thru_reach
+            reach = np.sqrt(reach, out=reach)
         if settings.switch_path_mismatch:
             reach *= np.sqrt(settings.connection_variance(f) / 2)
         else:
@@ -465,9 +492,11 @@ def _along(pseudo_variance: np.ndarray, gamma_squared: np.ndarray, magnitude: np
     """Re(W e^(-2j arg Γ)) = Re(W conj(Γ²)) / |Γ|² (Re W where Γ = 0): the pseudo-variance's
     share along Γ."""
     power = magnitude * magnitude
-    turned = (pseudo_variance * np.conj(gamma_squared)).real
+    turned = pseudo_variance.real * gamma_squared.real  # Re(W conj(Γ²)) = Re W Re Γ² + Im W Im Γ²
+    turned += pseudo_variance.imag * gamma_squared.imag
     if power.all():
-        return turned / power
+        turned /= power
+        return turned
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(power > 0, turned / power, pseudo_variance.real)
 
@@ -482,7 +511,10 @@ def _coverage(bounded: list[tuple[np.ndarray, float]], total: np.ndarray,
     with np.errstate(divide="ignore", invalid="ignore"):
         if len(bounded) == 1:  # one contribution of unknown phase: no choosing to do
             part, spread = bounded[0]
-            return np.interp(np.where(total > 0, part / total, 0.0), _SHARES, _coverage_row(spread))
+            share = part / total
+            if not (total > 0).all():
+                share = np.where(total > 0, share, 0.0)
+            return np.interp(share, _SHARES, _coverage_row(spread))
         parts = np.stack([part for part, _ in bounded])
         largest = np.argmax(parts, axis=0)
         share = np.where(total > 0, np.max(parts, axis=0) / total, 0.0)
@@ -543,14 +575,24 @@ def transmission_relative_uncertainty(
     was measured with) times S22, and noise; first order, the complex relative error taken
     as of unknown phase except the tracking's magnitude part.  ``s21_magnitude``: |S21| when
     the caller has it already."""
-    magnitude = residuals.get("transmission.magnitude_variance", np.zeros(s21.shape)).real
-    mismatch: np.ndarray | float = 0.0
-    variance = residuals.get("port1.variance")
-    if variance is not None:
-        mismatch = variance[:, 2, 2].real * _power(s11) + variance[:, 0, 0].real * _power(s22)
+    magnitude = residuals.get("transmission.magnitude_variance")
     sigma = noise if noise is not None else (settings.trace_noise or estimate_trace_noise(s21))
     through = np.abs(s21) if s21_magnitude is None else s21_magnitude
-    return np.sqrt(magnitude + 0.5 * mismatch + (sigma / np.maximum(through, 1e-12)) ** 2)
+    total = np.maximum(through, 1e-12)
+    np.divide(sigma, total, out=total)
+    total *= total  # (σ / |S21|)²
+    variance = residuals.get("port1.variance")
+    if variance is not None:  # in place: half the passes of the plain expression
+        mismatch = _power(s11)
+        mismatch *= variance[:, 2, 2].real
+        far = _power(s22)
+        far *= variance[:, 0, 0].real
+        mismatch += far
+        mismatch *= 0.5
+        total += mismatch
+    if magnitude is not None:
+        total += magnitude.real
+    return np.sqrt(total, out=total)
 
 
 def transmission_phase_uncertainty(

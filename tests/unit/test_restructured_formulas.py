@@ -15,6 +15,8 @@ from lineproof.calkit import load_kit
 from lineproof.decision import judge_extremes, judge_upper_limit
 from lineproof.uncertainty import (
     UncertaintySettings,
+    _median,
+    _power,
     _quadratic_forms,
     add_specified_residuals,
     reflection_uncertainty,
@@ -137,3 +139,20 @@ def test_judging_a_band_from_its_extremes_is_judging_every_point(rule: str) -> N
         extremes = judge_extremes(float(values.max()), limit, rule,  # type: ignore[arg-type]
                                   float((values + u).max()), float((values - u).max()))
         assert extremes is every_point
+
+
+@pytest.mark.parametrize("size", [1, 2, 5, 6, 1000, 1001])
+def test_the_median_by_partition_is_numpys(size: int) -> None:
+    for _ in range(20):
+        values = RNG.rayleigh(1.0, size)
+        assert _median(values.copy()) == np.median(values)
+        if size > 2:
+            values[RNG.integers(size)] = np.nan  # np.median gives NaN: so must this
+            assert np.isnan(_median(values.copy()))
+
+
+def test_the_power_of_a_contiguous_trace_is_that_of_a_strided_one() -> None:
+    trace = phasor(1.0, 2 * POINTS)
+    plain = trace.real * trace.real + trace.imag * trace.imag
+    assert np.array_equal(_power(trace), plain)
+    assert np.array_equal(_power(trace[::2]), plain[::2])  # not contiguous: the plain formula
