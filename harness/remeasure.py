@@ -17,7 +17,7 @@ from lineproof.errors import InputError
 from lineproof.recording import RunFolder
 from lineproof.run_steps import StopSignal
 from lineproof.run_view import RunView
-from lineproof.runner import RunOptions, RunOutcome, check_run_id, kept_sequence, records_location, start_run
+from lineproof.runner import RunOptions, RunOutcome, check_run_id, existing_records, kept_sequence, start_run
 from lineproof.sequence import DevicesSpec, DeviceUnit, SequenceSpec
 from lineproof.store import ResultStore, open_store
 
@@ -50,10 +50,7 @@ def restricted_to(spec: SequenceSpec, units: tuple[DeviceUnit, ...]) -> Sequence
 def remeasure_suspect(run_id: str, options: RunOptions, view: RunView, stop: StopSignal) -> RunOutcome:
     """A new run that measures ``run_id``'s suspect results again."""
     check_run_id(run_id)
-    records, database = records_location(None, options.records)
-    if not database.is_file():
-        raise InputError("no results database here", path=str(database),
-                         fix="give the records folder the run wrote to with --records DIR")
+    records, database = existing_records(None, options.records)
     with open_store(database) as store:
         row = store.run(run_id)
         if row is None:

@@ -116,6 +116,16 @@ def records_location(spec: SequenceSpec | None, option: Path | None) -> tuple[Pa
     return folder, folder / database
 
 
+def existing_records(spec: SequenceSpec | None, option: Path | None) -> tuple[Path, Path]:
+    """:func:`records_location` of records a run already wrote: InputError (nothing created)
+    when the database is not there."""
+    folder, database = records_location(spec, option)
+    if not database.is_file():
+        raise InputError("no results database here", path=str(database),
+                         fix="give the records folder the run wrote to with --records DIR")
+    return folder, database
+
+
 def _operator_name(given: str) -> str:
     if given.strip():
         return " ".join(given.split())[:80]
@@ -428,10 +438,7 @@ def resume_run(run_id: str, options: RunOptions, view: RunView, stop: StopSignal
                spec_hint: SequenceSpec | None = None) -> RunOutcome:
     """Continue run ``run_id`` from where it stopped."""
     check_run_id(run_id)
-    records, database = records_location(spec_hint, options.records)
-    if not database.is_file():
-        raise InputError("no results database here", path=str(database),
-                         fix="give the records folder the run wrote to with --records DIR")
+    records, database = existing_records(spec_hint, options.records)
     with open_store(database) as store:
         row, folder = _resumable(store, run_id, records)
         with _run_lock(folder.path) as lock:
